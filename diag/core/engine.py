@@ -15,28 +15,36 @@ CONTRACT (stable; other modules code against it):
     Diagnosis.to_json(case_path, top=None) -> dict           # SPEC section 5
 
 Readings are matched to observables by (point, kind).
+
+Also: eng.case, eng.rules, eng.check_value(point, kind, text) -> float (the readings
+file's validation for one typed value; DiagError with the reason), eng.splitters() (for
+each group of several hypotheses, the kind of reading that would split it).
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Any, Callable, Sequence
 
 import numpy as np
 
 from diag.core.case import Case, Observable
+from diag.core.errors import DiagError
 
 
 @dataclass(frozen=True)
 class Hypothesis:
     """One explanation of the unit: `healthy`, a single fault `R2:open`, or a multiple
-    fault `Q3:ce-short+R9:open`. `prior` is normalised over the hypothesis set."""
+    fault `Q3:ce-short+R9:open`. `prior` is normalised over the hypothesis set (with the
+    default healthy prior). `origin`: healthy, single, linked or pair."""
 
     id: str
     prior: float
     text: str
     confirm: str
     parts: tuple[str, ...] = ()
+    origin: str = "single"
 
 
 @dataclass(frozen=True)
@@ -46,6 +54,11 @@ class Ensemble:
     samples: (H, K, M) float64, meter reading at each observable (loading included,
     meter error excluded), volts or amperes; NaN where a variant did not converge.
     group: (H,) int, hypotheses no offered reading can tell apart share a number.
+    noise_a, noise_b: (M,) reading noise sigma(y) = sqrt(b^2 + (a y)^2) (infer.Noise).
+    ref: random numbers of the goodness-of-fit reference (ensemble.reference_draws).
+    hidden: readings nobody offers yet (DC and AC at every node, supply currents) as
+    (H, 2, X) lower/upper band per hypothesis with their names, for `splitters`.
+    failed: (H,) count of units that did not converge.
     """
 
     case_hash: str
@@ -54,6 +67,13 @@ class Ensemble:
     hypotheses: tuple[Hypothesis, ...]
     samples: np.ndarray
     group: np.ndarray
+    noise_a: np.ndarray | None = None
+    noise_b: np.ndarray | None = None
+    ref: dict = field(default_factory=dict)
+    hidden_names: tuple[str, ...] = ()
+    hidden_band: np.ndarray | None = None
+    failed: np.ndarray | None = None
+    from_cache: bool = False
 
 
 @dataclass(frozen=True)
@@ -99,7 +119,9 @@ class NextReading:
 class Diagnosis:
     """The answer for one unit (SPEC section 5). `suspects` holds every hypothesis,
     sorted by p. `fit_text` says in plain words how well the best one explains the
-    readings; `rejected` lists readings not used, each with its reason."""
+    readings; `rejected` lists readings not used, each with its reason. `extra` holds
+    `p_value` (goodness of fit of the best hypothesis), `pairs_tried`, `confirm`
+    (fault -> bench confirmation of the leading suspects)."""
 
     readings_used: int
     fits: bool
@@ -111,17 +133,470 @@ class Diagnosis:
     extra: dict = field(default_factory=dict)
 
     def to_json(self, case_path: str, top: int | None = None) -> dict[str, Any]:
-        raise NotImplementedError
+        """SPEC section 5 object; `top` limits the suspects listed (p still sums to 1
+        over all hypotheses)."""
+        sus = self.suspects if top is None else self.suspects[:max(top, 0)]
+        return {
+            "case": case_path,
+            "readings_used": self.readings_used,
+            "fits": bool(self.fits),
+            "suspects": [{"fault": s.fault, "p": round(float(s.p), 6), "group": int(s.group),
+                          "text": s.text} for s in sus],
+            "next": [{"point": n.point, "kind": n.kind, "bits": round(float(n.bits), 4),
+                      "why": n.why} for n in self.next],
+            "notes": list(self.notes),
+            "fit": {"p_value": _r(self.extra.get("p_value")), "text": self.fit_text},
+            "rejected": list(self.rejected),
+            "pairs_tried": bool(self.extra.get("pairs_tried", False)),
+        }
+
+
+def _r(x):
+    return None if x is None else round(float(x), 4)
+
+
+# Bumped when the cached arrays change meaning (the cache key also holds both hashes).
+CACHE_VERSION = "e1"
+# Reading kinds' model-error keys in faults.yaml `inference.model_error`.
+_MODEL_ERR = {("dc", "V"): ("dc_v", "dc_rel"), ("ac", "V"): ("ac_v", "ac_rel"),
+              ("dc", "A"): ("a_abs", "a_rel")}
 
 
 class Engine:
+    """Ensemble, diagnosis, advice and notes for one case (see CONTRACT above)."""
+
     def __init__(self, case: Case, rules=None, K: int = 128, seed: int = 0):
-        raise NotImplementedError
+        from diag.core import faults
+        from diag.core.rules import load_rules
+
+        if K < 8:
+            raise DiagError(f"--draws {K} is too few", hint="use at least 8 (default 128)")
+        self.case = case
+        self.rules = rules or load_rules()
+        self.K = int(K)
+        self.seed = int(seed)
+        self.inf = faults.inference(self.rules)
+        self.specs = faults.hypotheses(case, self.rules)
+        self._singles = [s for s in self.specs if s.origin == "single"]
+        self._pair_scale = faults.pair_weight_scale(self.rules, self._singles)
+        self.observables = case.observables
+        self._obs_index = {(o.point, o.kind): j for j, o in enumerate(self.observables)}
+        self._ens: Ensemble | None = None
+        self._circuit = None
+        self._extra: dict[str, tuple[Any, np.ndarray]] = {}  # on-demand hypotheses
+        self._limits = None
+
+    # -- building ------------------------------------------------------------------------
+
+    @property
+    def circuit(self):
+        if self._circuit is None:
+            from diag.core import netlist
+
+            self._circuit = netlist.compile_case(self.case, self.rules)
+        return self._circuit
+
+    @property
+    def ensemble(self) -> Ensemble:
+        if self._ens is None:
+            self.build()
+        return self._ens
+
+    def _priors(self, healthy_prior: float, specs) -> np.ndarray:
+        from diag.core import faults
+
+        return np.array(faults.priors(specs, healthy_prior))
+
+    def _noise(self) -> tuple[np.ndarray, np.ndarray]:
+        from diag.core import meter
+
+        me = self.inf["model_error"]
+        a = np.empty(len(self.observables))
+        b = np.empty(len(self.observables))
+        m = self.case.meter
+        for j, ob in enumerate(self.observables):
+            k_abs, k_rel = _MODEL_ERR[(ob.kind, ob.unit)]
+            ranges = np.asarray(m["a_ranges" if ob.unit == "A" else "v_ranges"], float)
+            s0 = float(meter.sigma(0.0, ob.kind, m, ob.unit))
+            grid = np.geomspace(ranges[0] / 20, ranges[-1] * 0.9, 200)
+            s = meter.sigma(grid, ob.kind, m, ob.unit)
+            rel = np.median(np.sqrt(np.maximum(s ** 2 - s0 ** 2, 0.0)) / grid)
+            a[j] = math.hypot(rel, float(me[k_rel]))
+            b[j] = math.hypot(s0, float(me[k_abs]))
+        return a, b
+
+    def _solve(self, specs, K: int, progress=None, cancelled=None, chunk: int = 16):
+        """Meter readings (H, K, M) of K units per spec, and the hidden readings
+        (H, K, X) with their names; progress over chunks of hypotheses."""
+        from diag.core import ensemble, meter, solver
+
+        circ = self.circuit
+        need_ac = any(o.kind == "ac" for o in self.observables) or self.case.signal is not None
+        outs, hid = [], []
+        for i in range(0, len(specs), chunk):
+            if cancelled is not None and cancelled():
+                raise DiagError("ensemble build cancelled")
+            block = specs[i:i + chunk]
+            params = ensemble.draw_hypotheses(circ, block, K, self.seed)
+            with np.errstate(all="ignore"):  # a failed variant is data (NaN), not an error
+                dc = solver.solve_dc(circ, params)
+                ac = solver.solve_ac(circ, params, dc) if need_ac else None
+                x = meter.observe(circ, params, dc, ac, self.observables, self.case.meter)
+            ok = np.asarray(dc.ok, bool)
+            cols = [np.asarray(dc.v, float)]
+            if ac is not None:
+                cols.append(np.abs(np.asarray(ac.v)))
+            cols.append(np.asarray(dc.i_supply, float).reshape(len(ok), -1))
+            h = np.concatenate(cols, axis=1)
+            h[~ok] = np.nan
+            outs.append(x.reshape(len(block), K, -1))
+            hid.append(h.reshape(len(block), K, -1))
+            if progress is not None:
+                progress(min(1.0, (i + len(block)) / len(specs)))
+        names = [f"dc {n}" for n in circ.nodes]
+        if need_ac:
+            names += [f"ac {n}" for n in circ.nodes]
+        names += [f"current {s}" for s in circ.supplies]
+        return np.concatenate(outs), np.concatenate(hid), tuple(names)
 
     def build(self, progress: Callable[[float], None] | None = None,
               cancelled: Callable[[], bool] | None = None) -> Ensemble:
-        raise NotImplementedError
+        """Build (or load from the disk cache) the ensemble of every hypothesis."""
+        from diag import __version__
+        from diag.core import ensemble, infer
+
+        if self._ens is not None:
+            if progress:
+                progress(1.0)
+            return self._ens
+        path = ensemble.cache_file(self.case.hash, self.rules.hash, self.K, self.seed,
+                                   f"{CACHE_VERSION}-{__version__}")
+        ids = np.array([s.id for s in self.specs])
+        data = ensemble.load_cache(path)
+        from_cache = data is not None and np.array_equal(data.get("ids"), ids)
+        if not from_cache:
+            samples, hidden, names = self._solve(self.specs, self.K, progress, cancelled)
+            q = float(self.inf["group_quantile"])
+            band = np.moveaxis(infer.nan_quantile(hidden, [q, 1 - q], axis=1), 0, 1)
+            data = {"ids": ids, "samples": samples, "hidden_band": band,
+                    "hidden_names": np.array(names),
+                    "failed": np.sum(~np.all(np.isfinite(samples), axis=2), axis=1)}
+            try:
+                ensemble.save_cache(path, data)
+            except OSError:
+                pass  # a read-only cache folder only costs speed
+        elif progress:
+            progress(1.0)
+        a, b = self._noise()
+        noise = infer.Noise(a, b)
+        U = noise.u(data["samples"])
+        default_hp = float(self.inf["healthy_prior"])
+        pri = self._priors(default_hp, self.specs)
+        order = np.argsort(-pri, kind="stable")
+        grp = infer.groups(U, order, float(self.inf["group_quantile"]),
+                           float(self.inf["group_sigmas"]), float(self.inf["group_share"]))
+        # at least 256 reference readings so p-values resolve well below fit_alpha
+        R = max(256, self.K * int(self.inf["fit_draws"]))
+        hyps = tuple(Hypothesis(s.id, float(p), s.text, s.confirm, s.parts, s.origin)
+                     for s, p in zip(self.specs, pri))
+        self._ens = Ensemble(self.case.hash, self.rules.hash, self.observables, hyps,
+                             data["samples"], grp, a, b,
+                             ensemble.reference_draws(R, len(self.observables), self.seed),
+                             tuple(str(n) for n in data["hidden_names"]),
+                             data["hidden_band"], data["failed"], from_cache)
+        self._noise_obj = noise
+        self._U = U
+        self._blunder = infer.blunder_range(U)
+        self._spread = infer.spread(U)
+        return self._ens
+
+    # -- hypotheses ------------------------------------------------------------------------
+
+    def _spec(self, fault_id: str):
+        from diag.core import faults
+
+        for s in self.specs:
+            if s.id == fault_id:
+                return s
+        if fault_id in self._extra:
+            return self._extra[fault_id][0]
+        return faults.parse_fault_id(self.case, self.rules, fault_id)
+
+    def hypothesis(self, fault_id: str) -> Hypothesis:
+        """The hypothesis with this id (also a multiple fault not in the built set)."""
+        ens = self.ensemble
+        for h in ens.hypotheses:
+            if h.id == fault_id:
+                return h
+        s = self._spec(fault_id)
+        return Hypothesis(s.id, 0.0, s.text, s.confirm, s.parts, s.origin)
+
+    def _samples_of(self, specs) -> np.ndarray:
+        """Samples (n, K, M) of specs outside the built set, solved once and kept."""
+        todo = [s for s in specs if s.id not in self._extra]
+        if todo:
+            x, _, _ = self._solve(todo, self.K)
+            for s, xs in zip(todo, x):
+                self._extra[s.id] = (s, xs)
+        return np.stack([self._extra[s.id][1] for s in specs]) if specs else \
+            np.empty((0, self.K, len(self.observables)))
+
+    def bands(self, fault_id: str = "healthy") -> tuple[Band, ...]:
+        """About the 1st, 50th and 99th percentile of each observable's reading."""
+        ens = self.ensemble
+        ids = [h.id for h in ens.hypotheses]
+        if fault_id in ids:
+            x = ens.samples[ids.index(fault_id)]
+        else:
+            x = self._samples_of([self._spec(fault_id)])[0]
+        from diag.core import infer
+
+        q = infer.nan_quantile(x, [0.01, 0.5, 0.99], axis=0)
+        return tuple(Band(o, float(q[0, j]), float(q[1, j]), float(q[2, j]))
+                     for j, o in enumerate(self.observables))
+
+    def simulate(self, fault_id: str, rng: np.random.Generator) -> tuple[Reading, ...]:
+        """One unit with this fault drawn from rng (tolerances, fault values, meter
+        error and display resolution): a reading at every observable."""
+        from diag.core import ensemble, meter, solver
+
+        spec = self._spec(fault_id)
+        circ = self.circuit
+        params = ensemble.draw_unit(circ, spec, 1, rng)
+        need_ac = any(o.kind == "ac" for o in self.observables)
+        with np.errstate(all="ignore"):
+            dc = solver.solve_dc(circ, params)
+            ac = solver.solve_ac(circ, params, dc) if need_ac else None
+            x = meter.observe(circ, params, dc, ac, self.observables, self.case.meter)[0]
+        if not np.all(np.isfinite(x)):
+            why = next((w for w in dc.why if w), "the circuit did not solve")
+            raise DiagError(f"{fault_id}: {why}", file=self.case.path,
+                            hint="try another --seed")
+        out = []
+        for j, o in enumerate(self.observables):
+            v = float(meter.display(np.array([x[j]]), o.kind, self.case.meter, o.unit,
+                                    rng)[0])
+            out.append(Reading(o.point, o.kind, v))
+        return tuple(out)
+
+    # -- readings ----------------------------------------------------------------------------
+
+    def check_value(self, point: str, kind: str, text) -> float:
+        """Validate one typed reading exactly as a readings file row is validated."""
+        from diag.core import readings
+
+        if self._limits is None:
+            self._limits = readings.limits(self.case, self.rules)
+        return readings.check_value(self.case, point, kind, text, self._limits)
+
+    def _match(self, readings: Sequence[Reading]):
+        taken: dict[int, float] = {}
+        rejected = []
+        for r in readings:
+            j = self._obs_index.get((r.point, r.kind))
+            if j is None:
+                rejected.append(f"{r.point} {r.kind}: not an offered reading of this case")
+                continue
+            if r.value is None or not math.isfinite(float(r.value)):
+                rejected.append(f"{r.point} {r.kind}: no value")
+                continue
+            taken[j] = float(r.value)  # a later reading replaces an earlier one
+        idx = np.array(sorted(taken), dtype=int)
+        return idx, np.array([taken[j] for j in idx], dtype=float), rejected
+
+    def _score(self, U, specs, idx, u_read, healthy_prior):
+        from diag.core import infer
+
+        pri = self._priors(healthy_prior, specs)
+        with np.errstate(divide="ignore"):
+            lp = np.log(pri)
+        lo, W = self._blunder
+        sp = self._spread if U.shape[0] == self._spread.shape[0] else None
+        return infer.score(U, idx, u_read, lp, float(self.inf["blunder"]), W, sp), pri
+
+    def _fit(self, U, sc, idx, u_read) -> float:
+        from diag.core import infer
+
+        ens = self.ensemble
+        lo, W = self._blunder
+        best = 0.0
+        sp = self._spread if U.shape[0] == self._spread.shape[0] else None
+        for h in np.argsort(-sc.posterior)[:int(self.inf["fit_test_top"])]:
+            p = infer.fit_pvalue(U[h], idx, u_read, float(self.inf["blunder"]), lo, W,
+                                 ens.ref["ref_k"], ens.ref["ref_z"], ens.ref["ref_b"],
+                                 ens.ref["ref_w"], None if sp is None else sp[h])
+            best = max(best, p)
+        return best
 
     def diagnose(self, readings: Sequence[Reading],
                  healthy_prior: float | None = None) -> Diagnosis:
-        raise NotImplementedError
+        """Rank every hypothesis for these readings, test the fit, advise the next."""
+        from diag.core import faults, infer, notes
+
+        ens = self.ensemble
+        hp = float(self.inf["healthy_prior"]) if healthy_prior is None else float(healthy_prior)
+        if not 0.0 <= hp < 1.0:
+            raise DiagError(f"healthy prior {hp} must lie in [0, 1)",
+                            hint="e.g. --healthy-prior 0.02")
+        idx, vals, rejected = self._match(readings)
+        noise = self._noise_obj
+        u_read = noise.u(vals, idx) if len(idx) else np.empty(0)
+        specs = list(self.specs)
+        U = self._U
+        sc, pri = self._score(U, specs, idx, u_read, hp)
+        pval = self._fit(U, sc, idx, u_read)
+        alpha = float(self.inf["fit_alpha"])
+        pairs_tried = False
+        group = ens.group
+        if pval < alpha and len(idx):
+            order = np.argsort(-sc.posterior)
+            leaders = [specs[h] for h in order if specs[h].origin == "single"]
+            leaders = leaders[:int(self.inf["pair_top"])]
+            pairs = [p for p in faults.pair_specs(self.rules, leaders, self._pair_scale)
+                     if p.id not in {s.id for s in specs}]
+            if pairs:
+                pairs_tried = True
+                Up = noise.u(self._samples_of(pairs))
+                U = np.concatenate([U, Up])
+                specs = specs + pairs
+                sc, pri = self._score(U, specs, idx, u_read, hp)
+                pval = self._fit(U, sc, idx, u_read)
+                order_p = np.argsort(-pri, kind="stable")
+                group = infer.groups(U, order_p, float(self.inf["group_quantile"]),
+                                     float(self.inf["group_sigmas"]),
+                                     float(self.inf["group_share"]))
+        fits = pval >= alpha
+        post = sc.posterior
+        order = np.argsort(-post, kind="stable")
+        renum: dict[int, int] = {}
+        suspects = []
+        for h in order:
+            g = renum.setdefault(int(group[h]), len(renum))
+            suspects.append(Suspect(specs[h].id, float(post[h]), g, specs[h].text))
+        nxt = self._advise(U, specs, sc, idx, order, group)
+        acc = self._accuracy_fn()
+        nts = tuple(notes.bench_notes(self.case, self.rules, [
+            Reading(self.observables[j].point, self.observables[j].kind, v)
+            for j, v in zip(idx, vals)], acc))
+        fit_text = self._fit_text(fits, pval, len(idx), specs[order[0]], pairs_tried)
+        confirm = {specs[h].id: specs[h].confirm for h in order[:5]}
+        return Diagnosis(len(idx), bool(fits), tuple(suspects), tuple(nxt), nts, fit_text,
+                         tuple(rejected), {"p_value": pval, "pairs_tried": pairs_tried,
+                                           "confirm": confirm})
+
+    def _shown(self, v: float, o: Observable) -> str:
+        """A predicted reading as the meter would round it (no error drawn)."""
+        from diag.core import meter
+        from diag.core.values import format_value
+
+        q = float(meter.resolution(np.array([v]), self.case.meter, o.unit)[0])
+        return format_value(round(v / q) * q + 0.0, o.unit)
+
+    def _accuracy_fn(self):
+        from diag.core import meter
+
+        return lambda v: float(meter.accuracy(v, "dc", self.case.meter, "V"))
+
+    def _fit_text(self, fits, pval, n, best, pairs_tried) -> str:
+        if n == 0:
+            return "No readings yet: the ranking is the prior (how often each part fails)."
+        if fits:
+            return (f"The leading suspects explain the readings (goodness of fit p = "
+                    f"{pval:.2f}).")
+        tried = " Pairs of faults among the leading suspects were tried too." if pairs_tried \
+            else ""
+        return ("No modelled fault explains these readings (goodness of fit p = "
+                f"{pval:.3f}).{tried} The fault is likely outside the model: check for a "
+                "wrong part fitted, a solder bridge between neighbouring pads, a transistor "
+                "fitted the wrong way round, or a second fault; re-take any reading that "
+                "looks odd, and inspect the board around the parts the closest suspect "
+                f"names ({', '.join(best.parts) or 'none'}).")
+
+    def _advise(self, U, specs, sc, idx, order, group) -> list[NextReading]:
+        from diag.core import advise
+
+        w = advise.unit_weights(sc.loglik_k, sc.posterior)
+        untaken = np.array([j for j in range(len(self.observables)) if j not in set(idx)],
+                           dtype=int)
+        if len(untaken) == 0:
+            return []
+        bits = advise.gains(U, w, untaken)
+        out = []
+        samples = [self.ensemble.samples]
+        if U.shape[0] > self.ensemble.samples.shape[0]:
+            samples.append(self._noise_obj.y(U[self.ensemble.samples.shape[0]:]))
+        X = np.concatenate(samples) if len(samples) > 1 else samples[0]
+        lead, seen = [], set()  # leading suspects of distinct groups
+        for h in order:
+            if int(group[h]) not in seen:
+                seen.add(int(group[h]))
+                lead.append(h)
+            if len(lead) == 3:
+                break
+        for j, b in zip(untaken, bits):
+            if b < 1e-3:
+                continue
+            o = self.observables[j]
+            parts = []
+            for h in lead:
+                xs = X[h, :, j]
+                xs = xs[np.isfinite(xs)]
+                if len(xs):
+                    parts.append(f"{specs[h].id}: {self._shown(float(np.median(xs)), o)}")
+            out.append((b / o.cost, NextReading(o.point, o.kind, float(b), "; ".join(parts))))
+        out.sort(key=lambda t: -t[0])
+        return [n for _, n in out]
+
+    # -- groups ----------------------------------------------------------------------------
+
+    def splitters(self) -> dict[int, str]:
+        """For each group of several hypotheses: the kind of reading that would split it
+        (a DC or AC reading at a node no point offers, a supply current, or a
+        powered-off check), in words."""
+        from diag.core import infer
+
+        ens = self.ensemble
+        out = {}
+        names = ens.hidden_names
+        band = ens.hidden_band
+        offered = set()
+        for pt in self.case.points:
+            if pt.supply:
+                offered.add(f"current {pt.supply}")
+            elif pt.minus in (None, self.case.ground):
+                offered.update(f"{k} {pt.node}" for k in pt.reads)
+        sig = float(self.inf["group_sigmas"])
+        me = self.inf["model_error"]
+        for g in sorted(set(int(x) for x in ens.group)):
+            mem = [h for h in range(len(ens.hypotheses)) if ens.group[h] == g]
+            if len(mem) < 2:
+                continue
+            found = []
+            for x, name in enumerate(names):
+                if name in offered:
+                    continue
+                lo, hi = band[mem, 0, x], band[mem, 1, x]
+                kind = name.split()[0]
+                a, b = {"dc": (me["dc_rel"], me["dc_v"]), "ac": (me["ac_rel"], me["ac_v"]),
+                        "current": (me["a_rel"], me["a_abs"])}[kind]
+                nz = infer.Noise(np.array([a]), np.array([b]))
+                ul, uh = nz.u(lo), nz.u(hi)
+                if not (np.all(np.isfinite(ul)) and np.all(np.isfinite(uh))):
+                    continue
+                if (ul[:, None] - uh[None, :] > 2 * sig).any():
+                    found.append(name)
+            if any(n.startswith("ac") for n in found):
+                out[g] = f"an AC reading (signal applied) at node {_first(found, 'ac')}"
+            elif any(n.startswith("current") for n in found):
+                out[g] = f"the supply current ({_first(found, 'current')})"
+            elif found:
+                out[g] = f"a DC reading at node {_first(found, 'dc')} (no test point there yet)"
+            else:
+                out[g] = "a powered-off check: " + " / ".join(
+                    f"{ens.hypotheses[h].id}: {ens.hypotheses[h].confirm}" for h in mem[:3]
+                    if ens.hypotheses[h].confirm)
+        return out
+
+
+def _first(names, kind):
+    return next(n.split(" ", 1)[1] for n in names if n.startswith(kind))

@@ -58,9 +58,10 @@ _Loader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _constru
 
 def load_yaml_text(text: str, file: str | None = None) -> Any:
     """Parse YAML text safely; raise DiagError with file and line on any syntax problem."""
-    loader = _Loader(text)
-    loader._diag_file = file
+    loader = None
     try:
+        loader = _Loader(text)
+        loader._diag_file = file
         return loader.get_single_data()
     except DiagError:
         raise
@@ -72,7 +73,8 @@ def load_yaml_text(text: str, file: str | None = None) -> Any:
     except yaml.YAMLError as exc:
         raise DiagError(f"YAML syntax: {exc}", file=file) from None
     finally:
-        loader.dispose()
+        if loader is not None:
+            loader.dispose()
 
 
 def load_yaml_file(path: str | Path) -> Any:

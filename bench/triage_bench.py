@@ -1,0 +1,110 @@
+"""Triage speed and memory: N units of a bundled case, triaged after the ensemble is cached.
+
+    python bench/triage_bench.py [--case cases/mic-preamp.yaml] [--units 10000] [--seed 1]
+
+Units are drawn with Engine.simulate (faults by the priors, 10 % healthy, one unit in
+twenty with a reading left out); drawing them is not timed. Prints a Markdown table:
+build from cache, triage time, units per second, peak resident memory. Targets (issue 5):
+10 000 units in < 10 s after the ensemble is cached, memory < 1 GiB.
+"""
+
+from __future__ import annotations
+
+import argparse
+import resource
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from diag.core.case import load_case  # noqa: E402
+from diag.core.drill import pick_fault  # noqa: E402
+from diag.core.engine import Engine  # noqa: E402
+from diag.core.errors import DiagError  # noqa: E402
+from diag.core.rules import load_rules  # noqa: E402
+from diag.core.triage import triage  # noqa: E402
+
+
+def peak_rss_mib() -> float:
+    """Peak resident set size of this process, MiB (Linux reports KiB)."""
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+
+
+def make_units(eng: Engine, n: int, seed: int) -> dict[str, list]:
+    rng = np.random.default_rng(seed)
+    units = {}
+    failed = 0
+    while len(units) < n:
+        fault = "healthy" if rng.random() < 0.1 else pick_fault(eng, rng)
+        try:
+            rs = list(eng.simulate(fault, rng))
+        except DiagError:  # a drawn unit the solver could not settle: draw another
+            failed += 1
+            continue
+        i = len(units)
+        if rng.random() < 0.05:
+            rs.pop(int(rng.integers(len(rs))))
+        units[f"U{i:05d}"] = rs
+    if failed:
+        print(f"({failed} drawn units did not solve and were drawn again)")
+    return units
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--case", default=str(ROOT / "cases" / "mic-preamp.yaml"))
+    ap.add_argument("--units", type=int, default=10000)
+    ap.add_argument("--seed", type=int, default=1)
+    ap.add_argument("--check", type=int, default=200,
+                    help="units compared against Engine.diagnose one at a time")
+    args = ap.parse_args()
+
+    rules = load_rules()
+    case = load_case(args.case)
+    Engine(case, rules).build()                      # make sure the cache exists
+    t0 = time.perf_counter()
+    eng = Engine(case, rules)
+    eng.build()
+    t_cached = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    units = make_units(eng, args.units, args.seed)
+    t_make = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    res = triage(eng, units)
+    t_triage = time.perf_counter() - t0
+    rss = peak_rss_mib()
+
+    names = list(units)[: args.check]
+    t0 = time.perf_counter()
+    one = [eng.diagnose(units[n]) for n in names]
+    t_one = (time.perf_counter() - t0) / max(len(names), 1)
+    worst = 0.0
+    for n, d in zip(names, one, strict=True):
+        got = {s.fault: s.p for s in res.unit(n).diagnosis.suspects}
+        worst = max(worst, max(abs(got[s.fault] - s.p) for s in d.suspects))
+
+    print(f"case `{Path(args.case).name}`, {len(case.observables)} observables, "
+          f"{len(eng.ensemble.hypotheses)} hypotheses, K = {eng.ensemble.samples.shape[1]}\n")
+    print("| measure | value | target |")
+    print("|---|---:|---|")
+    print(f"| ensemble from cache | {t_cached:.3f} s | |")
+    print(f"| drawing {args.units} units (not timed in triage) | {t_make:.1f} s | |")
+    print(f"| triage of {args.units} units | {t_triage:.2f} s | < 10 s |")
+    print(f"| units per second | {args.units / t_triage:,.0f} | |")
+    print(f"| diagnose one unit at a time (mean of {len(names)}) | {1e3 * t_one:.1f} ms | |")
+    print(f"| max abs p difference, batch vs one at a time | {worst:.2e} | ~0 |")
+    print(f"| peak resident memory | {rss:.0f} MiB | < 1024 MiB |")
+    s = res.summary
+    print(f"\nsummary: {s['faulty']} faulty, {len(s['healthy'])} healthy, "
+          f"{len(s['no_fit'])} no fit, {len(s['incomplete'])} incomplete; "
+          f"top faults: {', '.join(r['fault'] + ' ' + str(r['units']) for r in s['by_fault'][:5])}")
+
+
+if __name__ == "__main__":
+    main()

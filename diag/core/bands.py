@@ -1,0 +1,134 @@
+"""Healthy reading bands of a case: the core of `diag check`.
+
+`healthy_bands(case, rules, K, seed)` solves the case with nominal part values (node
+voltages without a meter, meter readings with its loading, transistor regions), then K
+healthy units drawn within tolerance (ensemble.draw_healthy) and gives, per observable,
+the band from about the 1st to the 99th percentile of the meter reading (loading included,
+meter error excluded). Draws that did not converge are listed with the solver's reason and
+left out of the bands.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from diag.core.case import Case
+
+BAND_PERCENTILES = (1.0, 99.0)
+MAINS_VOLTS = 30.0   # a supply above this gets the mains/high-voltage cautions (common
+                     # practice, no source: the usual extra-low-voltage working limit)
+
+
+@dataclass(frozen=True)
+class PointBand:
+    """Meter reading at one observable: nominal part values, and the healthy band
+    (volts, or amperes at a supply point)."""
+
+    point: str
+    kind: str
+    nominal: float
+    low: float
+    high: float
+    unit: str = "V"
+
+    def __iter__(self):  # unpacks as (point, kind, nominal, low, high)
+        return iter((self.point, self.kind, self.nominal, self.low, self.high))
+
+
+@dataclass(frozen=True)
+class CheckResult:
+    """What `diag check` reports. nodes: node -> DC volts to ground (nominal, no meter);
+    points: one PointBand per observable in case order; regions: transistor ref -> region
+    word (nominal); failed: (draw index, reason) of draws that did not converge;
+    cautions: ids in rules/cautions.yaml that apply to the case; K, seed: the draws."""
+
+    case: Case
+    nodes: dict[str, float]
+    points: tuple[PointBand, ...]
+    regions: dict[str, str]
+    failed: tuple[tuple[int, str], ...]
+    cautions: tuple[str, ...] = ()
+    K: int = 0
+    seed: int = 0
+    nominal_ok: bool = True
+    nominal_why: str | None = None
+    extra: dict = field(default_factory=dict)
+
+    def to_json(self, case_path: str | None = None) -> dict[str, Any]:
+        """SPEC section 6 object (plus the extra keys regions, failed, draws)."""
+        def num(x: float) -> float | None:
+            return float(x) if np.isfinite(x) else None
+
+        return {
+            "case": case_path if case_path is not None else self.case.path,
+            "nodes": {n: num(v) for n, v in self.nodes.items()},
+            "points": [{"point": p.point, "kind": p.kind, "nominal": num(p.nominal),
+                        "low": num(p.low), "high": num(p.high), "unit": p.unit}
+                       for p in self.points],
+            "regions": dict(self.regions),
+            "failed": [{"draw": k, "why": why} for k, why in self.failed],
+            "draws": self.K,
+            "seed": self.seed,
+        }
+
+
+def case_cautions(case: Case) -> tuple[str, ...]:
+    """Caution ids (rules/cautions.yaml) the case calls for: `mains` and `meter` when a
+    supply is above MAINS_VOLTS or any note or the about text mentions mains."""
+    texts = [case.about or ""] + [str(p.fields.get("note", "")) for p in case.parts]
+    mains = any("mains" in t.lower() for t in texts)
+    high = any(p.kind == "supply" and abs(float(p.value or 0.0)) > MAINS_VOLTS
+               for p in case.parts)
+    out = []
+    if mains or high:
+        out += ["mains", "meter"]
+    if high:
+        out.append("capacitors")
+    return tuple(out)
+
+
+def healthy_bands(case: Case, rules: Any = None, K: int = 400, seed: int = 0) -> CheckResult:
+    """Nominal operating point and healthy bands of `case` over K tolerance draws.
+
+    rules: a Rules (default: the bundled rules). The draws come from
+    ensemble.draw_healthy with numpy.random.default_rng(seed); the band of each observable
+    is the 1st..99th percentile of the converged draws' meter readings (volts or
+    amperes). Raises DiagError through the loader/compiler for a bad case; a nominal
+    solution that does not converge is reported in `nominal_ok` / `nominal_why`.
+    """
+    from diag.core import ensemble, meter, netlist, solver
+    from diag.core.rules import load_rules
+
+    rules = rules if rules is not None else load_rules()
+    circuit = netlist.compile_case(case, rules)
+    obs = case.observables
+    has_ac = any(o.kind == "ac" for o in obs)
+
+    dc0 = solver.solve_dc(circuit, {})
+    ac0 = solver.solve_ac(circuit, {}, dc0) if has_ac else None
+    nom = meter.observe(circuit, {}, dc0, ac0, obs, case.meter)[0]
+    nodes = {n: float(dc0.v[0, circuit.node_index[n]]) for n in case.nodes}
+    regions = {ref: str(r[0]) for ref, r in solver.regions(circuit, {}, dc0).items()}
+
+    low = np.full(len(obs), np.nan)
+    high = np.full(len(obs), np.nan)
+    failed: list[tuple[int, str]] = []
+    if K > 0:
+        rng = np.random.default_rng(seed)
+        params = ensemble.draw_healthy(circuit, K, rng)
+        dc = solver.solve_dc(circuit, params)
+        ac = solver.solve_ac(circuit, params, dc) if has_ac else None
+        readings = meter.observe(circuit, params, dc, ac, obs, case.meter)
+        ok = np.asarray(dc.ok, dtype=bool) & np.all(np.isfinite(readings), axis=1)
+        failed = [(int(k), str(dc.why[k] or "reading not finite"))
+                  for k in np.flatnonzero(~ok)]
+        if ok.any():
+            low, high = np.percentile(readings[ok], BAND_PERCENTILES, axis=0)
+    points = tuple(PointBand(o.point, o.kind, float(nom[m]), float(low[m]), float(high[m]),
+                             o.unit) for m, o in enumerate(obs))
+    return CheckResult(case=case, nodes=nodes, points=points, regions=regions,
+                       failed=tuple(failed), cautions=case_cautions(case), K=K, seed=seed,
+                       nominal_ok=bool(dc0.ok[0]), nominal_why=dc0.why[0])

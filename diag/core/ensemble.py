@@ -1,0 +1,140 @@
+"""The only place random values are drawn, always from a numpy Generator it is given.
+
+`draw_healthy(circuit, K, rng)` draws K healthy units within the part tolerances of a
+compiled Circuit (its `spreads`). Fault draws are added below by the faults engineer.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from diag.core.netlist import Circuit
+
+
+def draw_healthy(circuit: Circuit, K: int, rng: np.random.Generator) -> dict[str, np.ndarray]:
+    """Parameters of K healthy units: dict "<ref>.<name>" -> (K,) float64 array.
+
+    Per spread (see parts.base.Spread): "uniform" multiplies the nominal by 1 + U(a, b)
+    (resistors uniform inside tol, default 5 %; capacitors per tol, electrolytics -20/+20 %
+    by default; supplies within tol); "loguniform" draws the first key's value
+    log-uniformly in [a, b] (hFE in the part's hfe range; electrolytic leakage resistance
+    between the leakage-limit value and 100 times it) and scales the other keys with it;
+    "lognormal" multiplies by exp(N(0, a)) (saturation currents). Keys without a spread
+    are left out (nominal). Draws follow circuit.spreads order, so a seed gives the same
+    units for the same circuit.
+    """
+    out: dict[str, np.ndarray] = {}
+    for s in circuit.spreads:
+        nom0 = circuit.nominal[s.keys[0]]
+        if s.dist == "uniform":
+            f = 1.0 + rng.uniform(s.a, s.b, K)
+        elif s.dist == "loguniform":
+            f = np.exp(rng.uniform(np.log(s.a), np.log(s.b), K)) / nom0
+        elif s.dist == "lognormal":
+            f = np.exp(rng.normal(0.0, s.a, K))
+        else:
+            raise ValueError(f"unknown spread {s.dist!r} for {s.keys}")
+        for k in s.keys:
+            out[k] = circuit.nominal[k] * f
+    return out
+
+
+# ---------------------------------------------------------------------------------------
+# Fault hypotheses and the ensemble cache (used by diag/core/engine.py; written by the
+# faults engineer). faults.py describes each hypothesis's parameter changes as data; the
+# values are drawn here, from a Generator seeded per hypothesis.
+
+import os  # noqa: E402
+import zlib  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+from diag.core.errors import DiagError  # noqa: E402
+
+def hypothesis_rng(seed: int, fault_id: str) -> np.random.Generator:
+    """The Generator for one hypothesis's draws: seeded by (seed, crc32 of its id), so a
+    hypothesis draws the same units whatever else is built with it."""
+    return np.random.default_rng([int(seed), zlib.crc32(fault_id.encode("utf-8"))])
+
+
+def _draw_range(lo: float, hi: float, log: bool, n: int, rng: np.random.Generator):
+    if lo == hi:
+        return np.full(n, float(lo))
+    if log:
+        return np.exp(rng.uniform(np.log(lo), np.log(hi), size=n))
+    return rng.uniform(lo, hi, size=n)
+
+
+def apply_changes(circuit, params: dict, changes, n: int, rng: np.random.Generator) -> dict:
+    """A copy of `params` (B = n) with a fault's changes applied: "set" gives the value,
+    "abs" draws it in [lo, hi], "times" multiplies the drawn healthy value by a factor
+    drawn in [lo, hi] (log-uniformly when `log`)."""
+    out = dict(params)
+    for ch in changes:
+        if ch.key not in circuit.nominal:
+            raise DiagError(f"fault changes unknown parameter {ch.key!r}",
+                            where=ch.key, hint="parameter names per DEVELOPERS.md; check "
+                            "rules/faults.yaml")
+        if ch.how == "set":
+            val = np.full(n, ch.lo)
+        else:
+            x = _draw_range(ch.lo, ch.hi, ch.log, n, rng)
+            if ch.how == "times":
+                base = out.get(ch.key)
+                base = np.full(n, float(circuit.nominal[ch.key])) if base is None else base
+                val = np.asarray(base, dtype=float) * x
+            else:
+                val = x
+        out[ch.key] = val
+    return out
+
+
+def draw_unit(circuit, spec, n: int, rng: np.random.Generator) -> dict:
+    """n units (B = n) with one hypothesis's fault: tolerance draws then fault draws."""
+    params = draw_healthy(circuit, n, rng)
+    return apply_changes(circuit, params, spec.changes, n, rng)
+
+
+def draw_hypotheses(circuit, specs, K: int, seed: int) -> dict:
+    """K units of every hypothesis, stacked hypothesis-major (B = len(specs) * K); every
+    key present for every hypothesis (nominal where one leaves it alone)."""
+    blocks = [draw_unit(circuit, s, K, hypothesis_rng(seed, s.id)) for s in specs]
+    keys = sorted({k for b in blocks for k in b})
+    out = {}
+    for k in keys:
+        nom = float(circuit.nominal[k]) if k in circuit.nominal else np.nan
+        out[k] = np.concatenate([np.broadcast_to(np.asarray(b[k], dtype=float), (K,))
+                                 if k in b else np.full(K, nom) for b in blocks])
+    return out
+
+
+def reference_draws(R: int, M: int, seed: int) -> dict[str, np.ndarray]:
+    """Random numbers of the goodness-of-fit reference (infer.fit_pvalue): unit index k
+    (R,), standard-normal noise z (R, M), blunder decision b and position w, uniform on
+    [0, 1) (R, M)."""
+    rng = np.random.default_rng([int(seed), 0xF17])
+    return {"ref_k": np.arange(R) % max(R, 1), "ref_z": rng.standard_normal((R, M)),
+            "ref_b": rng.uniform(size=(R, M)), "ref_w": rng.uniform(size=(R, M))}
+
+
+def cache_file(case_hash: str, rules_hash: str, K: int, seed: int, version: str) -> Path:
+    """Ensemble cache file for (case, rules, K, seed, code version) in paths.cache_dir()."""
+    from diag.core.paths import cache_dir
+
+    return cache_dir() / f"ens-{case_hash}-{rules_hash}-K{K}-s{seed}-{version}.npz"
+
+
+def save_cache(path: Path, arrays: dict) -> None:
+    """Write arrays to an npz file atomically (a partial file is never read)."""
+    tmp = path.with_name(path.name + f".{os.getpid()}.tmp")
+    with open(tmp, "wb") as fh:
+        np.savez(fh, **arrays)
+    os.replace(tmp, path)
+
+
+def load_cache(path: Path) -> dict | None:
+    """Arrays of a cache file, or None when it is missing or unreadable."""
+    try:
+        with np.load(path, allow_pickle=False) as z:
+            return {k: z[k] for k in z.files}
+    except (OSError, ValueError, KeyError, EOFError):
+        return None

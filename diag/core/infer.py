@@ -1,0 +1,242 @@
+"""Likelihood, posterior, goodness of fit and groups over an ensemble of drawn units.
+
+Every reading is compared in a noise-scaled coordinate: with the reading's standard
+deviation sigma(y) = sqrt(b^2 + (a*y)^2) (meter error plus model imperfection; a relative,
+b absolute, per observable), u(y) = asinh(a*y/b)/a has unit noise everywhere (du/dy =
+1/sigma(y)), so volts near 0 and volts near the rail weigh alike. The Jacobian du/dy is
+the same for every hypothesis and cancels in the posterior.
+
+Likelihood of hypothesis h (samples U[h, k, j], K drawn units; S = readings taken):
+
+    p(u_S | h) = mean_k  prod_{j in S} [ (1-eps) N(u_j; U_hkj, s_hj^2) + eps / W_j ]
+
+a kernel mixture over the drawn units (so correlations between points are kept), kernel
+width s_hj^2 = 1 + bw_hj^2 (unit noise plus a Scott's-rule bandwidth over the units'
+spread), a blunder probability eps per reading spread uniformly over the observable's
+range W_j. Only taken readings count.
+
+Goodness of fit (`fit_pvalue`): the predictive p-value of the statistic log p(u_S | h)
+against readings simulated from h's own units with unit noise and blunders (leave-one-out:
+the simulating unit is left out of the kernel), so "does not fit" has a false-alarm rate of
+alpha whenever the model holds, on any case.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+
+
+@dataclass(frozen=True)
+class Noise:
+    """Per-observable reading noise: sigma(y) = sqrt(b^2 + (a y)^2); a (M,) relative,
+    b (M,) in volts or amperes."""
+
+    a: np.ndarray
+    b: np.ndarray
+
+    def u(self, y: np.ndarray, j: np.ndarray | slice | None = None) -> np.ndarray:
+        """Noise-scaled coordinate of values y (..., M) or of y at observables j."""
+        a = self.a if j is None else self.a[j]
+        b = self.b if j is None else self.b[j]
+        return np.arcsinh(a * np.asarray(y, dtype=float) / b) / a
+
+    def y(self, u: np.ndarray, j=None) -> np.ndarray:
+        """Inverse of `u`."""
+        a = self.a if j is None else self.a[j]
+        b = self.b if j is None else self.b[j]
+        return np.sinh(a * np.asarray(u, dtype=float)) * b / a
+
+
+@dataclass(frozen=True)
+class Scored:
+    """Result of scoring the readings: log-likelihood per hypothesis (H,), per unit
+    (H, K; -inf for failed units), posterior (H,)."""
+
+    loglik: np.ndarray
+    loglik_k: np.ndarray
+    posterior: np.ndarray
+
+
+def blunder_range(U: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Lower edge and width (M,) of the blunder range in u units: the span of every
+    hypothesis's units plus ten noise widths each side."""
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        lo = np.nanmin(U, axis=(0, 1))
+        hi = np.nanmax(U, axis=(0, 1))
+    ok = np.isfinite(hi - lo)
+    return np.where(ok, lo, 0.0) - 10.0, np.where(ok, hi - lo, 0.0) + 20.0
+
+
+def nan_quantile(x: np.ndarray, qs, axis: int = 1) -> np.ndarray:
+    """Quantiles (len(qs), ...) along `axis`, NaN ignored (linear interpolation, as
+    numpy's default); NaN where a slice has no finite value. Much faster than
+    np.nanquantile on batched arrays."""
+    xs = np.sort(np.moveaxis(np.asarray(x, float), axis, -1), axis=-1)  # NaN sort last
+    n = np.sum(np.isfinite(xs), axis=-1)
+    out = []
+    for q in np.atleast_1d(qs):
+        pos = q * np.maximum(n - 1, 0)
+        lo = np.floor(pos).astype(int)
+        hi = np.minimum(lo + 1, np.maximum(n - 1, 0))
+        f = pos - lo
+        a = np.take_along_axis(xs, lo[..., None], -1)[..., 0]
+        b = np.take_along_axis(xs, hi[..., None], -1)[..., 0]
+        with np.errstate(invalid="ignore"):
+            v = a + f * (b - a)
+        out.append(np.where(n > 0, np.where(f > 0, v, a), np.nan))
+    return np.stack(out)
+
+
+def spread(U: np.ndarray) -> np.ndarray:
+    """Robust spread (H, M) of each hypothesis's units: IQR / 1.349, u units."""
+    q25, q75 = nan_quantile(U, [0.25, 0.75], axis=1)
+    with np.errstate(invalid="ignore"):
+        return np.nan_to_num(q75 - q25) / 1.349
+
+
+def bandwidth(U: np.ndarray, d: int, spread_: np.ndarray | None = None) -> np.ndarray:
+    """Scott's-rule kernel bandwidth (H, M): K^(-1/(d+4)) times the robust spread of each
+    hypothesis's units (d = readings taken), u units."""
+    K = np.sum(np.isfinite(U), axis=1).clip(min=1)
+    sp = spread(U) if spread_ is None else spread_
+    return sp * K ** (-1.0 / (max(d, 1) + 4))
+
+
+def _log_kernel(U_S: np.ndarray, u_S: np.ndarray, s: np.ndarray, eps: float,
+                W_S: np.ndarray) -> np.ndarray:
+    """Per-unit log-likelihood (..., K) of readings u_S (..., d) under units U_S
+    (..., K, d) with kernel widths s (..., d)."""
+    with np.errstate(invalid="ignore", over="ignore", under="ignore"):
+        z = (u_S[..., None, :] - U_S) / s[..., None, :]
+        peak = (1.0 - eps) / (s * math.sqrt(2.0 * math.pi))
+        mix = peak[..., None, :] * np.exp(-0.5 * z * z) + eps / W_S
+        out = np.sum(np.log(mix), axis=-1)
+    return np.where(np.isnan(out), -np.inf, out)
+
+
+def _logmeanexp(x: np.ndarray, n: np.ndarray) -> np.ndarray:
+    m = np.max(x, axis=-1)
+    safe = np.where(np.isfinite(m), m, 0.0)
+    with np.errstate(divide="ignore"):
+        s = np.log(np.sum(np.exp(x - safe[..., None]), axis=-1))
+    return np.where(n > 0, safe + s - np.log(np.maximum(n, 1)), -np.inf)
+
+
+def score(U: np.ndarray, taken: np.ndarray, u_read: np.ndarray, log_prior: np.ndarray,
+          eps: float, W: np.ndarray, spread_: np.ndarray | None = None) -> Scored:
+    """Score readings. U (H, K, M) units in u coordinates; `taken` (d,) observable
+    indices; u_read (d,) the readings in u coordinates; log_prior (H,); W (M,) blunder
+    widths; spread_ (H, M) precomputed `spread(U)` (optional)."""
+    H, K, _ = U.shape
+    valid = np.all(np.isfinite(U), axis=2)
+    n = valid.sum(axis=1)
+    if len(taken) == 0:
+        llk = np.where(valid, 0.0, -np.inf)
+    else:
+        U_S = U[:, :, taken]
+        s = np.sqrt(1.0 + bandwidth(U, len(taken), spread_)[:, taken] ** 2)
+        llk = _log_kernel(U_S, u_read, s, eps, W[taken])
+        llk = np.where(valid, llk, -np.inf)
+    ll = _logmeanexp(llk, n)
+    lp = log_prior + ll
+    m = np.max(lp[np.isfinite(lp)]) if np.isfinite(lp).any() else 0.0
+    post = np.exp(lp - m)
+    post = np.where(np.isfinite(post), post, 0.0)
+    tot = post.sum()
+    post = post / tot if tot > 0 else np.full(H, 1.0 / H)
+    return Scored(ll, llk, post)
+
+
+def fit_pvalue(U_h: np.ndarray, taken: np.ndarray, u_read: np.ndarray, eps: float,
+               W_lo: np.ndarray, W: np.ndarray, ref_k: np.ndarray, ref_z: np.ndarray,
+               ref_b: np.ndarray, ref_w: np.ndarray, spread_h: np.ndarray | None = None
+               ) -> float:
+    """Predictive p-value of readings under one hypothesis (units U_h (K, M)): the share
+    of simulated readings whose log-likelihood is at or below the observed one.
+
+    Reference readings r use unit ref_k[r] plus standard-normal noise ref_z[r], and a
+    blunder (uniform over W, position ref_w[r]) where ref_b[r] < eps; each is scored
+    against the other units (leave one out). ref_* (R, M) are drawn by ensemble.py;
+    W_lo, W the blunder range (see `blunder_range`); spread_h (M,) optional `spread`."""
+    if len(taken) == 0:
+        return 1.0
+    valid = np.all(np.isfinite(U_h), axis=1)
+    if valid.sum() < 3:
+        return 0.0
+    U = U_h[valid][:, taken]
+    K = U.shape[0]
+    sp = None if spread_h is None else spread_h[None]
+    s = np.sqrt(1.0 + bandwidth(U_h[valid][None], len(taken), sp)[0, taken] ** 2)
+    W_S = W[taken]
+    obs = _logmeanexp(_log_kernel(U, u_read, s, eps, W_S), np.array(K))
+    k = ref_k % K
+    sim = U[k] + ref_z[:, taken]
+    blunder = W_lo[taken] + ref_w[:, taken] * W_S
+    sim = np.where(ref_b[:, taken] < eps, blunder, sim)
+    llk = _log_kernel(U[None, :, :], sim, s[None, :], eps, W_S)  # (R, K)
+    llk[np.arange(len(k)), k] = -np.inf  # leave the simulating unit out
+    ref = _logmeanexp(llk, np.array(K - 1))
+    return float((np.sum(ref <= obs) + 1) / (len(ref) + 1))
+
+
+def band_q(U: np.ndarray, q: float) -> tuple[np.ndarray, np.ndarray]:
+    """Lower and upper q-quantile (H, M) of each hypothesis's units (NaN ignored)."""
+    lo, hi = nan_quantile(U, [q, 1.0 - q], axis=1)
+    return lo, hi
+
+
+def apart(U: np.ndarray, q: float, sigmas: float, share: float) -> np.ndarray:
+    """(H, H) bool: hypotheses i and j can be told apart by the offered readings.
+
+    j's region is the box of its central q..1-q band at every observable, widened by
+    `sigmas` noise widths each side. i and j are apart when fewer than `share` of i's
+    units fall inside j's region and fewer than `share` of j's inside i's: then the
+    offered readings usually tell which it is. When most units of one (say a mild
+    R1:high, or a leak whose range lies inside another's) read like the other, no
+    reading can be relied on to split them. Failed hypotheses are apart from all."""
+    lo, hi = band_q(U, q)
+    lo, hi = lo - sigmas, hi + sigmas
+    H = U.shape[0]
+    inside = np.zeros((H, H))
+    ok = np.isfinite(U).all(axis=2)  # (H, K)
+    n = ok.sum(axis=1)
+    for i in range(H):
+        ui = U[i][ok[i]]  # (k, M)
+        if len(ui) == 0:
+            continue
+        within = (ui[None] >= lo[:, None, :]) & (ui[None] <= hi[:, None, :])  # (H, k, M)
+        inside[i] = within.all(axis=2).mean(axis=1)
+    bad = n == 0
+    out = (inside < share) & (inside.T < share)
+    out[bad, :] = True
+    out[:, bad] = True
+    np.fill_diagonal(out, False)
+    return out
+
+
+def groups(U: np.ndarray, order: np.ndarray, q: float, sigmas: float,
+           share: float = 0.5) -> np.ndarray:
+    """Group number (H,) per hypothesis: hypotheses no offered reading can tell apart
+    (see `apart`) share a number. Greedy in `order` (e.g. by prior): a hypothesis joins
+    the first group none of whose members it can be told from."""
+    ap = apart(U, q, sigmas, share)
+    H = U.shape[0]
+    g = np.full(H, -1, dtype=int)
+    members: list[list[int]] = []
+    for h in order:
+        for gi, mem in enumerate(members):
+            if not ap[h, mem].any():
+                mem.append(int(h))
+                g[h] = gi
+                break
+        else:
+            members.append([int(h)])
+            g[h] = len(members) - 1
+    return g

@@ -1,0 +1,78 @@
+"""Bench notes: plain-language findings from the readings alone (rules/checks.yaml).
+
+A note needs DC readings at both nodes a check looks across (a terminal on the ground node
+reads 0 V). Nothing here consults the model: these are what a technician would say
+looking at the meter.
+"""
+
+from __future__ import annotations
+
+from typing import Sequence
+
+from diag.core.case import TERMINALS, Case
+from diag.core.errors import DiagError
+from diag.core.values import format_value
+
+
+def node_volts(case: Case, readings: Sequence) -> dict[str, float]:
+    """Node -> DC volts to ground from the readings (points measured to ground)."""
+    out = {case.ground: 0.0}
+    for r in readings:
+        if r.kind != "dc":
+            continue
+        try:
+            pt = case.point(r.point)
+        except KeyError:
+            continue
+        if pt.node and pt.minus in (None, case.ground):
+            out[pt.node] = float(r.value)
+    return out
+
+
+def bench_notes(case: Case, rules, readings: Sequence, meter_accuracy=None) -> list[str]:
+    """Notes for these readings, in case part order then checks order.
+
+    `meter_accuracy(volts) -> volts` is the meter's accuracy bound (used by the
+    near-supply check); without it 1 % of the reading is used."""
+    checks = rules["checks"].get("checks") or []
+    v = node_volts(case, readings)
+    rails = [p for p in case.parts if p.kind == "supply"]
+    fixed = {case.ground, *(n for p in rails for n in p.nodes)}
+    out = []
+    for part in case.parts:
+        for chk in checks:
+            if part.kind not in chk.get("kinds", ()):
+                continue
+            try:
+                t1, t2 = chk["across"]
+                n1, n2 = part.terminal(t1), part.terminal(t2)
+            except (KeyError, ValueError, TypeError):
+                raise DiagError(f"check {chk.get('id')!r}: `across` must name two terminals "
+                                f"of {part.kind} ({', '.join(TERMINALS[part.kind])})",
+                                file=rules.file("checks")) from None
+            if n1 not in v or n2 not in v:
+                continue
+            flip = -1.0 if (chk.get("pnp_flip") and part.kind == "pnp") else 1.0
+            val = flip * (v[n1] - v[n2])
+            if chk.get("near_supply"):
+                if n1 in fixed:  # wired straight to a rail: says nothing
+                    continue
+                hit = False
+                for sp in rails:
+                    rail = v.get(sp.nodes[0], sp.value or 0.0)
+                    target = rail if part.kind != "pnp" else 0.0
+                    tol = (meter_accuracy(abs(target)) if meter_accuracy
+                           else 0.01 * abs(target)) + 0.02 * abs(rail)
+                    if rail > 0.5 and abs(v[n1] - target) <= tol:
+                        hit = True
+                if not hit:
+                    continue
+                shown = v[n1]
+            else:
+                lo, hi = chk["range"]
+                if not lo <= val <= hi:
+                    continue
+                shown = val
+            out.append(chk["text"].format(ref=part.ref, kind=part.kind,
+                                          v=format_value(shown, "V")))
+    return out

@@ -1,0 +1,58 @@
+"""Part kinds: one module per family, registered here by kind name.
+
+Each kind (a PartKind) gives nominal parameters and healthy spreads from a Part, and its
+DC and AC stamps; semiconductors also a nonlinear Device. Adding a kind touches one module,
+this registry and (if it has a model) one entry in rules/models.yaml.
+"""
+
+from __future__ import annotations
+
+from diag.core.errors import DiagError
+from diag.core.parts.base import GMIN, T_KELVIN, VT, Context, PartKind, Spread
+from diag.core.parts.bjt import BJT
+from diag.core.parts.diode import Diode
+from diag.core.parts.passive import Capacitor, FuseLink, Inductor, Pot, Resistor, Speaker
+from diag.core.parts.sources import SIGNAL_HZ, Signal, Supply
+
+REGISTRY: dict[str, PartKind] = {}
+for _cls in (Resistor, Pot, Capacitor, Inductor, Speaker, FuseLink, Supply, Signal,
+             Diode, BJT):
+    _k = _cls()
+    for _name in _cls.kinds:
+        REGISTRY[_name] = _k
+
+MODEL_KINDS = {"npn": ("npn",), "pnp": ("pnp",), "diode": ("diode",), "led": ("led",),
+               "zener": ("zener",)}
+
+
+def kind_of(kind: str) -> PartKind:
+    """The PartKind that handles `kind`; DiagError naming the known kinds otherwise."""
+    try:
+        return REGISTRY[kind]
+    except KeyError:
+        raise DiagError(f"unknown part kind {kind!r}",
+                        hint="known kinds: " + ", ".join(sorted(REGISTRY))) from None
+
+
+def check_models(models: dict, file: str | None = None) -> None:
+    """Validate the models rules section: kind, params names and numbers."""
+    from diag.core.parts.bjt import MODEL_NAMES as BJT_NAMES
+    from diag.core.parts.diode import SPICE_DEFAULTS as DIODE_DEFAULTS
+
+    for name, entry in (models or {}).items():
+        line = getattr(models, "line_of", lambda k: None)(name)
+        if not isinstance(entry, dict) or entry.get("kind") not in MODEL_KINDS:
+            raise DiagError("a model needs kind: npn, pnp, diode, led or zener", file=file,
+                            line=line, where=str(name))
+        allowed = BJT_NAMES if entry["kind"] in ("npn", "pnp") else tuple(DIODE_DEFAULTS)
+        for key, val in (entry.get("params") or {}).items():
+            if key not in allowed:
+                raise DiagError(f"unknown model parameter {key!r}", file=file, line=line,
+                                where=str(name), hint="known: " + " ".join(allowed))
+            if not isinstance(val, (int, float)) or isinstance(val, bool) or val < 0:
+                raise DiagError(f"parameter {key} must be a non-negative number",
+                                file=file, line=line, where=str(name))
+
+
+__all__ = ["REGISTRY", "kind_of", "check_models", "Context", "PartKind", "Spread", "VT",
+           "GMIN", "T_KELVIN", "SIGNAL_HZ"]

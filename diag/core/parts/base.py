@@ -1,0 +1,111 @@
+"""What every part kind provides, and the shared constants of the device equations.
+
+A kind turns a Part into nominal parameters (SI units, names per DEVELOPERS.md), their
+healthy spreads, and stamps. Stamps are returned as plain lists; only the solver
+assembles and factors matrices.
+
+Stamp conventions (batched arrays of shape (B,) or scalars):
+  conductances  [(i, j, g)]: a branch of g siemens between unknowns i and j (-1 = ground)
+  injections    [(i, c)]:    c amperes driven INTO unknown i from outside the network
+Nonlinear kinds also give a Device whose `eval` returns the companion model at the present
+guess: terminal currents (leaving each node into the device) I ~= Ieq + J @ V.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, Mapping
+
+import numpy as np
+from scipy import constants
+
+T_KELVIN = 300.15                                   # 27 °C, the SPICE default temperature
+VT = constants.k * T_KELVIN / constants.e           # thermal voltage, volts (about 25.86 mV)
+GMIN = 1e-12                                        # siemens across every junction (SPICE gmin)
+EXP_LIMIT = 100.0                                   # exp() argument above which it continues linearly
+
+
+@dataclass(frozen=True)
+class Spread:
+    """One healthy-tolerance draw, applied as one factor to every key in `keys`.
+
+    dist "uniform":    factor = 1 + U(a, b)                 (a = -tol, b = +tol)
+    dist "loguniform": first key's value = exp(U(ln a, ln b)); the others scale with it
+    dist "lognormal":  factor = exp(N(0, a))                (a = natural-log sigma)
+    """
+
+    keys: tuple[str, ...]
+    dist: str
+    a: float
+    b: float = 0.0
+
+
+@dataclass(frozen=True)
+class Context:
+    """What a kind may need beyond its Part: the models rules section and the largest
+    supply voltage of the case (volts; the working voltage of capacitors without a rating)."""
+
+    models: Mapping[str, Any]
+    supply_v: float
+
+
+def safe_exp(x):
+    """exp(x) continued linearly above EXP_LIMIT (keeps Newton steps finite); returns
+    (value, derivative)."""
+    x = np.asarray(x, dtype=float)
+    xc = np.minimum(x, EXP_LIMIT)
+    e = np.exp(xc)
+    return e * (1.0 + (x - xc)), e
+
+
+def pnjlim(vnew, vold, vt, vcrit):
+    """SPICE junction-voltage limiting (pnjlim) of a Newton step; returns (v, limited)."""
+    vnew = np.asarray(vnew, dtype=float)
+    vold = np.broadcast_to(np.asarray(vold, dtype=float), vnew.shape)
+    big = (vnew > vcrit) & (np.abs(vnew - vold) > 2.0 * vt)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        arg = 1.0 + (vnew - vold) / vt
+        up = np.where(arg > 0, vold + vt * np.log(np.where(arg > 0, arg, 1.0)), vcrit)
+        fresh = vt * np.log(np.where(vnew > 0, vnew / vt, 1.0))
+    v_big = np.where(vold > 0, up, fresh)
+    neg_floor = np.where(vold > 0, -vold - 1.0, 2.0 * vold - 1.0)
+    neg = ~big & (vnew < 0) & (vnew < neg_floor)
+    out = np.where(big, v_big, np.where(neg, neg_floor, vnew))
+    return out, big | neg
+
+
+class PartKind:
+    """Base of every kind. Subclasses set `kinds` and override what applies."""
+
+    kinds: tuple[str, ...] = ()
+    #: parameter names of the kind (DEVELOPERS.md table), in a fixed order
+    names: tuple[str, ...] = ()
+
+    def internal(self, part, nominal: Mapping[str, float]) -> tuple[str, ...]:
+        """Names of internal nodes the part needs (e.g. a transistor's b' behind RB)."""
+        return ()
+
+    def nominal(self, part, ctx: Context) -> dict[str, float]:
+        raise NotImplementedError
+
+    def spreads(self, part, nominal: Mapping[str, float], ctx: Context) -> list[Spread]:
+        return []
+
+    def dc_stamps(self, part, p: Mapping[str, Any], t: Mapping[str, int]):
+        """(conductances, injections) of the linear part of the DC model."""
+        return [], []
+
+    def ac_stamps(self, part, p: Mapping[str, Any], t: Mapping[str, int], omega: float):
+        """(admittances, injections) of the linear part at angular frequency omega (rad/s);
+        complex siemens and amperes rms."""
+        g, _ = self.dc_stamps(part, p, t)
+        return g, []
+
+    def device(self, part, t: Mapping[str, int]):
+        """The nonlinear Device of the part, or None."""
+        return None
+
+
+def tol_or(part, default: float) -> float:
+    """The part's tolerance fraction, or `default` when the case gave none."""
+    return float(part.tol) if part.tol is not None else default

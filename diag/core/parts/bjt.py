@@ -1,0 +1,166 @@
+"""Bipolar transistors: a Gummel-Poon subset (IS BF BR NF NR VAF IKF ISE NE RB RC RE; no
+junction capacitances, no ISC/VAR/IKR), SPICE meaning of every parameter, so the same card
+in ngspice gives the same operating point. With VAF, IKF infinite and ISE 0 it is the
+Ebers-Moll transport model.
+
+Fault hooks: k_be, k_bc (1 healthy, 0 = that junction open: its diode current and the
+transport current, which scales with k_be·k_bc, vanish) and shunts g_be, g_bc, g_ce
+(siemens) between the external leads.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from diag.core.parts.base import GMIN, VT, PartKind, Spread, pnjlim, safe_exp
+from diag.core.parts.diode import model_of, model_spread
+
+DEFAULT_MODEL = {"npn": "npn-small", "pnp": "pnp-small"}
+SPICE_DEFAULTS = {"IS": 1e-16, "BF": 100.0, "BR": 1.0, "NF": 1.0, "NR": 1.0,
+                  "VAF": math.inf, "IKF": math.inf, "ISE": 0.0, "NE": 1.5,
+                  "RB": 0.0, "RC": 0.0, "RE": 0.0}
+MODEL_NAMES = tuple(SPICE_DEFAULTS)
+ON_CURRENT = 1e-6   # amperes of junction current above which a junction counts as on
+SAT_VCE = 0.3       # volts; an on transistor below this collector-emitter voltage is saturated
+
+
+class BJT(PartKind):
+    kinds = ("npn", "pnp")
+    names = ("is", "bf", "br", "nf", "nr", "vaf", "ikf", "ise", "ne", "rb", "rc", "re",
+             "k_be", "k_bc", "g_be", "g_bc", "g_ce")
+
+    def internal(self, part, nominal):
+        return tuple(f"{x}i" for x in ("c", "b", "e") if nominal[f"r{x}"] > 0)
+
+    def nominal(self, part, ctx):
+        _, m = model_of(part, ctx, DEFAULT_MODEL[part.kind])
+        q = {**SPICE_DEFAULTS, **{k.upper(): v for k, v in m.items()}}
+        out = {k.lower(): float(q[k]) for k in MODEL_NAMES}
+        for k in ("vaf", "ikf"):       # SPICE: 0 means infinite
+            if out[k] == 0.0:
+                out[k] = math.inf
+        hfe = part.fields.get("hfe")
+        if hfe:
+            out["bf"] = math.sqrt(float(hfe[0]) * float(hfe[1]))
+        out.update(k_be=1.0, k_bc=1.0, g_be=0.0, g_bc=0.0, g_ce=0.0)
+        return out
+
+    def spreads(self, part, nominal, ctx):
+        name = part.model.get("name") if part.model else DEFAULT_MODEL[part.kind]
+        s = model_spread(ctx, name)
+        hfe = part.fields.get("hfe") or s.get("hfe")
+        out = []
+        if hfe:
+            out.append(Spread((f"{part.ref}.bf",), "loguniform", float(hfe[0]), float(hfe[1])))
+        if s.get("is_sigma"):
+            out.append(Spread((f"{part.ref}.is",), "lognormal", float(s["is_sigma"])))
+        return out
+
+    def dc_stamps(self, part, p, t):
+        g = [(t["b"], t["e"], p["g_be"]), (t["b"], t["c"], p["g_bc"]),
+             (t["c"], t["e"], p["g_ce"])]
+        for x in ("c", "b", "e"):
+            if f"{x}i" in t:
+                g.append((t[x], t[f"{x}i"], 1.0 / np.maximum(p[f"r{x}"], 1e-6)))
+        return g, []
+
+    def device(self, part, t):
+        return BJTDevice(tuple(t.get(f"{x}i", t[x]) for x in ("c", "b", "e")),
+                         1.0 if part.kind == "npn" else -1.0)
+
+
+class BJTDevice:
+    """The intrinsic transistor between (c', b', e') unknowns."""
+
+    def __init__(self, nodes, polarity):
+        self.nodes = tuple(nodes)
+        self.pol = polarity
+
+    @staticmethod
+    def prepare(p):
+        vtf, vtr = p["nf"] * VT, p["nr"] * VT
+        return {"_vtf": vtf, "_vtr": vtr,
+                "_vcf": vtf * np.log(vtf / (math.sqrt(2.0) * p["is"])),
+                "_vcr": vtr * np.log(vtr / (math.sqrt(2.0) * p["is"]))}
+
+    def junctions(self, v):
+        """(vbe, vbc) polarity-corrected, volts."""
+        s = self.pol
+        return s * (v[1] - v[2]), s * (v[1] - v[0])
+
+    def currents(self, p, vbe, vbc):
+        """Intrinsic (ic, ib) flowing into c and b (npn sense) and their derivatives
+        d/dvbe, d/dvbc."""
+        is_ = p["is"]
+        e1, d1 = safe_exp(vbe / p["_vtf"])
+        e2, d2 = safe_exp(vbc / p["_vtr"])
+        cbe, gbe = is_ * (e1 - 1.0), is_ * d1 / p["_vtf"]
+        cbc, gbc = is_ * (e2 - 1.0), is_ * d2 / p["_vtr"]
+        vte = p["ne"] * VT
+        e3, d3 = safe_exp(vbe / vte)
+        cben = p["ise"] * (e3 - 1.0) + GMIN * vbe
+        gben = p["ise"] * d3 / vte + GMIN
+        cbcn = GMIN * vbc
+        gbcn = GMIN
+        inv_vaf = 1.0 / p["vaf"]
+        inv_ikf = 1.0 / p["ikf"]
+        q1 = 1.0 / (1.0 - inv_vaf * vbc)
+        dq1_bc = q1 * q1 * inv_vaf
+        q2 = inv_ikf * cbe
+        sq = np.sqrt(np.maximum(1.0 + 4.0 * q2, 0.0))
+        sq_safe = np.where(sq > 0, sq, 1.0)
+        qb = q1 * (1.0 + sq) / 2.0
+        dqb_be = np.where(sq > 0, q1 * inv_ikf * gbe / sq_safe, 0.0)
+        dqb_bc = dq1_bc * (1.0 + sq) / 2.0
+        kbe, kbc = p["k_be"], p["k_bc"]
+        kt = kbe * kbc
+        it = kt * (cbe - cbc) / qb
+        dit_be = kt * (gbe / qb - (cbe - cbc) * dqb_be / (qb * qb))
+        dit_bc = kt * (-gbc / qb - (cbe - cbc) * dqb_bc / (qb * qb))
+        ibe = kbe * (cbe / p["bf"] + cben)
+        gibe = kbe * (gbe / p["bf"] + gben)
+        ibc = kbc * (cbc / p["br"] + cbcn)
+        gibc = kbc * (gbc / p["br"] + gbcn)
+        ic = it - ibc
+        ib = ibe + ibc
+        return ic, ib, (dit_be, dit_bc - gibc), (gibe, gibc)
+
+    def eval(self, p, v, state, limit=True):
+        """Companion model at terminal voltages v (3, B) ordered (c, b, e):
+        (J (3,3,B), Ieq (3,B), state, limited (B,) bool)."""
+        vbe, vbc = self.junctions(v)
+        limited = np.zeros(np.shape(vbe), dtype=bool)
+        if limit:
+            vbe, l1 = pnjlim(vbe, state[0], p["_vtf"], p["_vcf"])
+            vbc, l2 = pnjlim(vbc, state[1], p["_vtr"], p["_vcr"])
+            limited = l1 | l2
+        ic, ib, (gc_be, gc_bc), (gb_be, gb_bc) = self.currents(p, vbe, vbc)
+        s = self.pol
+        # terminal currents into the device (leaving the node): c, b, e
+        Ic, Ib = s * ic, s * ib
+        Ie = -(Ic + Ib)
+        # d/dV with vbe = s(Vb - Ve), vbc = s(Vb - Vc): dI_term/dV = s*s*(...) = (...)
+        jc = (-gc_bc, gc_be + gc_bc, -gc_be)
+        jb = (-gb_bc, gb_be + gb_bc, -gb_be)
+        je = tuple(-(a + b) for a, b in zip(jc, jb))
+        J = np.stack([np.stack(jc), np.stack(jb), np.stack(je)])
+        # consistent terminal voltages for the (limited) junction voltages, emitter at 0
+        vb_ = s * vbe
+        vc_ = vb_ - s * vbc
+        ieq = np.stack([Ic - (jc[0] * vc_ + jc[1] * vb_),
+                        Ib - (jb[0] * vc_ + jb[1] * vb_),
+                        Ie - (je[0] * vc_ + je[1] * vb_)])
+        return J, ieq, (vbe, vbc), limited
+
+    def region(self, p, v):
+        """Operating region per variant: 'off', 'active', 'saturated' or 'reverse'."""
+        vbe, vbc = self.junctions(v)
+        is_ = p["is"]
+        be_on = p["k_be"] * is_ * np.expm1(np.minimum(vbe / p["_vtf"], 700)) > ON_CURRENT
+        bc_on = p["k_bc"] * is_ * np.expm1(np.minimum(vbc / p["_vtr"], 700)) > ON_CURRENT
+        vce = vbe - vbc
+        return np.where(~be_on & ~bc_on, "off",
+                        np.where(be_on & (vce >= SAT_VCE), "active",
+                                 np.where(be_on, "saturated", "reverse")))

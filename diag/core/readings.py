@@ -1,0 +1,183 @@
+"""Readings files (SPEC section 2): one unit (`point,value`, `point,kind,value`) or a batch
+(`unit,point,value`, `unit,point,kind,value`). The only reader of readings files.
+
+Values are volts (DC, or AC rms), amperes at supply points, with the prefixes and units of
+case files (`312m`, `0.312 V`, `1.2 mA`). Bad rows (unknown point or kind, unparsable value,
+a value the circuit cannot produce) are reported with their row number (header = row 1) and
+left out; the other rows are kept. `check_value` validates one typed value the same way.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+from diag.core.case import Case
+from diag.core.engine import Reading
+from diag.core.errors import DiagError
+from diag.core.rules import load_rules
+from diag.core.values import format_value, parse_value
+
+HEADER_WORDS = ("unit", "point", "kind", "value")
+
+
+@dataclass(frozen=True)
+class ReadingsFile:
+    """Parsed readings. `units` maps unit name ("" for a single-unit file) to its
+    readings in file order; `errors` holds one DiagError per rejected row; `batch` is
+    true when the file has a `unit` column."""
+
+    file: str
+    units: dict
+    errors: tuple[DiagError, ...]
+    batch: bool
+
+    @property
+    def rejected(self) -> tuple[str, ...]:
+        return tuple(str(e) for e in self.errors)
+
+    def single(self) -> tuple[Reading, ...]:
+        """The readings of the only unit; DiagError when the file holds several."""
+        if len(self.units) > 1:
+            raise DiagError(f"the file holds {len(self.units)} units", file=self.file,
+                            hint="diagnose takes one unit; use `diag triage` for a batch")
+        return next(iter(self.units.values()), ())
+
+
+def limits(case: Case, rules=None) -> dict[tuple[str, str], tuple[float, float]]:
+    """(point, kind) -> (lowest, highest) reading the circuit can produce under any fault,
+    from its supplies alone: volts, amperes at supply points."""
+    rules = rules or load_rules()
+    cfg = rules["checks"].get("readings") or {}
+    over = float(cfg.get("over_supply", 0.05))
+    neg_v = float(cfg.get("negative_margin_v", 0.1))
+    neg_a = float(cfg.get("negative_margin_a", 1e-4))
+    supplies = [p for p in case.parts if p.kind == "supply"]
+    vsum = sum(abs(p.value or 0.0) * (1 + (p.tol or 0.0)) for p in supplies)
+    sig = case.signal
+    vpk = (sig.value or 0.0) * math.sqrt(2) if sig is not None else 0.0
+    vmax = (vsum + vpk) * (1 + over) + neg_v
+    positive = all((p.value or 0) >= 0 and p.nodes[1] == case.ground for p in supplies)
+    out = {}
+    for pt in case.points:
+        for kind in pt.reads:
+            if pt.supply:
+                sp = case.part(pt.supply)
+                r = float(sp.fields.get("r_source", 0.0) or 0.0)
+                imax = (abs(sp.value or 0.0) * (1 + over) / r) if r > 0 else math.inf
+                out[(pt.id, kind)] = (-neg_a, imax)
+            elif kind == "ac":
+                out[(pt.id, kind)] = (0.0, vmax)
+            elif positive and (pt.minus in (None, case.ground)):
+                out[(pt.id, kind)] = (-neg_v, vmax)
+            else:
+                out[(pt.id, kind)] = (-vmax, vmax)
+    return out
+
+
+def check_value(case: Case, point: str, kind: str, text, lim=None, *, file=None,
+                row=None) -> float:
+    """Validate one reading typed or read from a file; return the value in volts
+    (amperes at a supply point). Raises DiagError naming the point (and row)."""
+    where = f"row {row}" if row else None
+    kind = (kind or "dc").strip().lower()
+    try:
+        pt = case.point(str(point).strip())
+    except KeyError:
+        raise DiagError(f"unknown point {point!r}", file=file, line=row, where=where,
+                        hint="points: " + ", ".join(p.id for p in case.points)) from None
+    if kind not in pt.reads:
+        raise DiagError(f"{pt.id} offers no {kind} reading", file=file, line=row,
+                        where=where, hint="offered there: " + ", ".join(pt.reads))
+    unit = "A" if pt.supply else "V"
+    try:
+        value = parse_value(text, unit)
+    except ValueError as exc:
+        raise DiagError(f"{pt.id}: {exc}", file=file, line=row, where=where) from None
+    lo, hi = (lim or limits(case))[(pt.id, kind)]
+    if not lo <= value <= hi:
+        if value < lo:
+            why = ("negative: probes reversed?" if lo >= -1.0 else "below anything the "
+                   "supplies can produce")
+        else:
+            why = ("above anything the supplies can produce: wrong range, wrong point or "
+                   "a typing slip?")
+        raise DiagError(f"{pt.id} {kind} reading {format_value(value, unit)} is {why}",
+                        file=file, line=row, where=where,
+                        hint=f"this point can read from {format_value(lo, unit)} to "
+                        f"{format_value(hi, unit)}; take it again")
+    return value
+
+
+def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> ReadingsFile:
+    """Parse readings CSV text (see module docstring)."""
+    lim = limits(case, rules)
+    rows = list(csv.reader(io.StringIO(text.lstrip("\ufeff"))))
+    errors: list[DiagError] = []
+    units: dict[str, dict[tuple[str, str], Reading]] = {}
+    seen_row: dict[tuple[str, str, str], int] = {}
+    cols: list[str] | None = None
+    batch = False
+    for i, raw in enumerate(rows, start=1):
+        cells = [c.strip() for c in raw]
+        if not any(cells) or cells[0].startswith("#"):
+            continue
+        if cols is None:
+            low = [c.lower() for c in cells]
+            if "point" in low and "value" in low and set(low) <= set(HEADER_WORDS):
+                cols = low
+                batch = "unit" in cols
+                continue
+            if len(cells) in (2, 3):  # no header: point,value or point,kind,value
+                cols = ["point", "value"] if len(cells) == 2 else ["point", "kind", "value"]
+            else:
+                raise DiagError("no header row", file=file, line=i,
+                                hint="start the file with point,value (or point,kind,value; "
+                                "unit,point,value for a batch)")
+        if len(cells) != len(cols):
+            errors.append(DiagError(f"{len(cells)} fields, expected {len(cols)} "
+                                    f"({','.join(cols)})", file=file, line=i, where=f"row {i}"))
+            continue
+        rec = dict(zip(cols, cells))
+        unit = rec.get("unit", "")
+        if batch and not unit:
+            errors.append(DiagError("no unit name", file=file, line=i, where=f"row {i}",
+                                    hint="every batch row starts with the unit's name"))
+            continue
+        kind = (rec.get("kind") or "dc").lower()
+        try:
+            value = check_value(case, rec["point"], kind, rec["value"], lim, file=file, row=i)
+        except DiagError as exc:
+            errors.append(exc)
+            continue
+        key = (rec["point"], kind)
+        prev = seen_row.get((unit, *key))
+        if prev is not None:
+            errors.append(DiagError(f"{key[0]} {kind} also given on row {prev}; the later "
+                                    "reading is used", file=file, line=prev,
+                                    where=f"row {prev}"))
+        seen_row[(unit, *key)] = i
+        units.setdefault(unit, {}).pop(key, None)
+        units[unit][key] = Reading(key[0], kind, value, row=i)
+    if cols is None:
+        raise DiagError("empty readings file", file=file,
+                        hint="give at least the header row point,value")
+    if not batch and not units:
+        units[""] = {}
+    return ReadingsFile(file, {u: tuple(r.values()) for u, r in units.items()},
+                        tuple(errors), batch)
+
+
+def parse_file(path: str | Path, case: Case, rules=None) -> ReadingsFile:
+    """Read and parse a readings CSV file (UTF-8)."""
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise DiagError("file not found", file=str(path), hint="check the path") from None
+    except UnicodeDecodeError:
+        raise DiagError("not UTF-8 text", file=str(path), hint="save the file as UTF-8") from None
+    return parse_text(text, case, file=str(path), rules=rules)

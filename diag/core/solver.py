@@ -1,0 +1,611 @@
+"""Batched modified nodal analysis: DC operating point (Newton-Raphson), AC small-signal
+and Thevenin impedances, for B variants of one compiled Circuit at once.
+
+Array contract: results have a leading batch axis B, then nodes (case order, ground
+excluded); float64 for DC (volts, amperes, ohms), complex128 for AC (volts rms).
+Internally the batch is the LAST (fast) axis: values (entries, B).
+
+Only this module assembles and factors matrices. The part kinds stamp (parts/). Linear
+solves use a straight-line LU on the circuit's fixed sparsity pattern (minimum-degree
+order, no pivoting, each entry a (B,) vector operation); variants whose Newton run fails
+are retried with gmin stepping and then source stepping, with a pivoting dense solve. A
+converged answer is accepted only after its KCL residual is checked at every node, so a
+variant is either right or flagged `ok = False` with a reason in words.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Mapping, Sequence
+
+import numpy as np
+
+from diag.core.errors import DiagError
+from diag.core.netlist import Circuit
+
+GSHUNT = 1e-15            # siemens from every unknown node to ground (keeps every node defined;
+                          # far below the 1e-12 S SPICE gmin across junctions)
+VNTOL = 1e-9              # volts, absolute Newton step tolerance
+RELTOL = 1e-7             # relative Newton step tolerance
+MAXIT = 60                # Newton iterations per attempt
+RES_REL = 1e-6            # accepted KCL residual, relative to the currents at the node
+RES_ABS = 1e-14           # amperes, accepted KCL residual floor
+FLOAT_OHMS = 3e8          # a node whose resistance to ground exceeds this floats (opens: >=1e9)
+GMIN_STEPS = (1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10, 0.0)
+SOURCE_STEPS = tuple(np.linspace(0.0, 1.0, 21)[1:])
+
+
+@dataclass(frozen=True)
+class DCResult:
+    """DC operating points of B variants.
+
+    v          (B, n_nodes) volts at the case nodes (NaN where not ok)
+    i_supply   (B, S) amperes delivered by each supply (circuit.supplies order)
+    ok         (B,) bool, converged and checked
+    why        per variant: None, or a reason for people (a failure when not ok; a warning
+               such as a floating node when ok)
+    iterations (B,) Newton iterations used
+    x          (B, n_unknowns) volts at every unknown (internal nodes included)
+    """
+
+    v: np.ndarray
+    i_supply: np.ndarray
+    ok: np.ndarray
+    why: list
+    iterations: np.ndarray
+    x: np.ndarray
+
+
+@dataclass(frozen=True)
+class ACResult:
+    """Small-signal phasors at circuit.hz: v (B, n_nodes) complex128 volts rms (NaN where
+    the DC operating point is not ok); x (B, n_unknowns)."""
+
+    v: np.ndarray
+    x: np.ndarray
+    hz: float
+
+
+# ----------------------------------------------------------------------------- plan
+
+class _Plan:
+    """Everything fixed by the topology: sparsity pattern, elimination steps, devices."""
+
+    def __init__(self, circuit: Circuit):
+        self.n = n = len(circuit.unknowns)
+        pairs: set[tuple[int, int]] = {(i, i) for i in range(n)}
+        self.devices = []   # (part index, device, node index array (ground -> n))
+        for pi, (part, kind, t) in enumerate(zip(circuit.parts, circuit.kinds, circuit.terms)):
+            nom = _nominal_p(circuit, pi)
+            for st in (kind.dc_stamps(part, nom, t)[0],
+                       kind.ac_stamps(part, nom, t, 1.0)[0]):
+                for i, j, _ in st:
+                    if i >= 0 and j >= 0:
+                        pairs |= {(i, j), (j, i)}
+            dev = kind.device(part, t)
+            if dev is not None:
+                idx = [i for i in dev.nodes if i >= 0]
+                pairs |= {(i, j) for i in idx for j in idx}
+                self.devices.append((pi, dev, np.array([i if i >= 0 else n for i in dev.nodes])))
+        self._symbolic(pairs)
+
+    def _symbolic(self, pairs):
+        n = self.n
+        adj = [set() for _ in range(n)]
+        for i, j in pairs:
+            if i != j:
+                adj[i].add(j)
+                adj[j].add(i)
+        # minimum-degree order with fill
+        left = set(range(n))
+        order = []
+        work = [set(a) for a in adj]
+        while left:
+            k = min(left, key=lambda q: (len(work[q]), q))
+            order.append(k)
+            nb = work[k]
+            for i in nb:
+                work[i] |= nb - {i}
+                work[i].discard(k)
+            left.discard(k)
+        # slots for every (i, j) in the filled pattern
+        slot: dict[tuple[int, int], int] = {}
+
+        def s(i, j):
+            if (i, j) not in slot:
+                slot[(i, j)] = len(slot)
+            return slot[(i, j)]
+
+        for i, j in sorted(pairs):
+            s(i, j)
+        done = set()
+        steps = []
+        for k in order:
+            rows = sorted(work[k] - done)
+            kk = s(k, k)
+            ik = np.array([s(i, k) for i in rows], dtype=np.intp)
+            kj = np.array([s(k, j) for j in rows], dtype=np.intp)
+            ij = np.array([s(i, j) for i in rows for j in rows], dtype=np.intp)
+            ik_rep = np.repeat(ik, len(rows))
+            kj_rep = np.tile(kj, len(rows))
+            steps.append((k, kk, np.array(rows, dtype=np.intp), ik, kj, ij, ik_rep, kj_rep))
+            done.add(k)
+        self.slot = slot
+        self.nz = len(slot)
+        self.steps = steps
+        self.diag = np.array([slot[(i, i)] for i in range(n)], dtype=np.intp)
+        keys = sorted(pairs)
+        self.rows = np.array([slot[p] for p in keys], dtype=np.intp)  # original entries
+        self.r_i = np.array([p[0] for p in keys], dtype=np.intp)
+        self.r_j = np.array([p[1] for p in keys], dtype=np.intp)
+        self.dev_slots = []
+        for _, dev, idx in self.devices:
+            ent = []
+            for a, i in enumerate(idx):
+                for b, j in enumerate(idx):
+                    if i < n and j < n:
+                        ent.append((a, b, slot[(int(i), int(j))]))
+            self.dev_slots.append(ent)
+        from scipy import sparse
+
+        # row-summation of the original entries: r = S @ (A_vals * x[cols])
+        self.rowsum = sparse.csr_matrix(
+            (np.ones(len(keys)), (self.r_i, np.arange(len(keys)))), shape=(n, len(keys)))
+
+    # -- numeric LU on the pattern (values: (nz, B), float or complex) --
+    def factor(self, M):
+        """In-place LU of M (nz, B); returns M."""
+        for k, kk, rows, ik, kj, ij, ik_rep, kj_rep in self.steps:
+            if len(rows):
+                M[ik] /= M[kk]
+                M[ij] -= M[ik_rep] * M[kj_rep]
+        return M
+
+    def solve_lu(self, M, y):
+        """Solve with a factored M; y (n, ..., B) right-hand sides, overwritten."""
+        extra = y.ndim - 2
+
+        def col(a):
+            return a.reshape(a.shape[:1] + (1,) * extra + a.shape[1:])
+
+        for k, kk, rows, ik, kj, ij, ik_rep, kj_rep in self.steps:
+            if len(rows):
+                y[rows] -= col(M[ik]) * y[k][None]
+        for k, kk, rows, ik, kj, ij, ik_rep, kj_rep in reversed(self.steps):
+            if len(rows):
+                y[k] -= (col(M[kj]) * y[rows]).sum(axis=0)
+            y[k] /= col(M[kk][None])[0]
+        return y
+
+    def dense(self, M):
+        """(B, n, n) dense matrices of pattern values M (nz, B) (unfactored)."""
+        B = M.shape[1]
+        D = np.zeros((B, self.n, self.n), dtype=M.dtype)
+        D[:, self.r_i, self.r_j] = M[self.rows].T
+        return D
+
+    def solve(self, M, b, dense=False):
+        """x with A x = b for pattern values M (nz, B) and b (n, ..., B); M is kept."""
+        if not dense:
+            with np.errstate(all="ignore"):
+                return self.solve_lu(self.factor(M.copy()), b.copy())
+        D = self.dense(M)
+        rhs = np.moveaxis(b, -1, 0).reshape(D.shape[0], self.n, -1)
+        out = np.full(rhs.shape, np.nan, dtype=np.result_type(D, rhs))
+        try:
+            out = np.linalg.solve(D, rhs)
+        except np.linalg.LinAlgError:
+            for q in range(D.shape[0]):
+                try:
+                    out[q] = np.linalg.solve(D[q], rhs[q])
+                except np.linalg.LinAlgError:
+                    pass
+        return np.moveaxis(out.reshape((D.shape[0],) + b.shape[:-1]), 0, -1)
+
+
+def _plan(circuit: Circuit) -> _Plan:
+    p = circuit.cache.get("plan")
+    if p is None:
+        p = circuit.cache["plan"] = _Plan(circuit)
+    return p
+
+
+# ----------------------------------------------------------------------------- params
+
+def _nominal_p(circuit: Circuit, pi: int) -> dict:
+    return circuit.part_nominal(circuit.parts[pi].ref)
+
+
+def _batch(circuit: Circuit, params: Mapping[str, object] | None) -> tuple[int, list[dict]]:
+    """(B, per-part parameter dicts) with arrays (B,) or scalars."""
+    params = params or {}
+    unknown = [k for k in params if k not in circuit.nominal]
+    if unknown:
+        raise DiagError(f"unknown parameter {unknown[0]!r}", file=circuit.case.path,
+                        hint="keys are '<ref>.<name>' with names per DEVELOPERS.md, e.g. "
+                             + ", ".join(list(circuit.nominal)[:3]))
+    B = 1
+    arrs = {}
+    for k, v in params.items():
+        a = np.asarray(v, dtype=float)
+        if a.ndim > 1:
+            raise DiagError(f"parameter {k!r} must be a scalar or a (B,) array")
+        if a.ndim == 1:
+            if B not in (1, a.shape[0]) and a.shape[0] != 1:
+                raise DiagError(f"parameter {k!r} has {a.shape[0]} variants, others {B}")
+            B = max(B, a.shape[0])
+        arrs[k] = a
+    out = []
+    for part in circuit.parts:
+        pre = part.ref + "."
+        d = {}
+        for k, v in circuit.nominal.items():
+            if k.startswith(pre):
+                a = arrs.get(k)
+                d[k[len(pre):]] = v if a is None else (float(a) if a.ndim == 0 else a)
+        out.append(d)
+    for d in out:
+        for k, v in d.items():
+            if isinstance(v, np.ndarray) and v.shape[0] != B:
+                d[k] = np.broadcast_to(v, (B,))
+    return B, out
+
+
+def _sub(d: dict, act) -> dict:
+    return {k: (v[act] if isinstance(v, np.ndarray) and v.ndim else v) for k, v in d.items()}
+
+
+def _prepared(plan: _Plan, P: list[dict]) -> list[dict]:
+    """Per-device parameter dicts with the device's per-solve constants."""
+    out = []
+    for pi, dev, _ in plan.devices:
+        d = dict(P[pi])
+        d.update(dev.prepare(d))
+        out.append(d)
+    return out
+
+
+# ----------------------------------------------------------------------------- assembly
+
+def _linear(circuit: Circuit, plan: _Plan, P: list[dict], B: int, omega: float | None):
+    """Pattern values (nz, B) and injections (n, B) of the linear parts (DC or AC)."""
+    dtype = float if omega is None else complex
+    A = np.zeros((plan.nz, B), dtype=dtype)
+    b = np.zeros((plan.n, B), dtype=dtype)
+    slot = plan.slot
+    for pi, (part, kind) in enumerate(zip(circuit.parts, circuit.kinds)):
+        t = circuit.terms[pi]
+        if omega is None:
+            g_list, inj = kind.dc_stamps(part, P[pi], t)
+        else:
+            g_list, inj = kind.ac_stamps(part, P[pi], t, omega)
+        for i, j, g in g_list:
+            if i >= 0:
+                A[slot[(i, i)]] += g
+            if j >= 0:
+                A[slot[(j, j)]] += g
+            if i >= 0 and j >= 0:
+                A[slot[(i, j)]] -= g
+                A[slot[(j, i)]] -= g
+        for i, c in inj:
+            if i >= 0:
+                b[i] += c
+    A[plan.diag] += GSHUNT
+    return A, b
+
+
+def _stamp_devices(plan, DP, x, state, A, b, act, limit=True):
+    """Add every device's companion model at x (n+1, Ba) to A, b; update state in place.
+    Returns limited (Ba,) bool."""
+    limited = np.zeros(x.shape[1], dtype=bool)
+    for q, ((_, dev, idx), ent) in enumerate(zip(plan.devices, plan.dev_slots)):
+        p = _sub(DP[q], act)
+        st = tuple(s[act] for s in state[q]) if state is not None else None
+        J, ieq, new, lim = dev.eval(p, x[idx], st, limit=limit)
+        for a, bb, s in ent:
+            A[s] += J[a, bb]
+        for a, i in enumerate(idx):
+            if i < plan.n:
+                b[i] -= ieq[a]
+        if state is not None:
+            for s_full, s_new in zip(state[q], new):
+                s_full[act] = s_new
+        limited |= lim
+    return limited
+
+
+def _junction_state(plan, x):
+    return [[np.array(np.broadcast_to(j, x.shape[1:]), dtype=float)
+             for j in dev.junctions(x[idx])] for _, dev, idx in plan.devices]
+
+
+def _newton(plan, DP, A_lin, b_lin, x, act, gextra=0.0, scale=1.0, dense=False,
+            maxit=MAXIT):
+    """Newton-Raphson on variants `act` from x (n+1, B), in place. Returns the converged
+    subset of act and the iterations used per variant (B,)."""
+    state = _junction_state(plan, x)
+    conv = []
+    its = np.zeros(x.shape[1], dtype=int)
+    for _ in range(maxit):
+        if act.size == 0:
+            break
+        A = A_lin[:, act].copy()
+        b = b_lin[:, act] * scale
+        if gextra:
+            A[plan.diag] += gextra
+        xa = x[:, act]
+        lim = _stamp_devices(plan, DP, xa, state, A, b, act)
+        xn = plan.solve(A, b, dense=dense)
+        its[act] += 1
+        fin = np.isfinite(xn).all(axis=0)
+        with np.errstate(invalid="ignore"):
+            dx = np.abs(xn - xa[:-1])
+            tol = RELTOL * np.maximum(np.abs(xn), np.abs(xa[:-1])) + VNTOL
+            done = fin & (dx <= tol).all(axis=0) & ~lim
+        x[:-1, act[fin]] = xn[:, fin]
+        conv.append(act[done])
+        act = act[fin & ~done]
+    return (np.concatenate(conv) if conv else np.zeros(0, dtype=int)), its
+
+
+def _residual_ok(plan, DP, A_lin, b_lin, x, act):
+    """True where the KCL residual at every unknown is within tolerance."""
+    if act.size == 0:
+        return np.zeros(0, dtype=bool)
+    xa = x[:, act]
+    A = A_lin[:, act]
+    cols = xa[plan.r_j]
+    prod = A[plan.rows] * cols
+    F = plan.rowsum @ prod - b_lin[:, act]
+    S = plan.rowsum @ np.abs(prod) + np.abs(b_lin[:, act])
+    for q, ((_, dev, idx), ent) in enumerate(zip(plan.devices, plan.dev_slots)):
+        J, ieq, _, _ = dev.eval(_sub(DP[q], act), xa[idx], None, limit=False)
+        cur = ieq + np.einsum("abk,bk->ak", J, xa[idx])
+        for a, i in enumerate(idx):
+            if i < plan.n:
+                F[i] += cur[a]
+                S[i] += np.abs(cur[a])
+    with np.errstate(invalid="ignore"):
+        return (np.isfinite(F).all(axis=0) & (np.abs(F) <= RES_REL * S + RES_ABS).all(axis=0))
+
+
+def _nominal_x(circuit: Circuit, plan: _Plan) -> np.ndarray:
+    """Nominal operating point (n+1,), cached on the circuit; zeros if it fails."""
+    x0 = circuit.cache.get("x_nominal")
+    if x0 is None:
+        B, P = _batch(circuit, None)
+        DP = _prepared(plan, P)
+        A_lin, b_lin = _linear(circuit, plan, P, 1, None)
+        x = np.zeros((plan.n + 1, 1))
+        ok, _, _ = _robust(plan, DP, A_lin, b_lin, x, np.arange(1), np.zeros((plan.n + 1, 1)))
+        x0 = x[:, 0].copy() if ok[0] else np.zeros(plan.n + 1)
+        circuit.cache["x_nominal"] = x0
+    return x0
+
+
+def _robust(plan, DP, A_lin, b_lin, x, act, x_start):
+    """Newton from x on `act`, then gmin stepping, then source stepping for the rest.
+    Returns (ok (B,), iterations (B,), method note per variant or None)."""
+    B = x.shape[1]
+    ok = np.zeros(B, dtype=bool)
+    its = np.zeros(B, dtype=int)
+    conv, it = _newton(plan, DP, A_lin, b_lin, x, act)
+    its += it
+    good = conv[_residual_ok(plan, DP, A_lin, b_lin, x, conv)]
+    ok[good] = True
+    rest = act[~ok[act]]
+    if rest.size:   # gmin stepping, pivoting dense solves
+        x[:, rest] = x_start[:, rest] if x_start.shape[1] == B else x_start[:, :1]
+        live = rest
+        for g in GMIN_STEPS:
+            live, it = _newton(plan, DP, A_lin, b_lin, x, live, gextra=g, dense=True)
+            its += it
+        good = live[_residual_ok(plan, DP, A_lin, b_lin, x, live)]
+        ok[good] = True
+        rest = rest[~ok[rest]]
+    if rest.size:   # source stepping from zero
+        x[:, rest] = 0.0
+        live = rest
+        for s in SOURCE_STEPS:
+            live, it = _newton(plan, DP, A_lin, b_lin, x, live, scale=s, dense=True)
+            its += it
+        good = live[_residual_ok(plan, DP, A_lin, b_lin, x, live)]
+        ok[good] = True
+    return ok, its, None
+
+
+# ----------------------------------------------------------------------------- DC
+
+def solve_dc(circuit: Circuit, params: Mapping[str, object] | None = None) -> DCResult:
+    """DC operating point of every variant (see DCResult). Starts from the nominal
+    solution; never raises for a variant that fails (ok False, why says so)."""
+    plan = _plan(circuit)
+    x0 = _nominal_x(circuit, plan)
+    B, P = _batch(circuit, params)
+    DP = _prepared(plan, P)
+    A_lin, b_lin = _linear(circuit, plan, P, B, None)
+    x = np.repeat(x0[:, None], B, axis=1)
+    ok, its, _ = _robust(plan, DP, A_lin, b_lin, x, np.arange(B), x0[:, None])
+    why: list = [None] * B
+    for q in np.flatnonzero(~ok):
+        why[q] = ("did not converge: no consistent DC operating point found "
+                  "(Newton, gmin stepping and source stepping tried)")
+    x[:, ~ok] = np.nan
+    for q, names in _floating(circuit, plan, DP, A_lin, x, np.flatnonzero(ok)).items():
+        nodes = ", ".join(names)
+        one = len(names) == 1
+        why[q] = (f"node{'' if one else 's'} {nodes} ha{'s' if one else 've'} no DC path to "
+                  f"ground (an open part isolates {'it' if one else 'them'}); "
+                  "the voltage there is set only by leakage")
+    xs = x[:-1].T.copy()
+    v = xs[:, :circuit.n_nodes]
+    return DCResult(v=v, i_supply=_supply_currents(circuit, plan, P, DP, x, B), ok=ok,
+                    why=why, iterations=its, x=xs)
+
+
+def _supply_currents(circuit, plan, P, DP, x, B):
+    """(B, S) amperes delivered by each supply: the current the rest of the network draws
+    at its plus node (at its minus node when plus is the ground), summed part by part so
+    a near-zero source resistance loses no precision."""
+    out = np.zeros((B, len(circuit.supplies)))
+    col = 0
+    for pi, part in enumerate(circuit.parts):
+        if part.kind != "supply":
+            continue
+        t = circuit.terms[pi]
+        node, sign = (t["plus"], 1.0) if t["plus"] >= 0 else (t["minus"], -1.0)
+        if node < 0:
+            p = P[pi]
+            out[:, col] = p["v"] / np.maximum(p["r"], 1e-6)
+        else:
+            out[:, col] = sign * _outflow(circuit, plan, P, DP, x, node, pi)
+        col += 1
+    return out
+
+
+def _outflow(circuit, plan, P, DP, x, node, skip):
+    """(B,) amperes leaving unknown `node` into every part but part index `skip`."""
+    tot = GSHUNT * x[node]
+    for pi, (part, kind) in enumerate(zip(circuit.parts, circuit.kinds)):
+        if pi == skip:
+            continue
+        t = circuit.terms[pi]
+        if node not in t.values():
+            continue
+        g_list, inj = kind.dc_stamps(part, P[pi], t)
+        for i, j, g in g_list:
+            if i == node:
+                tot = tot + g * (x[i] - x[j])
+            if j == node:
+                tot = tot + g * (x[j] - x[i])
+        for i, c in inj:
+            if i == node:
+                tot = tot - c
+    for q, (pi, dev, idx) in enumerate(plan.devices):
+        if pi == skip or node not in idx:
+            continue
+        J, ieq, _, _ = dev.eval(DP[q], x[idx], None, limit=False)
+        cur = ieq + np.einsum("abk,bk->ak", J, x[idx])
+        for a, i in enumerate(idx):
+            if i == node:
+                tot = tot + cur[a]
+    return tot
+
+
+def _jacobian(circuit, plan, DP, A_lin, x, act):
+    """Pattern values (nz, Ba) of the DC Jacobian at x for variants act."""
+    A = A_lin[:, act].copy()
+    b = np.zeros((plan.n, act.size))
+    _stamp_devices(plan, DP, x[:, act], None, A, b, act, limit=False)
+    return A
+
+
+def _floating(circuit, plan, DP, A_lin, x, act) -> dict[int, list[str]]:
+    """Variants (index -> node names) where case nodes have no DC path to ground."""
+    if act.size == 0:
+        return {}
+    A = _jacobian(circuit, plan, DP, A_lin, x, act)
+    y = plan.solve(A, np.ones((plan.n, act.size)))
+    with np.errstate(invalid="ignore"):
+        sus = ~(np.abs(y[:circuit.n_nodes]) <= FLOAT_OHMS).all(axis=0)
+    out = {}
+    if sus.any():
+        D = plan.dense(A[:, sus])
+        try:
+            inv = np.linalg.inv(D)
+        except np.linalg.LinAlgError:
+            inv = np.full(D.shape, np.inf)
+        rth = np.abs(np.diagonal(inv, axis1=1, axis2=2))[:, :circuit.n_nodes]
+        for q, r in zip(act[sus], rth):
+            names = [circuit.nodes[i] for i in np.flatnonzero(~(r <= FLOAT_OHMS))]
+            if names:
+                out[int(q)] = names
+    return out
+
+
+# ----------------------------------------------------------------------------- AC
+
+def _ac_matrix(circuit, plan, P, DP, dc, B, act):
+    omega = 2.0 * np.pi * circuit.hz
+    A, b = _linear(circuit, plan, P, B, omega)
+    xp = np.vstack([dc.x.T, np.zeros((1, B))])
+    Ad = A[:, act]
+    bz = np.zeros((plan.n, act.size), dtype=complex)
+    _stamp_devices(plan, DP, xp[:, act], None, Ad, bz, act, limit=False)
+    return Ad, b[:, act]
+
+
+def solve_ac(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult) -> ACResult:
+    """Small-signal node phasors (volts rms) at circuit.hz about each variant's DC
+    operating point, the signal source driving with its vac behind r."""
+    plan = _plan(circuit)
+    B, P = _batch(circuit, params)
+    B = max(B, dc.v.shape[0])
+    if dc.v.shape[0] != B:
+        raise DiagError("solve_ac: params and the DC result have different batch sizes")
+    DP = _prepared(plan, P)
+    act = np.flatnonzero(dc.ok)
+    x = np.full((B, plan.n), np.nan + 0j)
+    if act.size:
+        A, b = _ac_matrix(circuit, plan, P, DP, dc, B, act)
+        x[act] = plan.solve(A, b).T
+    return ACResult(v=x[:, :circuit.n_nodes], x=x, hz=circuit.hz)
+
+
+# ----------------------------------------------------------------------------- Thevenin
+
+def thevenin(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult,
+             pairs: Sequence[tuple[str, str]], ac: ACResult | None = None) -> np.ndarray:
+    """Impedance seen between each (node_plus, node_minus) pair at each variant's
+    operating point: (B, P) ohms from the DC Jacobian, or complex ohms at circuit.hz when
+    `ac` is given. Either node may be the ground. NaN where the DC point is not ok."""
+    plan = _plan(circuit)
+    B, P = _batch(circuit, params)
+    B = max(B, dc.v.shape[0])
+    DP = _prepared(plan, P)
+    act = np.flatnonzero(dc.ok)
+    idx = [(circuit.index(a), circuit.index(b)) for a, b in pairs]
+    dtype = complex if ac is not None else float
+    out = np.full((B, len(idx)), np.nan, dtype=dtype)
+    if act.size == 0 or not idx:
+        return out
+    if ac is None:
+        A_lin, _ = _linear(circuit, plan, P, B, None)
+        xp = np.vstack([dc.x.T, np.zeros((1, B))])
+        A = _jacobian(circuit, plan, DP, A_lin, xp, act)
+    else:
+        A, _ = _ac_matrix(circuit, plan, P, DP, dc, B, act)
+    rhs = np.zeros((plan.n, len(idx), act.size), dtype=dtype)
+    for k, (i, j) in enumerate(idx):
+        if i >= 0:
+            rhs[i, k] += 1.0
+        if j >= 0:
+            rhs[j, k] -= 1.0
+    y = plan.solve(A, rhs)
+    for k, (i, j) in enumerate(idx):
+        zi = y[i, k] if i >= 0 else 0.0
+        zj = y[j, k] if j >= 0 else 0.0
+        out[act, k] = zi - zj
+    return out
+
+
+# ----------------------------------------------------------------------------- regions
+
+def regions(circuit: Circuit, params: Mapping[str, object] | None,
+            dc: DCResult) -> dict[str, np.ndarray]:
+    """Operating region of each transistor per variant: ref -> (B,) array of 'off',
+    'active', 'saturated', 'reverse' ('' where the DC point is not ok)."""
+    plan = _plan(circuit)
+    B, P = _batch(circuit, params)
+    B = max(B, dc.v.shape[0])
+    DP = _prepared(plan, P)
+    xp = np.vstack([np.nan_to_num(dc.x.T), np.zeros((1, B))])
+    out = {}
+    for q, (pi, dev, idx) in enumerate(plan.devices):
+        if hasattr(dev, "region"):
+            p = {k: (np.broadcast_to(v, (B,)) if np.ndim(v) else v) for k, v in DP[q].items()}
+            r = np.asarray(dev.region(p, xp[idx]), dtype="<U9")
+            r = np.broadcast_to(r, (B,)).copy()
+            r[~dc.ok] = ""
+            out[circuit.parts[pi].ref] = r
+    return out

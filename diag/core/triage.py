@@ -1,0 +1,530 @@
+"""Batch triage: every unit of a returned batch ranked, and a summary across the batch.
+
+`triage(engine, units, rejected)` diagnoses each unit (in order of first appearance) and
+sums up: counts by fault and by part (most frequent first), units no hypothesis explains
+(send to engineering), units that look healthy (no fault found), and units whose readings
+are incomplete (an observable the rest of the batch measured is missing). The per-unit
+posterior is computed for all units at once (`rank_batch`); it gives the same numbers as
+`Engine.diagnose` one unit at a time.
+
+`to_json`, `to_markdown` and `to_csv` render a TriageResult; every rendering carries the
+safety cautions given to it (rules/cautions.yaml through load_rules()["cautions"]).
+Values are volts (amperes at supply points); p are posterior probabilities.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+import os
+from collections import Counter
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from diag.core.case import Case
+from diag.core.engine import Diagnosis, Engine, Reading
+
+STATUSES = ("fault", "healthy", "no-fit")
+
+
+@dataclass(frozen=True)
+class UnitResult:
+    """One unit: its readings, its diagnosis, its status (`fault`; `healthy`: the leading
+    suspect is the healthy circuit or cannot be told from it by the offered readings, so
+    no fault is found; `no-fit`: no hypothesis explains the readings) and the
+    observables it lacks that the rest of the batch measured (`missing`)."""
+
+    unit: str
+    readings: tuple[Reading, ...]
+    diagnosis: Diagnosis
+    status: str
+    missing: tuple[tuple[str, str], ...] = ()
+
+    @property
+    def incomplete(self) -> bool:
+        return bool(self.missing)
+
+    @property
+    def top(self):
+        return self.diagnosis.suspects[0]
+
+
+@dataclass(frozen=True)
+class TriageResult:
+    """A triaged batch. `units` in order of first appearance; `rejected` holds the
+    malformed rows of the batch file as messages naming their row; `summary` is the
+    JSON-ready summary (see `summarise`)."""
+
+    case: Case
+    engine: Engine
+    units: tuple[UnitResult, ...]
+    rejected: tuple[str, ...] = ()
+    summary: dict = field(default_factory=dict)
+
+    def unit(self, name: str) -> UnitResult:
+        for u in self.units:
+            if u.unit == name:
+                return u
+        raise KeyError(name)
+
+
+def _status(d: Diagnosis) -> str:
+    """`no-fit` when no hypothesis explains the readings; `healthy` when the leading
+    suspect is the healthy circuit or one the readings cannot tell from it (same group);
+    `fault` otherwise."""
+    if not d.fits:
+        return "no-fit"
+    healthy = next((s.group for s in d.suspects if s.fault == "healthy"), None)
+    if d.suspects and d.suspects[0].group == healthy:
+        return "healthy"
+    return "fault"
+
+
+def rank_batch(engine: Engine, units: Sequence[Sequence[Reading]],
+               progress: Callable[[float], None] | None = None,
+               cancelled: Callable[[], bool] | None = None,
+               healthy_prior: float | None = None, chunk: int = 64,
+               threads: int | None = None) -> list[Diagnosis]:
+    """Diagnose every unit, the same as `engine.diagnose` one unit at a time.
+
+    Uses the engine's own batch entry point when it has one; otherwise `BatchScorer`
+    scores all units that share a set of taken readings at once, `chunk` units per block,
+    blocks spread over `threads` worker threads (default: the CPU count, at most 4).
+    `progress(f)` gets 0..1; `cancelled()` is checked between blocks (InterruptedError).
+    """
+    batch = getattr(engine, "diagnose_batch", None)
+    if batch is not None:
+        return list(batch(units, progress=progress, cancelled=cancelled,
+                          healthy_prior=healthy_prior))
+    return BatchScorer(engine, healthy_prior).run(units, progress, cancelled, chunk,
+                                                  threads)
+
+
+# The kernel product is taken to a logarithm every this many readings, so that it stays
+# far inside the float64 range (each factor lies between eps/W and 0.4).
+_LOG_EVERY = 16
+
+
+def kernel_loglik(ut: np.ndarray, Ut: np.ndarray, logpeak: np.ndarray, c: np.ndarray
+                  ) -> np.ndarray:
+    """log prod_j [ exp(logpeak_hj - (ut_ihj - Ut_jhk)^2) + c_j ], shape (n, H, K).
+
+    This is infer's per-unit kernel mixture, log of (1-eps) N(u; U, s^2) + eps/W, with
+    the readings and units pre-divided by s*sqrt(2) (ut (n, H, d), Ut (d, H, K)),
+    logpeak = log((1-eps) / (s sqrt(2 pi))) (H, d) and c = eps / W (d,). NaN units give
+    -inf. One pass over (n, H, K) per reading, one logarithm per _LOG_EVERY readings.
+    """
+    n, H, d = ut.shape
+    K = Ut.shape[2]
+    out = np.zeros((n, H, K))
+    prod = np.ones((n, H, K))
+    w = np.empty((n, H, K))
+    with np.errstate(invalid="ignore", over="ignore", under="ignore", divide="ignore"):
+        for j in range(d):
+            np.subtract(ut[:, :, j, None], Ut[j][None], out=w)
+            np.square(w, out=w)
+            np.subtract(logpeak[None, :, j, None], w, out=w)
+            np.exp(w, out=w)
+            w += c[j]
+            prod *= w
+            if (j + 1) % _LOG_EVERY == 0 or j == d - 1:
+                out += np.log(prod)
+                prod.fill(1.0)
+    out[np.isnan(out)] = -np.inf
+    return out
+
+
+class BatchScorer:
+    """Engine.diagnose vectorised across units (see infer.py for the likelihood).
+
+    Units are grouped by the set S of observables they read. For a group, the kernel
+    mixture of infer.score is evaluated for a block of units at once as a product over
+    the readings in S (one logarithm per unit, hypothesis and drawn unit instead of one
+    per reading; the same value to rounding). The goodness-of-fit reference of
+    infer.fit_pvalue does not depend on the readings, only on (hypothesis, S): it is
+    computed once per pair and each unit's p-value is a lookup in it. A unit that no
+    single hypothesis fits goes to Engine.diagnose itself (it tries pairs of faults);
+    the next-reading advice, bench notes and texts are the engine's own.
+    """
+
+    def __init__(self, engine: Engine, healthy_prior: float | None = None):
+        from diag.core import infer
+
+        self.engine = engine
+        ens = engine.ensemble
+        inf = engine.inf
+        hp = float(inf["healthy_prior"]) if healthy_prior is None else float(healthy_prior)
+        if not 0.0 <= hp < 1.0:
+            from diag.core.errors import DiagError
+
+            raise DiagError(f"healthy prior {hp} must lie in [0, 1)",
+                            hint="e.g. --healthy-prior 0.02")
+        self.hp = hp
+        self.infer = infer
+        self.U = engine._U
+        self.specs = list(engine.specs)
+        self.eps = float(inf["blunder"])
+        self.alpha = float(inf["fit_alpha"])
+        self.top = int(inf["fit_test_top"])
+        self.lo, self.W = engine._blunder
+        self.spread = engine._spread
+        with np.errstate(divide="ignore"):
+            self.log_prior = np.log(engine._priors(hp, self.specs))
+        self.valid = np.all(np.isfinite(self.U), axis=2)
+        self.n = self.valid.sum(axis=1)
+        self.ref = ens.ref
+        self.group = ens.group
+        self._refs: dict[tuple[int, tuple[int, ...]], tuple] = {}
+        self._acc = engine._accuracy_fn()
+
+    # -- one group of units reading the same observables --------------------------------
+
+    def _prepare(self, key: tuple[int, ...]) -> dict:
+        idx = np.array(key, dtype=int)
+        d = len(idx)
+        s = np.sqrt(1.0 + self.infer.bandwidth(self.U, d, self.spread)[:, idx] ** 2)
+        scale = s * math.sqrt(2.0)                                   # (H, d)
+        Ut = self.U[:, :, idx] / scale[:, None, :]                   # (H, K, d)
+        return {"idx": idx, "s": s, "scale": scale,
+                "Ut": np.ascontiguousarray(np.moveaxis(Ut, 2, 0)),  # (d, H, K)
+                "logpeak": np.log((1.0 - self.eps) / (s * math.sqrt(2.0 * math.pi))),
+                "c": self.eps / self.W[idx]}
+
+    def _score(self, g: dict, u_read: np.ndarray):
+        """Per-unit log-likelihood (n, H, K), log-likelihood (n, H), posterior (n, H) of
+        readings u_read (n, d) in u coordinates."""
+        llk = kernel_loglik(u_read[:, None, :] / g["scale"][None], g["Ut"], g["logpeak"],
+                            g["c"])
+        llk = np.where(self.valid[None], llk, -np.inf)
+        ll = self.infer._logmeanexp(llk, self.n)
+        lp = self.log_prior[None] + ll
+        fin = np.isfinite(lp)
+        m = np.where(fin.any(axis=1), np.max(np.where(fin, lp, -np.inf), axis=1), 0.0)
+        with np.errstate(over="ignore", invalid="ignore"):
+            post = np.exp(lp - m[:, None])
+        post = np.where(np.isfinite(post), post, 0.0)
+        tot = post.sum(axis=1, keepdims=True)
+        post = np.where(tot > 0, post / np.where(tot > 0, tot, 1.0), 1.0 / post.shape[1])
+        return llk, ll, post
+
+    def _reference(self, h: int, g: dict):
+        """Sorted goodness-of-fit reference statistics of hypothesis h for the readings
+        S of group g, and the kernel widths it used (d,); None with fewer than 3 units."""
+        key = (h, tuple(int(j) for j in g["idx"]))
+        if key in self._refs:
+            return self._refs[key]
+        inf, idx, eps = self.infer, g["idx"], self.eps
+        valid = self.valid[h]
+        if valid.sum() < 3:
+            self._refs[key] = None
+            return None
+        Uv = self.U[h][valid][:, idx]
+        Kv = Uv.shape[0]
+        s = np.sqrt(1.0 + inf.bandwidth(self.U[h][valid][None], len(idx),
+                                        self.spread[h][None])[0, idx] ** 2)
+        r = self.ref
+        k = r["ref_k"] % Kv
+        sim = Uv[k] + r["ref_z"][:, idx]
+        blunder = self.lo[idx] + r["ref_w"][:, idx] * self.W[idx]
+        sim = np.where(r["ref_b"][:, idx] < eps, blunder, sim)
+        scale = s * math.sqrt(2.0)
+        llk = kernel_loglik((sim / scale)[:, None, :], (Uv / scale).T[:, None, :],
+                            np.log((1.0 - eps) / (s * math.sqrt(2.0 * math.pi)))[None],
+                            eps / self.W[idx])[:, 0, :]
+        llk[np.arange(len(k)), k] = -np.inf
+        ref = inf._logmeanexp(llk, np.array(Kv - 1))
+        out = (np.sort(ref[~np.isnan(ref)]), len(ref), s, Uv)
+        self._refs[key] = out
+        return out
+
+    def _pvalue(self, h: int, g: dict, ll_h: float, u_read: np.ndarray) -> float:
+        got = self._reference(h, g)
+        if got is None:
+            return 0.0
+        ref, R, s, Uv = got
+        if np.array_equal(s, g["s"][h]):
+            obs = ll_h
+        else:  # units with a gap at some readings only: the fit's own kernel widths
+            obs = float(self.infer._logmeanexp(self.infer._log_kernel(
+                Uv, u_read, s, self.eps, self.W[g["idx"]]), np.array(Uv.shape[0])))
+        count = np.searchsorted(ref, obs, side="right")
+        return float((count + 1) / (R + 1))
+
+    def _finish(self, rs, idx, vals, rejected, llk, ll, post, u_read, g) -> Diagnosis:
+        from diag.core import notes
+        from diag.core.engine import Suspect
+
+        eng = self.engine
+        d = len(idx)
+        if d:
+            pval = max(self._pvalue(int(h), g, float(ll[h]), u_read)
+                       for h in np.argsort(-post)[:self.top])
+        else:
+            pval = 1.0
+        if pval < self.alpha and d:
+            return eng.diagnose(rs, healthy_prior=self.hp)
+        order = np.argsort(-post, kind="stable")
+        renum: dict[int, int] = {}
+        specs = self.specs
+        suspects = []
+        for h in order:
+            gr = renum.setdefault(int(self.group[h]), len(renum))
+            suspects.append(Suspect(specs[h].id, float(post[h]), gr, specs[h].text))
+        if d < len(eng.observables):
+            nxt = eng._advise(self.U, specs, self.infer.Scored(ll, llk, post), idx, order,
+                              self.group)
+        else:
+            nxt = []
+        obs = eng.observables
+        nts = tuple(notes.bench_notes(eng.case, eng.rules, [
+            Reading(obs[j].point, obs[j].kind, v) for j, v in zip(idx, vals, strict=True)],
+            self._acc))
+        fit_text = eng._fit_text(True, pval, d, specs[order[0]], False)
+        confirm = {specs[h].id: specs[h].confirm for h in order[:5]}
+        return Diagnosis(d, True, tuple(suspects), tuple(nxt), nts, fit_text,
+                         tuple(rejected), {"p_value": pval, "pairs_tried": False,
+                                           "confirm": confirm})
+
+    def _block(self, items: list[int], matched, units, g: dict, out: list) -> None:
+        if not len(g["idx"]):
+            for i in items:
+                out[i] = self.engine.diagnose(units[i], healthy_prior=self.hp)
+            return
+        vals = np.stack([matched[i][1] for i in items])
+        u_read = self.engine._noise_obj.u(vals, g["idx"])
+        llk, ll, post = self._score(g, u_read)
+        for r, i in enumerate(items):
+            idx, v, rej = matched[i]
+            out[i] = self._finish(units[i], idx, v, rej, llk[r], ll[r], post[r], u_read[r], g)
+
+    def run(self, units: Sequence[Sequence[Reading]], progress=None, cancelled=None,
+            chunk: int = 64, threads: int | None = None) -> list[Diagnosis]:
+        from concurrent.futures import ThreadPoolExecutor
+
+        matched = [self.engine._match(rs) for rs in units]
+        by_key: dict[tuple[int, ...], list[int]] = {}
+        for i, (idx, _, _) in enumerate(matched):
+            by_key.setdefault(tuple(int(j) for j in idx), []).append(i)
+        blocks = []
+        for key, members in by_key.items():
+            g = self._prepare(key)
+            for b in range(0, len(members), chunk):
+                blocks.append((members[b:b + chunk], g))
+        out: list = [None] * len(units)
+        if threads is None:
+            threads = max(1, min(4, os.cpu_count() or 1))
+        done = 0
+        with ThreadPoolExecutor(max_workers=threads) as pool:
+            futures = []
+            for items, g in blocks:
+                futures.append((len(items), pool.submit(self._block, items, matched, units,
+                                                        g, out)))
+            for n, f in futures:
+                if cancelled is not None and cancelled():
+                    for _, rest in futures:
+                        rest.cancel()
+                    raise InterruptedError("triage cancelled")
+                f.result()
+                done += n
+                if progress is not None:
+                    progress(done / max(len(units), 1))
+        return out
+
+
+def triage(engine: Engine, units: Mapping[str, Sequence[Reading]],
+           rejected: Sequence[str] = (),
+           progress: Callable[[float], None] | None = None,
+           cancelled: Callable[[], bool] | None = None,
+           healthy_prior: float | None = None) -> TriageResult:
+    """Triage a batch: `units` maps unit id -> its readings (insertion order = order of
+    first appearance in the file); `rejected` are the row messages of malformed rows."""
+    names = list(units)
+    readings = [tuple(units[n]) for n in names]
+    measured = set()
+    for rs in readings:
+        measured.update((r.point, r.kind) for r in rs)
+    order = [(o.point, o.kind) for o in engine.case.observables if (o.point, o.kind) in
+             measured]
+    diags = rank_batch(engine, readings, progress=progress, cancelled=cancelled,
+                       healthy_prior=healthy_prior)
+    results = []
+    for name, rs, d in zip(names, readings, diags, strict=True):
+        have = {(r.point, r.kind) for r in rs}
+        results.append(UnitResult(unit=name, readings=rs, diagnosis=d, status=_status(d),
+                                  missing=tuple(k for k in order if k not in have)))
+    res = TriageResult(case=engine.case, engine=engine, units=tuple(results),
+                       rejected=tuple(rejected))
+    object.__setattr__(res, "summary", summarise(res))
+    return res
+
+
+def summarise(res: TriageResult) -> dict[str, Any]:
+    """Counts across the batch (JSON-ready).
+
+    by_fault / by_part: units whose leading suspect is that fault / involves that part
+    (units that fit and are not healthy), with `expected`, the sum over those units of the
+    posterior p of the fault (of every fault involving the part); most units first.
+    """
+    hyps = {h.id: h for h in res.engine.ensemble.hypotheses}
+    by_fault: Counter = Counter()
+    by_part: Counter = Counter()
+    exp_fault: Counter = Counter()
+    exp_part: Counter = Counter()
+    for u in res.units:
+        if u.status != "fault":
+            continue
+        top = u.top.fault
+        by_fault[top] += 1
+        for ref in _parts(hyps, top):
+            by_part[ref] += 1
+        for s in u.diagnosis.suspects:
+            if s.fault == "healthy" or s.p <= 0:
+                continue
+            exp_fault[s.fault] += s.p
+            for ref in _parts(hyps, s.fault):
+                exp_part[ref] += s.p
+
+    def table(counts: Counter, expected: Counter, key: str) -> list[dict]:
+        rows = [{key: k, "units": n, "expected": round(float(expected[k]), 3)}
+                for k, n in counts.items()]
+        rows.sort(key=lambda r: (-r["units"], -r["expected"], r[key]))
+        return rows
+
+    return {
+        "units": len(res.units),
+        "rows_rejected": len(res.rejected),
+        "faulty": sum(u.status == "fault" for u in res.units),
+        "by_fault": table(by_fault, exp_fault, "fault"),
+        "by_part": table(by_part, exp_part, "part"),
+        "no_fit": [u.unit for u in res.units if u.status == "no-fit"],
+        "healthy": [u.unit for u in res.units if u.status == "healthy"],
+        "incomplete": [{"unit": u.unit, "missing": [f"{p} {k}" for p, k in u.missing]}
+                       for u in res.units if u.incomplete],
+        "rejected": list(res.rejected),
+    }
+
+
+def _parts(hyps: Mapping, fault_id: str) -> tuple[str, ...]:
+    h = hyps.get(fault_id)
+    if h is not None and h.parts:
+        return tuple(h.parts)
+    if fault_id == "healthy":
+        return ()
+    return tuple(m.split(":")[0] for m in fault_id.split("+"))
+
+
+# ---- cautions and renderings ---------------------------------------------------------
+
+
+def caution_lines(rules) -> list[str]:
+    """The safety cautions of rules/cautions.yaml (load_rules()["cautions"], read through
+    session.load_cautions, which checks them) as one line each, "title: text", with the
+    closing sentence that defers to local codes last."""
+    from diag.core.session import load_cautions
+
+    cautions, defer = load_cautions(rules)
+    out = [" ".join(f"{c.title}: {c.text}".split()) for c in cautions]
+    if defer:
+        out.append(" ".join(defer.split()))
+    return out
+
+
+def to_json(res: TriageResult, case_path: str, cautions: Sequence[str] = (),
+            top: int | None = None) -> dict[str, Any]:
+    """SPEC section 5: {"case", "units": [diagnose object + "unit"], "summary"}; extra
+    per-unit fields `status` and `missing`, and a top-level `cautions` list."""
+    units = []
+    for u in res.units:
+        obj = {"unit": u.unit}
+        obj.update(u.diagnosis.to_json(case_path, top=top))
+        obj["unit"] = u.unit
+        obj["status"] = u.status
+        obj["missing"] = [f"{p} {k}" for p, k in u.missing]
+        units.append(obj)
+    return {"case": case_path, "units": units, "summary": res.summary,
+            "cautions": list(cautions)}
+
+
+def _next_text(d: Diagnosis) -> str:
+    return f"{d.next[0].point} {d.next[0].kind}" if d.next else "-"
+
+
+def _suspects_text(d: Diagnosis, top: int) -> str:
+    return ", ".join(f"{s.fault} {s.p:.2f}" for s in d.suspects[:top])
+
+
+def to_markdown(res: TriageResult, case_path: str, cautions: Sequence[str] = (),
+                top: int = 3) -> str:
+    """A Markdown report: summary tables, the lists to act on, then one row per unit."""
+    s = res.summary
+    w = io.StringIO()
+    w.write(f"# Batch triage: {res.case.title}\n\nCase `{case_path}`; {s['units']} units, "
+            f"{s['faulty']} with a fault found, {len(s['healthy'])} healthy, "
+            f"{len(s['no_fit'])} fit no hypothesis, {len(s['incomplete'])} incomplete; "
+            f"{s['rows_rejected']} rows rejected.\n\n")
+    if cautions:
+        w.write("## Safety\n\n")
+        for c in cautions:
+            w.write(f"- {c}\n")
+        w.write("\n")
+    for title, key, col in (("Faults found", "by_fault", "fault"),
+                            ("Parts involved", "by_part", "part")):
+        w.write(f"## {title}\n\n| {col} | units | expected |\n|---|---:|---:|\n")
+        for r in s[key]:
+            w.write(f"| {r[col]} | {r['units']} | {r['expected']:.1f} |\n")
+        if not s[key]:
+            w.write("| (none) | 0 | 0.0 |\n")
+        w.write("\n")
+    w.write("## Fit no hypothesis (send to engineering)\n\n")
+    w.write((", ".join(s["no_fit"]) or "none") + "\n\n")
+    w.write("## No fault found\n\n" + (", ".join(s["healthy"]) or "none") + "\n\n")
+    w.write("## Incomplete readings\n\n")
+    for r in s["incomplete"]:
+        w.write(f"- {r['unit']}: missing {', '.join(r['missing'])}\n")
+    if not s["incomplete"]:
+        w.write("none\n")
+    w.write("\n")
+    if res.rejected:
+        w.write("## Rejected rows\n\n")
+        for m in res.rejected:
+            w.write(f"- {m}\n")
+        w.write("\n")
+    w.write("## Units\n\n| unit | status | top suspects (p) | fits | next reading |\n"
+            "|---|---|---|---|---|\n")
+    for u in res.units:
+        d = u.diagnosis
+        w.write(f"| {u.unit} | {u.status}{' (incomplete)' if u.incomplete else ''} | "
+                f"{_suspects_text(d, top)} | {'yes' if d.fits else 'no'} | "
+                f"{_next_text(d)} |\n")
+    return w.getvalue()
+
+
+CSV_FIELDS = ("unit", "status", "fits", "readings_used", "fault_1", "p_1", "fault_2", "p_2",
+              "fault_3", "p_3", "next_point", "next_kind", "next_bits", "missing")
+
+
+def to_csv(res: TriageResult, cautions: Sequence[str] = ()) -> str:
+    """One row per unit (CSV_FIELDS). The cautions come first as `#` comment lines."""
+    w = io.StringIO()
+    for c in cautions:
+        w.write(f"# caution: {c}\n")
+    cw = csv.DictWriter(w, fieldnames=CSV_FIELDS, lineterminator="\n")
+    cw.writeheader()
+    for u in res.units:
+        d = u.diagnosis
+        row = {"unit": u.unit, "status": u.status, "fits": int(bool(d.fits)),
+               "readings_used": d.readings_used,
+               "missing": " ".join(f"{p}:{k}" for p, k in u.missing)}
+        for i, sus in enumerate(d.suspects[:3], start=1):
+            row[f"fault_{i}"] = sus.fault
+            row[f"p_{i}"] = f"{sus.p:.4f}"
+        if d.next:
+            row.update(next_point=d.next[0].point, next_kind=d.next[0].kind,
+                       next_bits=f"{d.next[0].bits:.3f}")
+        cw.writerow(row)
+    return w.getvalue()
+

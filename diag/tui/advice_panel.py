@@ -1,0 +1,41 @@
+"""The proposed next reading with its reason, and the bench notes drawn from the
+readings so far."""
+
+from __future__ import annotations
+
+from textual.widgets import Static
+
+from diag.core.engine import Diagnosis
+from diag.tui.fmt import esc
+
+
+class NextReadingPanel(Static):
+    """The best next reading (expected information per unit of effort) and its reason."""
+
+    def show(self, diagnosis: Diagnosis | None) -> None:
+        if diagnosis is None:
+            self.update("[dim]next reading: waiting for the predictions…[/dim]")
+            return
+        if not diagnosis.next:
+            self.update("[b]next reading:[/b] nothing left that would tell the suspects "
+                        "apart; confirm the leader at the bench (d for its detail)")
+            return
+        n = diagnosis.next[0]
+        more = ", ".join(f"{esc(x.point)} {x.kind}" for x in diagnosis.next[1:3])
+        tail = f"\n[dim]then: {more}[/dim]" if more else ""
+        self.update(f"[b]next reading ▸ {esc(n.point)} {n.kind}[/b]  "
+                    f"[dim]({n.bits:.2f} bits)[/dim]\n{esc(n.why)}{tail}")
+
+
+class BenchNotesPanel(Static):
+    """Plain-language findings from the readings alone, and readings not used."""
+
+    def show(self, diagnosis: Diagnosis | None) -> None:
+        if diagnosis is None:
+            self.update("")
+            return
+        lines = [] if diagnosis.fits else [f"[b $error]⚠ {esc(diagnosis.fit_text)}[/]"]
+        lines += [f"• {esc(t)}" for t in diagnosis.notes]
+        lines += [f"[yellow]✗ {esc(t)}[/yellow]" for t in diagnosis.rejected]
+        self.update("[b]bench notes[/b]\n" + ("\n".join(lines) if lines
+                                              else "[dim]none yet[/dim]"))

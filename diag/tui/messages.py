@@ -1,0 +1,64 @@
+"""Events the interface's widgets and workers post: small dataclasses named for what
+happened. Workers post them from their threads (post_message is thread-safe)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from textual.message import Message
+
+from diag.core.engine import Band, Diagnosis, Reading
+
+
+@dataclass
+class ReadingEntered(Message):
+    """A value was typed at (point, kind) and passed validation."""
+
+    reading: Reading
+
+
+@dataclass
+class ReadingRejected(Message):
+    """A typed value failed validation; `why` says what is wrong and what to do."""
+
+    point: str
+    kind: str
+    text: str
+    why: str
+
+
+@dataclass
+class EnsembleProgressed(Message):
+    """The prediction build advanced; `fraction` is 0..1."""
+
+    fraction: float
+
+
+@dataclass
+class EnsembleBuilt(Message):
+    """The predictions for every hypothesis are ready; `healthy` is the healthy band at
+    every observable, in case order."""
+
+    healthy: tuple[Band, ...]
+
+
+@dataclass
+class EnsembleFailed(Message):
+    """The prediction build stopped with an error a user can read."""
+
+    why: str
+
+
+@dataclass
+class RankingUpdated(Message):
+    """A new diagnosis for the readings of update number `serial`."""
+
+    serial: int
+    diagnosis: Diagnosis
+
+
+@dataclass
+class CasePicked(Message):
+    """The picker chose a case file to open."""
+
+    path: str

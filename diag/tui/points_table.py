@@ -1,0 +1,70 @@
+"""The test-point table of the session screen: where to probe, the healthy band, the
+reading taken and how far it sits from healthy. Rows are keyed "POINT/kind"."""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual.widgets import DataTable
+
+from diag.core.case import Case, Observable
+from diag.core.engine import Band, Reading
+from diag.core.session import band_offset
+from diag.tui import fmt
+
+
+def row_key(point: str, kind: str) -> str:
+    return f"{point}/{kind}"
+
+
+class PointsTable(DataTable):
+    """One row per offered reading (point, kind), in case order. Given immutable data
+    through `show`; the screen decides what to do when a row is selected."""
+
+    COLUMNS = (("point", "point"), ("kind", "kind"), ("where to probe", "where"),
+               ("healthy", "healthy"), ("reading", "reading"), ("off healthy", "off"))
+
+    def __init__(self, case: Case, **kwargs) -> None:
+        super().__init__(cursor_type="row", zebra_stripes=True, **kwargs)
+        self.case = case
+        self.observables: tuple[Observable, ...] = case.observables
+
+    def on_mount(self) -> None:
+        for label, key in self.COLUMNS:
+            if key == "where":
+                self.add_column(label, key=key, width=30 if self.app.size.width >= 110 else 14)
+            else:
+                self.add_column(label, key=key)
+        for o in self.observables:
+            where = self.case.point(o.point).where
+            self.add_row(Text(o.point, style="bold"), o.kind, Text(where, overflow="ellipsis"),
+                         "…", "", "", key=row_key(o.point, o.kind))
+
+    def observable_at_cursor(self) -> Observable | None:
+        if not self.row_count:
+            return None
+        return self.observables[min(self.cursor_row, len(self.observables) - 1)]
+
+    def show(self, bands: dict[tuple[str, str], Band] | None,
+             readings: dict[tuple[str, str], Reading]) -> None:
+        """Refresh the band, reading and offset cells."""
+        for o in self.observables:
+            key = row_key(o.point, o.kind)
+            band = bands.get((o.point, o.kind)) if bands else None
+            r = readings.get((o.point, o.kind))
+            unit = o.unit
+            healthy = (f"{fmt.value(band.low, unit)} … {fmt.value(band.high, unit)}"
+                       if band else "…")
+            self.update_cell(key, "healthy", healthy, update_width=True)
+            self.update_cell(key, "reading",
+                             Text(fmt.reading(r.value, unit), style="bold") if r else "",
+                             update_width=True)
+            if r is None or band is None:
+                off = Text("")
+            else:
+                d = band_offset(band, r.value)
+                if d == 0:
+                    off = Text("in band", style="green")
+                else:
+                    arrow = "▲" if d > 0 else "▼"
+                    off = Text(f"{arrow} {fmt.value(abs(d), unit)}", style="bold yellow")
+            self.update_cell(key, "off", off, update_width=True)

@@ -1,0 +1,385 @@
+"""The bench session screen: test points and readings, the live ranking of suspects, the
+next reading to take, bench notes and the `fits` warning.
+
+CONSTRUCTOR (stable; diag.tui.batch_screen and the app use it):
+
+    SessionScreen(engine, readings=(), *, session=None, label=None)
+
+    engine    a diag.core.engine.Engine for the case (`engine.case` is the loaded Case).
+              Its predictions are built here in a thread worker if not built yet; the
+              screen stays responsive and shows the progress.
+    readings  Reading objects to start from (for example one unit of a triage batch);
+              ignored when `session` is given.
+    session   a diag.core.session.Session to resume (readings, undo history, notes).
+    label     kept in the autosave file name (a batch unit id), so that a unit opened
+              from a batch does not overwrite the bench session of the case.
+
+Every accepted reading is autosaved at once (atomic write) and the ranking is redone in a
+thread worker; stale results (an older reading set) are dropped.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from textual import on, work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical
+from textual.events import Key
+from textual.screen import Screen
+from textual.widgets import DataTable, Footer, Input, Label, ProgressBar, Static
+from textual.worker import get_current_worker
+
+from diag.core.engine import Band, Diagnosis, Engine, Reading
+from diag.core.errors import DiagError
+from diag.core.session import Session, new_session
+from diag.tui.advice_panel import BenchNotesPanel, NextReadingPanel
+from diag.tui.fit_banner import FitBanner
+from diag.tui.fmt import esc
+from diag.tui.messages import (
+    EnsembleBuilt,
+    EnsembleFailed,
+    EnsembleProgressed,
+    RankingUpdated,
+    ReadingEntered,
+    ReadingRejected,
+)
+from diag.tui.points_table import PointsTable, row_key
+from diag.tui.suspects_table import SuspectsTable
+
+_TYPING = set("0123456789.-+")
+
+
+class SessionScreen(Screen[None]):
+    HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
+
+    BINDINGS = [
+        Binding("e", "enter_reading", "Type reading", id="session.enter"),
+        Binding("x,delete", "clear_reading", "Clear reading", id="session.clear"),
+        Binding("u,ctrl+z", "undo", "Undo", id="session.undo"),
+        Binding("g", "goto_next", "Go to next", id="session.goto_next"),
+        Binding("d", "detail", "Suspect detail", id="session.detail"),
+        Binding("n", "node", "Around node", id="session.node"),
+        Binding("o", "notes", "Notes", id="session.notes"),
+        Binding("w", "export", "Write report", id="session.export"),
+        Binding("s", "focus_suspects", "Suspects", id="session.suspects"),
+        Binding("p", "focus_points", "Points", id="session.points"),
+        Binding("escape", "leave_entry", "Back to table", id="session.leave_entry", show=False),
+    ]
+
+    def __init__(self, engine: Engine, readings=(), *, session: Session | None = None,
+                 label: str | None = None) -> None:
+        super().__init__()
+        self.engine = engine
+        self.case = engine.case
+        self.session = session if session is not None else new_session(
+            self.case, readings, label=label)
+        self.bands: dict[tuple[str, str], Band] | None = None
+        self.diagnosis: Diagnosis | None = None
+        self.ready = False
+        self.serial = 0
+        self.shown_serial = -1
+        self.last_error = ""
+        self._typing = False
+
+    # ------------------------------------------------------------------ layout
+
+    def compose(self) -> ComposeResult:
+        n_parts, n_points = len(self.case.parts), len(self.case.points)
+        yield Static(f"[b]diag bench[/b] · {esc(self.case.title)} "
+                     f"[dim]({n_parts} parts, {n_points} points)[/dim]", id="title-bar")
+        yield FitBanner(id="fit-banner")
+        with Horizontal(id="body"):
+            with Vertical(id="left"):
+                yield PointsTable(self.case, id="points")
+                with Horizontal(id="entry-row"):
+                    yield Label("", id="entry-label")
+                    yield Input(placeholder="type a value, e.g. 1.48, 312m, 0.71 V",
+                                id="entry", select_on_focus=False)
+                yield Static("", id="entry-msg", markup=False)
+            with Vertical(id="right"):
+                with Horizontal(id="build-row"):
+                    yield Label("building predictions", id="build-label")
+                    yield ProgressBar(total=1.0, show_eta=False, id="build-progress")
+                yield SuspectsTable(id="suspects")
+                yield NextReadingPanel(id="next")
+                yield BenchNotesPanel(id="bench-notes")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.query_one(FitBanner).display = False
+        self.query_one("#points", PointsTable).focus()
+        self._show_readings()
+        self._sync_entry_label()
+        self.query_one(NextReadingPanel).show(None)
+        self.build_ensemble()
+
+    # ------------------------------------------------------------------ workers
+
+    @work(thread=True, exclusive=True, group="ensemble", exit_on_error=False)
+    def build_ensemble(self) -> None:
+        """Build (or load from the cache) the predictions; posts progress and the end."""
+        worker = get_current_worker()
+        try:
+            self.engine.build(progress=lambda f: self.post_message(EnsembleProgressed(f)),
+                              cancelled=lambda: worker.is_cancelled)
+            healthy = tuple(self.engine.bands("healthy"))
+        except DiagError as exc:
+            self.post_message(EnsembleFailed(str(exc)))
+            return
+        if not worker.is_cancelled:
+            self.post_message(EnsembleBuilt(healthy))
+
+    @work(thread=True, exclusive=True, group="ranking", exit_on_error=False)
+    def rank(self, serial: int, readings: tuple[Reading, ...]) -> None:
+        """Diagnose one reading set; the result carries its serial so stale ones drop."""
+        worker = get_current_worker()
+        try:
+            d = self.engine.diagnose(readings)
+        except DiagError as exc:
+            self.post_message(EnsembleFailed(str(exc)))
+            return
+        if not worker.is_cancelled:
+            self.post_message(RankingUpdated(serial, d))
+
+    def request_ranking(self) -> None:
+        self.serial += 1
+        if self.ready:
+            self.rank(self.serial, tuple(self.session.readings))
+
+    # ------------------------------------------------------------------ events
+
+    def on_ensemble_progressed(self, msg: EnsembleProgressed) -> None:
+        self.query_one("#build-progress", ProgressBar).update(progress=msg.fraction)
+
+    def on_ensemble_built(self, msg: EnsembleBuilt) -> None:
+        self.bands = {(b.observable.point, b.observable.kind): b for b in msg.healthy}
+        self.ready = True
+        self.query_one("#build-row").display = False
+        self._show_readings()
+        self.request_ranking()
+        self.refresh_bindings()
+
+    def on_ensemble_failed(self, msg: EnsembleFailed) -> None:
+        self.query_one("#build-label", Label).update("predictions failed")
+        self._message(f"predictions failed: {msg.why}")
+        self.notify(msg.why, title="predictions failed", severity="error", timeout=10)
+
+    def on_ranking_updated(self, msg: RankingUpdated) -> None:
+        if msg.serial < self.shown_serial or msg.serial != self.serial:
+            return
+        self.shown_serial = msg.serial
+        self.diagnosis = msg.diagnosis
+        self.query_one(SuspectsTable).show(msg.diagnosis)
+        self.query_one(NextReadingPanel).show(msg.diagnosis)
+        self.query_one(BenchNotesPanel).show(msg.diagnosis)
+        self.query_one(FitBanner).show(msg.diagnosis)
+        self.refresh_bindings()
+
+    @on(DataTable.RowHighlighted, "#points")
+    def _row_moved(self) -> None:
+        self._sync_entry_label()
+
+    @on(DataTable.RowSelected, "#points")
+    def _row_chosen(self) -> None:
+        self.action_enter_reading()
+
+    @on(DataTable.RowSelected, "#suspects")
+    def _suspect_chosen(self) -> None:
+        self.action_detail()
+
+    def on_key(self, event: Key) -> None:
+        # typing a digit on the table starts the entry in place for the highlighted row;
+        # keys that arrive before the focus has moved are appended, not lost
+        if (event.character and event.character in _TYPING
+                and isinstance(self.focused, PointsTable)):
+            entry = self.query_one("#entry", Input)
+            entry.value = (entry.value if self._typing else "") + event.character
+            entry.cursor_position = len(entry.value)
+            self._typing = True
+            entry.focus()
+            event.stop()
+            event.prevent_default()
+
+    def on_descendant_focus(self, event) -> None:
+        if not isinstance(self.focused, PointsTable):
+            self._typing = False
+        self.refresh_bindings()
+
+    @on(Input.Submitted, "#entry")
+    def _entry_submitted(self, event: Input.Submitted) -> None:
+        o = self.query_one("#points", PointsTable).observable_at_cursor()
+        if o is None:
+            return
+        text = event.value.strip()
+        if not text:
+            self.action_leave_entry()
+            return
+        try:
+            value = self.engine.check_value(o.point, o.kind, text)
+        except DiagError as exc:
+            self.post_message(ReadingRejected(o.point, o.kind, text, str(exc)))
+            return
+        self.post_message(ReadingEntered(Reading(o.point, o.kind, value)))
+
+    def on_reading_rejected(self, msg: ReadingRejected) -> None:
+        self.last_error = msg.why
+        self._message(f"✗ {msg.point} {msg.kind}: {msg.why}  (other readings kept)",
+                      error=True)
+
+    def on_reading_entered(self, msg: ReadingEntered) -> None:
+        self.session.set_reading(msg.reading)
+        self.last_error = ""
+        self._after_change(f"{msg.reading.point} {msg.reading.kind} recorded")
+        entry = self.query_one("#entry", Input)
+        entry.value = ""
+        table = self.query_one("#points", PointsTable)
+        if table.cursor_row < table.row_count - 1:
+            table.move_cursor(row=table.cursor_row + 1, animate=False)
+        table.focus()
+
+    # ------------------------------------------------------------------ actions
+
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        if action == "undo":
+            return self.session.can_undo
+        if action == "clear_reading":
+            o = self._current()
+            return o is not None and self.session.reading(o.point, o.kind) is not None
+        if action in ("detail", "goto_next"):
+            if self.diagnosis is None:
+                return False
+            return bool(self.diagnosis.next) if action == "goto_next" else True
+        if action == "export":
+            return True
+        if action == "leave_entry":
+            return isinstance(self.focused, Input)
+        if action == "focus_suspects":
+            return not isinstance(self.focused, SuspectsTable)
+        if action == "focus_points":
+            return not isinstance(self.focused, PointsTable)
+        return True
+
+    def action_enter_reading(self) -> None:
+        self._sync_entry_label()
+        entry = self.query_one("#entry", Input)
+        o = self._current()
+        r = self.session.reading(o.point, o.kind) if o else None
+        entry.value = f"{r.value:.6g}" if r else ""
+        entry.focus()
+
+    def action_focus_suspects(self) -> None:
+        self.query_one(SuspectsTable).focus()
+
+    def action_focus_points(self) -> None:
+        self.query_one("#points", PointsTable).focus()
+
+    def action_leave_entry(self) -> None:
+        self.query_one("#entry", Input).value = ""
+        self.query_one("#points", PointsTable).focus()
+
+    def action_clear_reading(self) -> None:
+        o = self._current()
+        if o and self.session.clear_reading(o.point, o.kind):
+            self._after_change(f"{o.point} {o.kind} cleared")
+
+    def action_undo(self) -> None:
+        what = self.session.undo()
+        if what:
+            self._after_change(f"undone: {what[0]} {what[1]}")
+            self._goto(*what)
+
+    def action_goto_next(self) -> None:
+        if self.diagnosis and self.diagnosis.next:
+            n = self.diagnosis.next[0]
+            self._goto(n.point, n.kind)
+
+    def action_detail(self) -> None:
+        fault = self.query_one(SuspectsTable).selected_fault()
+        if fault is None:
+            return
+        from diag.tui.detail_screen import SuspectDetailScreen
+
+        self.app.push_screen(SuspectDetailScreen(self.engine, fault,
+                                                 tuple(self.session.readings), self.diagnosis))
+
+    def action_node(self) -> None:
+        o = self._current()
+        if o is None:
+            return
+        from diag.tui.node_screen import NodeScreen
+
+        self.app.push_screen(NodeScreen(self.case, o.point))
+
+    def action_notes(self) -> None:
+        from diag.tui.notes_dialog import NotesDialog
+
+        def keep(text: str | None) -> None:
+            if text is not None and text != self.session.notes:
+                self.session.notes = text
+                self._autosave()
+                self._message("notes kept")
+
+        self.app.push_screen(NotesDialog(self.session.notes), keep)
+
+    def action_export(self, error: str = "") -> None:
+        from diag.tui.export_dialog import ExportDialog
+
+        default = str(Path.cwd() / f"{Path(self.case.path).stem}-report.md")
+        self.app.push_screen(ExportDialog(default, error), self._write_report)
+
+    def _write_report(self, path: str | None) -> None:
+        if path is None:
+            return
+        from diag.core.session import export_report, report_markdown
+
+        cautions, defer = self.app.cautions()
+        text = report_markdown(self.case, self.session, self.diagnosis, cautions, defer)
+        try:
+            out = export_report(path, text)
+        except DiagError as exc:
+            self.action_export(error=str(exc))
+            return
+        self.app.last_report = out
+        self._message(f"report written to {out}")
+        self.notify(f"report written to {out}", title="report")
+
+    # ------------------------------------------------------------------ helpers
+
+    def _current(self):
+        return self.query_one("#points", PointsTable).observable_at_cursor()
+
+    def _goto(self, point: str, kind: str) -> None:
+        table = self.query_one("#points", PointsTable)
+        table.move_cursor(row=table.get_row_index(row_key(point, kind)), animate=False)
+        table.focus()
+
+    def _after_change(self, what: str) -> None:
+        self._show_readings()
+        self._autosave()
+        self._message(what)
+        self.request_ranking()
+        self.refresh_bindings()
+
+    def _autosave(self) -> None:
+        if self.session.path is None:
+            return
+        try:
+            self.session.save()
+        except OSError as exc:
+            self.notify(f"autosave failed: {exc}", severity="error")
+
+    def _show_readings(self) -> None:
+        readings = {(r.point, r.kind): r for r in self.session.readings}
+        self.query_one("#points", PointsTable).show(self.bands, readings)
+
+    def _sync_entry_label(self) -> None:
+        o = self._current()
+        label = f"{o.point} {o.kind} ▸" if o else "▸"
+        self.query_one("#entry-label", Label).update(label)
+
+    def _message(self, text: str, error: bool = False) -> None:
+        msg = self.query_one("#entry-msg", Static)
+        msg.update(text)
+        msg.set_class(error, "-error")

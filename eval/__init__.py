@@ -1,0 +1,1 @@
+"""Evaluation of diag's diagnosis on units generated with ngspice (see eval/README.md)."""

@@ -1,0 +1,257 @@
+"""Generate bench units with ngspice and write them as a SPEC batch plus a truth file.
+
+    python -m eval.generate --out DIR [--case CASE ...] [--per-fault N] [--healthy N]
+                            [--blunder N] [--unmodelled N] [--seed N]
+    python -m eval.generate --case CASE --units N --out DIR      # a mixed triage batch
+
+Sets: `fault` (every modelled single fault of SPEC section 3, made physical), `healthy`,
+`blunder` (a healthy or faulty unit with one reading mis-taken), `unmodelled` (two
+unrelated faults, a solder bridge, a transistor fitted with collector and emitter swapped).
+Each case gives DIR/<case>-batch.csv (`unit,point,kind,value`) and DIR/<case>-truth.csv
+(`unit,fault,set,detail`). Unit ids are shuffled so the batch order tells nothing.
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import json
+import math
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from diag.core.case import Case, load_case
+from diag.core.paths import cases_dir
+from diag.core.rules import load_rules
+from eval import inject, meterlike
+from eval.spicerun import ngspice_path, run_decks
+from eval.unit import BenchUnit, bench, draw_unit, measure_script
+
+# Shares of a mixed triage batch (--units N): healthy, single fault, blunder, unmodelled.
+MIX = {"healthy": 0.15, "fault": 0.65, "blunder": 0.10, "unmodelled": 0.10}
+
+
+@dataclass
+class GenUnit:
+    """One generated unit: its truth and, once measured, what the meter showed per
+    observable (None where the display overloaded or ngspice gave no answer)."""
+
+    set: str
+    fault: str
+    detail: str
+    bench: BenchUnit
+    seed: int
+    true: list[float] = field(default_factory=list)
+    shown: list[float | None] = field(default_factory=list)
+    id: str = ""
+
+
+def plan(case: Case, rng: np.random.Generator, per_fault: int, healthy: int,
+         blunder: int, unmodelled: int) -> list[tuple[str, str | None]]:
+    """The (set, fault-or-kind) list of units to build."""
+    faults = inject.single_faults(case)
+    out: list[tuple[str, str | None]] = [("healthy", None)] * healthy
+    out += [("fault", f) for f in faults for _ in range(per_fault)]
+    for _ in range(blunder):
+        out.append(("blunder", None if rng.random() < 1 / 3 else faults[
+            rng.integers(len(faults))]))
+    kinds = inject.unmodelled_kinds(case)
+    out += [("unmodelled", kinds[i % len(kinds)]) for i in range(unmodelled if kinds else 0)]
+    return out
+
+
+def plan_mix(case: Case, rng: np.random.Generator, n: int) -> list[tuple[str, str | None]]:
+    """A triage batch of `n` units drawn with the MIX shares (faults uniform over modes)."""
+    faults = inject.single_faults(case)
+    kinds = inject.unmodelled_kinds(case) or [None]
+    sets = rng.choice(list(MIX), size=n, p=list(MIX.values()))
+    out: list[tuple[str, str | None]] = []
+    for s in sets:
+        if s == "fault":
+            out.append(("fault", faults[rng.integers(len(faults))]))
+        elif s == "blunder":
+            out.append(("blunder", None if rng.random() < 1 / 3 else faults[
+                rng.integers(len(faults))]))
+        elif s == "unmodelled" and kinds[0] is not None:
+            out.append(("unmodelled", kinds[rng.integers(len(kinds))]))
+        else:
+            out.append(("healthy", None))
+    return out
+
+
+def build(case: Case, what: tuple[str, str | None], seed: int) -> GenUnit:
+    """Draw the unit for one plan entry from its own seed."""
+    rng = np.random.default_rng(seed)
+    u = draw_unit(case, rng)
+    s, arg = what
+    if s == "healthy" or (s == "blunder" and arg is None):
+        return GenUnit(s, "healthy", "", u, seed)
+    if s in ("fault", "blunder"):
+        return GenUnit(s, arg, inject.apply_fault(u, arg, rng), u, seed)
+    label, detail = inject.apply_unmodelled(u, arg, rng)
+    return GenUnit(s, label, detail, u, seed)
+
+
+def measure(case: Case, units: list[GenUnit], jobs: int | None = None) -> None:
+    """Run every unit's deck in ngspice; fill `true` (loaded meter input, volts/amperes)."""
+    obs = case.observables
+    res = run_decks([measure_script(g.bench, obs) for g in units], [len(obs)] * len(units),
+                    jobs=jobs)
+    for g, r in zip(units, res, strict=True):
+        g.true = r
+
+
+def display(case: Case, g: GenUnit) -> None:
+    """Apply the meter (calibration, noise, rounding, overload) and any blunder."""
+    rng = np.random.default_rng([g.seed, 1])
+    meter = case.meter
+    err = meterlike.MeterErrors.draw(meter, rng)
+    g.shown = [meterlike.show(v, ob.kind, ob.unit, meter, err, rng)
+               for v, ob in zip(g.true, case.observables, strict=True)]
+    if g.set == "blunder":
+        g.detail = "; ".join(x for x in (g.detail, _blunder(case, g, rng)) if x)
+
+
+def _blunder(case: Case, g: GenUnit, rng: np.random.Generator) -> str:
+    """Replace one reading by a mistake a person makes at the bench; return what."""
+    obs = case.observables
+    meter = case.meter
+    kinds = list(bench()["blunder"]["kinds"])
+    for _ in range(50):
+        j = int(rng.integers(len(obs)))
+        old = g.shown[j]
+        if old is None:
+            continue
+        kind = kinds[rng.integers(len(kinds))]
+        new = _mistake(kind, old, j, g, obs, meter, rng)
+        res = meterlike.resolution(old, obs[j].kind, obs[j].unit, meter) or 0.0
+        if new is None or abs(new - old) < 0.1 * abs(old) + 10 * res:
+            continue
+        g.shown[j] = new
+        return f"blunder at {obs[j].point} {obs[j].kind}: {kind}, {old:g} written as {new:g}"
+    return "blunder: none possible"
+
+
+def _mistake(kind, old, j, g, obs, meter, rng) -> float | None:
+    ob = obs[j]
+    if kind == "decimal":
+        return old * (10.0 if rng.random() < 0.5 else 0.1)
+    if kind == "zero":
+        return 0.0
+    if kind == "slipped":
+        others = [i for i, o in enumerate(obs) if i != j and o.kind == ob.kind
+                  and o.unit == ob.unit and g.shown[i] is not None and o.point != ob.point]
+        return g.shown[others[rng.integers(len(others))]] if others else None
+    if kind == "transposed":
+        t = meterlike.text(old, ob.kind, ob.unit, meter)
+        digits = [i for i, ch in enumerate(t) if ch.isdigit()]
+        pairs = [(a, b) for a, b in zip(digits, digits[1:], strict=False)
+                 if b == a + 1 and t[a] != t[b]]
+        if not pairs:
+            return None
+        a, b = pairs[rng.integers(len(pairs))]
+        t2 = t[:a] + t[b] + t[a] + t[b + 1:]
+        return float(t2)
+    raise ValueError(kind)
+
+
+def generate_case(case: Case, plan_: list[tuple[str, str | None]], seed: int,
+                  jobs: int | None = None, retries: int = 3) -> tuple[list[GenUnit], int]:
+    """Build, simulate and display every planned unit. A unit ngspice cannot solve is
+    redrawn (new seed) up to `retries` times, then dropped; returns (units, dropped)."""
+    seeds = np.random.SeedSequence(seed).generate_state(len(plan_) * (retries + 1))
+    units = [build(case, w, int(seeds[i])) for i, w in enumerate(plan_)]
+    measure(case, units, jobs)
+    dropped = 0
+    for attempt in range(1, retries + 1):
+        bad = [i for i, g in enumerate(units) if not all(math.isfinite(v) for v in g.true)]
+        if not bad:
+            break
+        for i in bad:
+            units[i] = build(case, plan_[i], int(seeds[attempt * len(plan_) + i]))
+        measure(case, [units[i] for i in bad], jobs)
+    keep = []
+    for g in units:
+        if all(math.isfinite(v) for v in g.true):
+            keep.append(g)
+        else:
+            dropped += 1
+    for g in keep:
+        display(case, g)
+    order = np.random.default_rng([seed, 2]).permutation(len(keep))
+    width = max(4, len(str(len(keep))))
+    out = [keep[i] for i in order]
+    for n, g in enumerate(out, 1):
+        g.id = f"U{n:0{width}d}"
+    return out, dropped
+
+
+def write(case: Case, units: list[GenUnit], out: Path) -> tuple[Path, Path]:
+    """Write DIR/<case>-batch.csv and DIR/<case>-truth.csv; return their paths."""
+    out.mkdir(parents=True, exist_ok=True)
+    stem = Path(case.path).stem
+    bpath, tpath = out / f"{stem}-batch.csv", out / f"{stem}-truth.csv"
+    obs = case.observables
+    with bpath.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow(["unit", "point", "kind", "value"])
+        for g in units:
+            for v, ob in zip(g.shown, obs, strict=True):
+                if v is not None:
+                    w.writerow([g.id, ob.point, ob.kind,
+                                meterlike.text(v, ob.kind, ob.unit, case.meter)])
+    with tpath.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow(["unit", "fault", "set", "detail"])
+        for g in sorted(units, key=lambda g: g.id):
+            w.writerow([g.id, g.fault, g.set, g.detail])
+    return bpath, tpath
+
+
+def bundled_cases() -> list[Path]:
+    return sorted(cases_dir().glob("*.yaml"))
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(prog="python -m eval.generate", description=__doc__.split(
+        "\n\n")[0])
+    ap.add_argument("--case", action="append", help="case file (repeatable; default: all "
+                    "bundled cases)")
+    ap.add_argument("--out", required=True, help="output folder")
+    ap.add_argument("--units", type=int, help="a mixed triage batch of N units per case")
+    ap.add_argument("--per-fault", type=int, default=2)
+    ap.add_argument("--healthy", type=int, default=20)
+    ap.add_argument("--blunder", type=int, default=20)
+    ap.add_argument("--unmodelled", type=int, default=30)
+    ap.add_argument("--seed", type=int, default=0)
+    ap.add_argument("--jobs", type=int, default=None)
+    a = ap.parse_args(argv)
+    if ngspice_path() is None:
+        print("eval.generate: ngspice is not on PATH; install it to generate units",
+              file=sys.stderr)
+        return 1
+    rules = load_rules()
+    manifest = {"seed": a.seed, "cases": {}}
+    for k, path in enumerate(a.case or bundled_cases()):
+        case = load_case(str(path), rules)
+        rng = np.random.default_rng([a.seed, k])
+        p = (plan_mix(case, rng, a.units) if a.units else
+             plan(case, rng, a.per_fault, a.healthy, a.blunder, a.unmodelled))
+        units, dropped = generate_case(case, p, seed=a.seed * 1000 + k, jobs=a.jobs)
+        b, t = write(case, units, Path(a.out))
+        counts = {s: sum(g.set == s for g in units) for s in
+                  ("healthy", "fault", "blunder", "unmodelled")}
+        manifest["cases"][str(path)] = {"batch": b.name, "truth": t.name, "units": counts,
+                                        "dropped": dropped}
+        print(f"{Path(str(path)).name}: {len(units)} units ({counts}), {dropped} dropped "
+              f"-> {b}", file=sys.stderr)
+    (Path(a.out) / "manifest.json").write_text(json.dumps(manifest, indent=2) + "\n",
+                                               encoding="utf-8")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,352 @@
+"""One bench unit as the evaluation sees it: every fitted part's physical values, drawn
+inside tolerance, plus the physical changes a fault made (lifted leads, added resistors,
+swapped transistor leads), written out as an ngspice netlist.
+
+Independent of diag's ensemble and solver: the draws come from `eval/bench.yaml` and the
+device cards are richer than diag's (junction capacitances, ISC/NC, VAR, IKR, RB with
+IRB/RBM, beta temperature exponent, ambient temperature 25-40 degC). Values are SI (ohms,
+farads, henries, volts, amperes).
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+import re
+from dataclasses import dataclass, field
+from functools import lru_cache
+from pathlib import Path
+
+import numpy as np
+import yaml
+
+from diag.core.case import Case, Observable, Part
+
+HERE = Path(__file__).resolve().parent
+
+
+@lru_cache(maxsize=1)
+def bench() -> dict:
+    """The evaluation's bench assumptions (eval/bench.yaml)."""
+    return yaml.safe_load((HERE / "bench.yaml").read_text(encoding="utf-8"))
+
+
+def uni(rng: np.random.Generator, lo_hi, log: bool = False) -> float:
+    """One draw uniform in [lo, hi] (log-uniform when `log`)."""
+    lo, hi = float(lo_hi[0]), float(lo_hi[1])
+    if log:
+        return float(math.exp(rng.uniform(math.log(lo), math.log(hi))))
+    return float(rng.uniform(lo, hi))
+
+
+@dataclass
+class BenchUnit:
+    """A unit on the bench. `values[ref]` holds the part's element values (keys per kind,
+    see `draw_unit`), `cards[ref]` a semiconductor's full model card (SPICE names).
+    `lifted` holds (ref, terminal) leads that are not soldered (1e12 ohm to the pad),
+    `extra` resistors added between nodes (shorts, leaks, bridges: (node, node, ohms)),
+    `swapped_ce` transistors fitted with collector and emitter exchanged."""
+
+    case: Case
+    temp_c: float
+    values: dict[str, dict[str, float]]
+    cards: dict[str, dict[str, float]]
+    lifted: set[tuple[str, str]] = field(default_factory=set)
+    extra: list[tuple[str, str, float]] = field(default_factory=list)
+    swapped_ce: set[str] = field(default_factory=set)
+
+    def copy(self) -> BenchUnit:
+        return copy.deepcopy(self)
+
+
+def _tol(part: Part) -> float:
+    t = part.tol
+    return float(t) if t is not None else float(bench()["tolerance"].get(part.kind, 0.05))
+
+
+def _supply_max(case: Case) -> float:
+    vs = [abs(p.value or 0.0) for p in case.parts if p.kind == "supply"]
+    return max(vs) if vs else 10.0
+
+
+def _draw_bipolar(part: Part, rng: np.random.Generator) -> dict[str, float]:
+    b = bench()["bipolar"]
+    m = {k: float(v) for k, v in (part.model or {}).items() if k != "name" and _isnum(v)}
+    card = dict(m)
+    hfe = part.fields.get("hfe") or _catalogue_hfe(part)
+    bf = float(m.get("BF", 100.0))
+    card["BF"] = uni(rng, hfe) if hfe else bf * uni(rng, b["bf_spread"])
+    card["IS"] = float(m.get("IS", 1e-14)) * math.exp(
+        float(np.clip(rng.normal(0, b["is_sigma_ln"]), -2 * b["is_sigma_ln"],
+                      2 * b["is_sigma_ln"])))
+    if "ISE" in m:
+        card["ISE"] = m["ISE"] * math.exp(float(np.clip(rng.normal(0, b["ise_sigma_ln"]),
+                                                         -2 * b["ise_sigma_ln"],
+                                                         2 * b["ise_sigma_ln"])))
+    if "VAF" in m:
+        card["VAF"] = m["VAF"] * uni(rng, b["vaf_spread"])
+    ikf = m.get("IKF")
+    if ikf:
+        card["IKF"] = ikf * uni(rng, b["ikf_spread"])
+    for k in ("RC", "RE"):
+        if k in m:
+            card[k] = m[k] * uni(rng, b["r_spread"])
+    rb = m.get("RB") or float(b["rb_default"])
+    card["RB"] = rb * uni(rng, b["r_spread"])
+    card["RBM"] = card["RB"] * uni(rng, b["rbm_of_rb"])
+    card["IRB"] = uni(rng, b["irb"], log=True)
+    card["NF"] = float(m.get("NF", 1.0)) * uni(rng, b["nf"])
+    card.setdefault("VAR", uni(rng, b["var"]))
+    if ikf:
+        card.setdefault("IKR", card["IKF"] * uni(rng, b["ikr_of_ikf"]))
+    ise = card.get("ISE", card["IS"] * 10)
+    card.setdefault("ISC", ise * uni(rng, b["isc_of_ise"]))
+    card.setdefault("NC", uni(rng, b["nc"]))
+    card["XTB"] = uni(rng, b["xtb"])
+    size = "power" if (ikf or 0) >= b["power_ikf"] or "power" in str(
+        (part.model or {}).get("name", "")) else "small"
+    for k, rng_ in b[size].items():
+        card.setdefault(k.upper(), uni(rng, rng_, log=True))
+    return card
+
+
+def _catalogue_hfe(part: Part):
+    """The hFE range catalogued for the part's model in rules/models.yaml, if any."""
+    from diag.core.rules import load_rules
+
+    name = str((part.model or {}).get("name", ""))
+    entry = load_rules()["models"].get(name) or {}
+    return (entry.get("spread") or {}).get("hfe")
+
+
+def _draw_diode(part: Part, rng: np.random.Generator) -> dict[str, float]:
+    d = bench()["diode"]
+    m = {k: float(v) for k, v in (part.model or {}).items() if k != "name" and _isnum(v)}
+    card = dict(m)
+    card["IS"] = float(m.get("IS", 1e-14)) * math.exp(
+        float(np.clip(rng.normal(0, d["is_sigma_ln"]), -2 * d["is_sigma_ln"],
+                      2 * d["is_sigma_ln"])))
+    card["N"] = float(m.get("N", 1.0)) * uni(rng, d["n_factor"])
+    if "RS" in m:
+        card["RS"] = m["RS"] * uni(rng, d["rs_spread"])
+    bv = part.fields.get("bv") if part.kind == "zener" else None
+    bv = float(bv) if bv is not None else m.get("BV")
+    if bv is not None:
+        spread = d["bv_tol"] if part.kind == "zener" else 0.0
+        card["BV"] = float(bv) * (1 + rng.uniform(-spread, spread))
+    card.setdefault("CJO", uni(rng, d["cjo"], log=True))
+    card.setdefault("TT", uni(rng, d["tt"], log=True))
+    return card
+
+
+def _isnum(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def draw_unit(case: Case, rng: np.random.Generator) -> BenchUnit:
+    """Draw one healthy unit: every part inside its tolerance (uniform), semiconductor
+    cards spread and enriched, an ambient temperature. Keys of `values` per kind:
+    resistor/fuse/link `r`; pot `r_a r_b r_w`; capacitor/electrolytic `c leak esr`;
+    inductor `l r`; speaker `r z`; supply `v r`; signal `vac r hz`."""
+    bb = bench()
+    vals: dict[str, dict[str, float]] = {}
+    cards: dict[str, dict[str, float]] = {}
+    vmax = _supply_max(case)
+    for p in case.parts:
+        f = p.fields
+        t = _tol(p)
+        k = p.kind
+        if k == "resistor":
+            vals[p.ref] = {"r": p.value * (1 + rng.uniform(-t, t))}
+        elif k == "pot":
+            r = p.value * (1 + rng.uniform(-t, t))
+            s = float(f.get("set", 0.5))
+            vals[p.ref] = {"r_a": max(r * s, 1e-3), "r_b": max(r * (1 - s), 1e-3),
+                           "r_w": uni(rng, bb["pot_wiper_ohms"])}
+        elif k in ("capacitor", "electrolytic"):
+            c = p.value * (1 + rng.uniform(-t, t))
+            if f.get("leak") is not None:
+                leak = float(f["leak"])
+            elif k == "capacitor":
+                leak = uni(rng, bb["capacitor"]["leak_ohms"], log=True)
+            else:
+                vr = float(f.get("volts_rated") or vmax)
+                limit = max(0.01 * p.value * 1e6 * vr * 1e-6, 3e-6)
+                leak = vr / (limit * uni(rng, bb["electrolytic"]["leak_fraction"], log=True))
+            if f.get("esr") is not None:
+                esr = float(f["esr"])
+            elif k == "capacitor":
+                esr = uni(rng, bb["capacitor"]["esr_ohms"], log=True)
+            else:
+                esr = uni(rng, bb["electrolytic"]["tan_delta"]) / (2 * math.pi * 120 * c)
+            vals[p.ref] = {"c": c, "leak": leak, "esr": esr}
+        elif k == "inductor":
+            r = float(f.get("r_dc") or 1.0)
+            vals[p.ref] = {"l": p.value * (1 + rng.uniform(-t, t)),
+                           "r": r * (1 + rng.uniform(-t, t))}
+        elif k == "speaker":
+            sp = bb["speaker"]
+            if f.get("r_dc") is not None:
+                r = float(f["r_dc"]) * (1 + rng.uniform(-sp["r_dc_tol"], sp["r_dc_tol"]))
+            else:
+                r = p.value * uni(rng, sp["r_dc_of_rated"])
+            vals[p.ref] = {"r": r, "z": max(p.value * uni(rng, sp["z_of_rated"]), r * 1.01)}
+        elif k in ("fuse", "link"):
+            r = p.value if p.value else uni(rng, bb[f"{k}_ohms"], log=True)
+            vals[p.ref] = {"r": r}
+        elif k == "supply":
+            vals[p.ref] = {"v": p.value * (1 + rng.uniform(-t, t)),
+                           "r": float(f.get("r_source") or bb["supply_r_source"])}
+        elif k == "signal":
+            e = bb["signal_vrms_tol"]
+            vals[p.ref] = {"vac": p.value * (1 + rng.uniform(-e, e)),
+                           "r": float(f.get("r_source") or bb["signal_r_source"]),
+                           "hz": float(f.get("hz") or 1000.0)}
+        elif k in ("npn", "pnp"):
+            cards[p.ref] = _draw_bipolar(p, rng)
+        elif k in ("diode", "led", "zener"):
+            cards[p.ref] = _draw_diode(p, rng)
+        else:
+            raise ValueError(f"{case.path}: {p.ref}: kind {k!r} has no bench model in eval")
+    return BenchUnit(case=case, temp_c=uni(rng, bb["ambient_c"]), values=vals, cards=cards)
+
+
+# ---------------------------------------------------------------- netlist
+
+def _ident(s: str) -> str:
+    return re.sub(r"[^A-Za-z0-9_]", "_", s)
+
+
+def spice_node(case: Case, name: str) -> str:
+    """ngspice name of a case node (the ground is 0)."""
+    return "0" if name == case.ground else "n_" + _ident(name)
+
+
+def _fmt(x: float) -> str:
+    return f"{x:.9g}"
+
+
+def netlist_lines(u: BenchUnit) -> list[str]:
+    """Element and model lines of the unit (no analysis, no meter)."""
+    case = u.case
+    bb = bench()
+    out: list[str] = [f".options temp={_fmt(u.temp_c)}"]
+    open_r = float(bb["faults"]["open_ohms"])
+    tc = float(bb["copper_tc1"])
+
+    def node(p: Part, term: str) -> str:
+        t = term
+        if p.ref in u.swapped_ce and term in ("c", "e"):
+            t = "e" if term == "c" else "c"
+        n = spice_node(case, p.terminal(t))
+        if (p.ref, term) in u.lifted:
+            lifted = f"l_{_ident(p.ref)}_{term}"
+            out.append(f"R_lift_{_ident(p.ref)}_{term} {lifted} {n} {_fmt(open_r)}")
+            return lifted
+        return n
+
+    for p in case.parts:
+        r = _ident(p.ref)
+        v = u.values.get(p.ref, {})
+        k = p.kind
+        if k in ("resistor", "fuse", "link"):
+            out.append(f"R_{r} {node(p, 'a')} {node(p, 'b')} {_fmt(v['r'])}")
+        elif k == "pot":
+            a, w, b = node(p, "a"), node(p, "wiper"), node(p, "b")
+            out.append(f"R_{r}_a {a} t_{r} {_fmt(v['r_a'])}")
+            out.append(f"R_{r}_b t_{r} {b} {_fmt(v['r_b'])}")
+            out.append(f"R_{r}_w t_{r} {w} {_fmt(v['r_w'])}")
+        elif k in ("capacitor", "electrolytic"):
+            t1, t2 = ("a", "b") if k == "capacitor" else ("plus", "minus")
+            a, b = node(p, t1), node(p, t2)
+            out.append(f"C_{r} {a} m_{r} {_fmt(v['c'])}")
+            out.append(f"R_{r}_esr m_{r} {b} {_fmt(v['esr'])}")
+            out.append(f"R_{r}_leak {a} {b} {_fmt(v['leak'])}")
+        elif k == "inductor":
+            a, b = node(p, "a"), node(p, "b")
+            out.append(f"R_{r}_dc {a} m_{r} {_fmt(v['r'])} tc1={tc}")
+            out.append(f"L_{r} m_{r} {b} {_fmt(v['l'])}")
+        elif k == "speaker":
+            a, b = node(p, "a"), node(p, "b")
+            rx = v["z"] - v["r"]
+            hz = _signal_hz(u)
+            lx = 10 * rx / (2 * math.pi * hz)
+            out.append(f"R_{r}_dc {a} m_{r} {_fmt(v['r'])} tc1={tc}")
+            out.append(f"R_{r}_x m_{r} {b} {_fmt(rx)}")
+            out.append(f"L_{r}_x m_{r} {b} {_fmt(lx)}")
+        elif k == "supply":
+            plus, minus = node(p, "plus"), node(p, "minus")
+            out.append(f"V_{r} s_{r} {minus} DC {_fmt(v['v'])}")
+            out.append(f"R_{r}_src s_{r} a_{r} {_fmt(v['r'])}")
+            out.append(f"R_{r}_amm a_{r} {plus} {_fmt(bb['meter']['burden_idle_ohms'])}")
+        elif k == "signal":
+            plus, minus = node(p, "plus"), node(p, "minus")
+            out.append(f"V_{r} s_{r} {minus} DC 0 AC {_fmt(v['vac'])}")
+            out.append(f"R_{r}_src s_{r} {plus} {_fmt(v['r'])}")
+        elif k in ("diode", "led", "zener"):
+            out.append(f"D_{r} {node(p, 'anode')} {node(p, 'cathode')} M_{r}")
+            out.append(_model_line(f"M_{r}", "D", u.cards[p.ref]))
+        elif k in ("npn", "pnp"):
+            out.append(f"Q_{r} {node(p, 'c')} {node(p, 'b')} {node(p, 'e')} M_{r}")
+            out.append(_model_line(f"M_{r}", k.upper(), u.cards[p.ref]))
+    for i, (a, b, ohms) in enumerate(u.extra):
+        out.append(f"R_extra_{i} {spice_node(case, a)} {spice_node(case, b)} {_fmt(ohms)}")
+    return out
+
+
+def _signal_hz(u: BenchUnit) -> float:
+    for p in u.case.parts:
+        if p.kind == "signal":
+            return u.values[p.ref]["hz"]
+    return 1000.0
+
+
+def _model_line(name: str, typ: str, card: dict[str, float]) -> str:
+    body = " ".join(f"{k}={_fmt(v)}" for k, v in sorted(card.items()))
+    return f".model {name} {typ} ({body})"
+
+
+def measure_script(u: BenchUnit, observables: tuple[Observable, ...]) -> str:
+    """Full ngspice deck: the unit, one idle meter per voltage point, and a .control
+    block that connects the meter (input resistance, and capacitance for ac) to one
+    point at a time, solves, and echoes `@@ <index> <value>` per observable. Supply
+    points read the supply's current with the ammeter's burden in series."""
+    case = u.case
+    meter = case.meter
+    bb = bench()["meter"]
+    lines = [f"* diag eval unit of {Path(case.path).name}"] + netlist_lines(u)
+    pts = {p.id: p for p in case.points}
+    for p in case.points:
+        if p.node is None:
+            continue
+        pid = _ident(p.id)
+        plus = spice_node(case, p.node)
+        minus = spice_node(case, p.minus or case.ground)
+        lines.append(f"R_meter_{pid} {plus} {minus} {_fmt(bb['open_ohms'])}")
+        if "ac" in p.reads:
+            lines.append(f"C_meter_{pid} {plus} {minus} 1e-18")
+    hz = _signal_hz(u)
+    ctl = [".control", "set noaskquit"]
+    for i, ob in enumerate(observables):
+        p = pts[ob.point]
+        pid = _ident(p.id)
+        ctl.append("destroy all")
+        if p.supply:
+            s = _ident(p.supply)
+            ctl.append(f"alter R_{s}_amm = {_fmt(float(meter['a_burden']))}")
+            ctl += ["op", f"let x = -i(V_{s})", f"echo \"@@ {i} $&x\"",
+                    f"alter R_{s}_amm = {_fmt(bb['burden_idle_ohms'])}"]
+            continue
+        plus = spice_node(case, p.node)
+        minus = spice_node(case, p.minus or case.ground)
+        expr = f"v({plus})" + (f"-v({minus})" if minus != "0" else "")
+        ctl.append(f"alter R_meter_{pid} = {_fmt(float(meter['r_in']))}")
+        if ob.kind == "ac":
+            ctl.append(f"alter C_meter_{pid} = {_fmt(float(meter['c_in']))}")
+            ctl += ["op", f"ac lin 1 {_fmt(hz)} {_fmt(hz)}", f"let x = mag({expr})",
+                    f"echo \"@@ {i} $&x\"", f"alter C_meter_{pid} = 1e-18"]
+        else:
+            ctl += ["op", f"let x = {expr}", f"echo \"@@ {i} $&x\""]
+        ctl.append(f"alter R_meter_{pid} = {_fmt(bb['open_ohms'])}")
+    ctl += ["quit", ".endc", ".end"]
+    return "\n".join(lines + ctl) + "\n"

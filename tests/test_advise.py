@@ -1,0 +1,44 @@
+"""Expected information gain of the next reading (advise.py) on synthetic ensembles."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from diag.core import advise
+
+
+def test_gain_zero_where_every_hypothesis_predicts_alike():
+    rng = np.random.default_rng(0)
+    same = np.broadcast_to(5.0 + rng.standard_normal(64), (4, 64))  # identical clouds
+    w = np.full((4, 64), 1 / 256)
+    assert advise.gain(same, w) == 0.0  # I(H;Y) = 0 when p(y|h) does not depend on h
+
+
+def test_gain_of_a_perfect_split_is_the_prior_entropy():
+    # four equally likely hypotheses predicting 0, 100, 200, 300 (far apart in noise
+    # widths): the reading reveals h, so the gain is log2(4) = 2 bits (Shannon)
+    u = np.repeat(np.array([0.0, 100.0, 200.0, 300.0])[:, None], 32, axis=1)
+    w = np.full((4, 32), 1 / 128)
+    assert advise.gain(u, w) == pytest.approx(2.0, abs=1e-3)
+
+
+def test_gain_of_a_binary_split_is_one_bit():
+    u = np.repeat(np.array([0.0, 0.0, 50.0, 50.0])[:, None], 16, axis=1)
+    w = np.full((4, 16), 1 / 64)
+    assert advise.gain(u, w) == pytest.approx(1.0, abs=1e-3)  # H(1/2, 1/2) = 1 bit
+
+
+def test_overlap_within_noise_gains_little():
+    # two hypotheses one noise width apart: the gain is well under the 1 bit of a split
+    u = np.repeat(np.array([0.0, 1.0])[:, None], 16, axis=1)
+    w = np.full((2, 16), 1 / 32)
+    g = advise.gain(u, w)
+    assert 0.0 < g < 0.5
+
+
+def test_unit_weights_share_each_posterior():
+    llk = np.log(np.array([[1.0, 3.0], [1.0, 1.0]]))
+    w = advise.unit_weights(llk, np.array([0.8, 0.2]))
+    np.testing.assert_allclose(w, [[0.2, 0.6], [0.1, 0.1]])  # by hand
+    assert w.sum() == pytest.approx(1.0)

@@ -1,0 +1,138 @@
+"""`diag check`: text and JSON output (SPEC sections 4 and 6), exit codes, cautions."""
+
+from __future__ import annotations
+
+import json
+import textwrap
+
+import numpy as np
+import pytest
+
+from diag.cli import main
+from diag.core.bands import case_cautions, healthy_bands
+from diag.core.case import load_case
+from diag.core.rules import load_rules
+
+SMALL = """\
+    case: 1
+    title: Small divider-biased stage
+    about: test case for the check command
+    parts:
+      V1: {kind: supply, plus: vcc, minus: gnd, volts: VOLTS, r_source: 0.5}
+      R1: {kind: resistor, nodes: [vcc, base], ohms: 47k}
+      R2: {kind: resistor, nodes: [base, gnd], ohms: 10k}
+      R3: {kind: resistor, nodes: [vcc, col], ohms: 4k7}
+      R4: {kind: resistor, nodes: [emit, gnd], ohms: 1k}
+      Q1: {kind: npn, c: col, b: base, e: emit}
+    points:
+      TP1: {node: col, where: "Q1 collector"}
+      TP2: {node: base, where: "Q1 base"}
+      TP3: {supply: V1, where: "bench supply's ammeter"}
+    """
+
+
+def _write(tmp_path, text, name="c.yaml"):
+    p = tmp_path / name
+    p.write_text(textwrap.dedent(text), encoding="utf-8")
+    return p
+
+
+def _run(capsys, *argv):
+    code = main(["check", *map(str, argv)])
+    out = capsys.readouterr()
+    return code, out.out, out.err
+
+
+def test_json_has_the_spec_keys(tmp_path, capsys):
+    path = _write(tmp_path, SMALL.replace("VOLTS", "12"))
+    code, out, _ = _run(capsys, path, "--json", "--draws", 100)
+    assert code == 0
+    doc = json.loads(out)
+    assert {"case", "nodes", "points"} <= set(doc)          # SPEC section 6
+    assert doc["case"] == str(path)
+    case = load_case(str(path))
+    assert list(doc["nodes"]) == list(case.nodes)
+    assert [(p["point"], p["kind"]) for p in doc["points"]] == \
+        [(o.point, o.kind) for o in case.observables]
+    for p in doc["points"]:
+        assert {"point", "kind", "nominal", "low", "high"} <= set(p)
+        assert p["low"] <= p["nominal"] <= p["high"]
+    # Nodes carry no meter: the supply node sits below 12 V by the drop across r_source
+    # only (Ohm's law with the supply current).
+    i = [p for p in doc["points"] if p["point"] == "TP3"][0]["nominal"]
+    assert doc["nodes"]["vcc"] == pytest.approx(12 - 0.5 * i, abs=1e-9)
+
+
+def test_text_table_lists_every_point_region_and_no_caution(tmp_path, capsys):
+    path = _write(tmp_path, SMALL.replace("VOLTS", "12"))
+    code, out, _ = _run(capsys, path, "--draws", 50)
+    assert code == 0
+    for needle in ("TP1", "Q1 collector", "TP2", "Q1 base", "TP3", "bench supply's ammeter",
+                   "mA", "Q1 active", "point", "where", "kind", "nominal", "band", "unit"):
+        assert needle in out
+    assert "Cautions" not in out
+
+
+def test_caution_line_for_a_supply_over_30_volts(tmp_path, capsys):
+    path = _write(tmp_path, SMALL.replace("VOLTS", "48"))
+    code, out, _ = _run(capsys, path, "--draws", 20)
+    assert code == 0
+    titles = load_rules()["cautions"]
+    assert "Cautions:" in out and titles["mains"]["title"] in out
+
+
+def test_mains_note_calls_for_the_mains_caution(tmp_path):
+    text = SMALL.replace("VOLTS", "12").replace(
+        "r_source: 0.5}", "r_source: 0.5, note: \"from a mains adaptor\"}")
+    case = load_case(str(_write(tmp_path, text)))
+    assert "mains" in case_cautions(case)
+    assert case_cautions(load_case(str(_write(tmp_path, SMALL.replace("VOLTS", "12"),
+                                                "d.yaml")))) == ()
+
+
+def test_same_seed_same_bands_and_draws_zero_gives_no_band(tmp_path, capsys):
+    path = _write(tmp_path, SMALL.replace("VOLTS", "9"))
+    a = _run(capsys, path, "--json", "--draws", 60, "--seed", 3)[1]
+    b = _run(capsys, path, "--json", "--draws", 60, "--seed", 3)[1]
+    assert a == b
+    doc = json.loads(_run(capsys, path, "--json", "--draws", 0)[1])
+    assert all(p["low"] is None and p["high"] is None for p in doc["points"])
+
+
+def test_band_is_about_the_1st_to_99th_percentile(tmp_path):
+    # A band over K draws must hold about 98 % of a second, independent set of draws
+    # (binomial spread at K = 400: ±1.4 %, so 95 % is a safe floor).
+    case = load_case(str(_write(tmp_path, SMALL.replace("VOLTS", "12"))))
+    first = healthy_bands(case, K=400, seed=1)
+    second = healthy_bands(case, K=400, seed=2)
+    from diag.core import ensemble, meter, netlist, solver
+
+    circuit = netlist.compile_case(case, load_rules())
+    params = ensemble.draw_healthy(circuit, 400, np.random.default_rng(2))
+    dc = solver.solve_dc(circuit, params)
+    r = meter.observe(circuit, params, dc, None, case.observables, case.meter)
+    for m, pb in enumerate(first.points):
+        inside = np.mean((r[:, m] >= pb.low) & (r[:, m] <= pb.high))
+        assert inside >= 0.95, (pb.point, inside)
+        assert second.points[m].low == pytest.approx(pb.low, rel=0.05)
+
+
+@pytest.mark.parametrize("bad, needle", [
+    ("R1: {kind: resistor, nodes: [vcc, base], ohms: 4kk}", "R1"),
+    ("R1: {kind: resistor, nodes: [vcc, base], ohms: -47k}", "R1"),
+])
+def test_bad_case_exits_1_with_location(tmp_path, capsys, bad, needle):
+    text = SMALL.replace("VOLTS", "12").replace(
+        "R1: {kind: resistor, nodes: [vcc, base], ohms: 47k}", bad)
+    path = _write(tmp_path, text)
+    code, out, err = _run(capsys, path)
+    assert code == 1
+    assert str(path) in err and needle in err and ":6" in err   # file:line of the part
+
+
+def test_missing_file_exits_1_and_bad_arguments_exit_2(tmp_path, capsys):
+    code, _, err = _run(capsys, tmp_path / "none.yaml")
+    assert code == 1 and "none.yaml" in err
+    with pytest.raises(SystemExit) as exc:
+        main(["check", str(tmp_path / "x.yaml"), "--draws", "-3"])
+    assert exc.value.code == 2

@@ -1,0 +1,171 @@
+"""The Engine façade on a real bundled case: build and cache, diagnose, bands, simulate."""
+
+from __future__ import annotations
+
+import shutil
+
+import numpy as np
+import pytest
+
+from diag.core.case import load_case
+from diag.core.engine import Engine, Reading
+from diag.core.errors import DiagError
+from diag.core.paths import cases_dir
+
+RELAY = cases_dir() / "relay-switch.yaml"  # 12 V relay coil switched by one NPN
+K = 32
+
+
+@pytest.fixture(scope="module")
+def eng():
+    e = Engine(load_case(RELAY), K=K, seed=0)
+    e.build()
+    return e
+
+
+def test_ensemble_shape_and_hypotheses(eng):
+    ens = eng.ensemble
+    H = len(ens.hypotheses)
+    assert ens.samples.shape == (H, K, len(eng.case.observables))
+    assert ens.hypotheses[0].id == "healthy"
+    assert sum(h.prior for h in ens.hypotheses) <= 1.0 + 1e-9
+    assert ens.group.shape == (H,)
+    # healthy units read the 12 V rail at the supply pin: nominal 12 V, 5 % tolerance,
+    # 0.2 Ω source (case file): within 11.3 to 12.7 V
+    tp2 = [j for j, o in enumerate(eng.case.observables) if o.point == "TP2"][0]
+    assert np.all((ens.samples[0, :, tp2] > 11.3) & (ens.samples[0, :, tp2] < 12.7))
+
+
+def test_posterior_sums_to_one_and_prior_without_readings(eng):
+    d = eng.diagnose([])
+    assert sum(s.p for s in d.suspects) == pytest.approx(1.0, abs=1e-9)
+    assert d.readings_used == 0 and d.fits
+    assert d.next, "with no readings there is something to learn"
+    pri = {h.id: h.prior for h in eng.ensemble.hypotheses}
+    top = d.suspects[0]
+    assert pri[top.fault] == max(pri.values())
+
+
+@pytest.mark.parametrize("fault", ["R1:open", "Q1:be-open", "K1:open", "Q1:ce-short",
+                                   "R2:short"])
+def test_simulated_unit_ranks_its_fault_in_the_top_three(eng, fault):
+    rng = np.random.default_rng(42)
+    unit = eng.simulate(fault, rng)
+    assert {(r.point, r.kind) for r in unit} == {(o.point, o.kind)
+                                                for o in eng.case.observables}
+    d = eng.diagnose(unit)
+    ranks = [s.fault for s in d.suspects]
+    group = {s.fault: s.group for s in d.suspects}
+    top3_groups = {s.group for s in d.suspects[:3]}
+    assert fault in ranks[:3] or group[fault] in top3_groups
+    assert sum(s.p for s in d.suspects) == pytest.approx(1.0, abs=1e-9)
+
+
+def test_a_reading_on_the_prediction_raises_that_fault(eng):
+    mid = {b.observable.point: b.mid for b in eng.bands("R1:open")
+           if b.observable.kind == "dc"}
+    before = {s.fault: s.p for s in eng.diagnose([]).suspects}
+    after = {s.fault: s.p for s in eng.diagnose([Reading("TP4", "dc", mid["TP4"])]).suspects}
+    assert after["R1:open"] > before["R1:open"]
+
+
+def test_blunder_does_not_drop_the_truth_below_top_three(eng):
+    unit = list(eng.simulate("K1:open", np.random.default_rng(5)))
+    # one slipped probe: the coil pin read as if on the 12 V rail side
+    unit = [Reading(r.point, r.kind, 12.0) if r.point == "TP4" else r for r in unit]
+    d = eng.diagnose(unit)
+    groups3 = {s.group for s in d.suspects[:3]}
+    g = {s.fault: s.group for s in d.suspects}
+    assert g["K1:open"] in groups3
+
+
+def test_readings_nobody_explains_do_not_fit(eng):
+    # base at 4.5 V, collector at 0.2 V and 3 A from the 12 V supply at once: no single
+    # or paired fault of this circuit does that (base divider 2.2k/10k from 5 V gives at
+    # most 4.1 V; the 390 Ω coil limits the current to ~31 mA)
+    odd = [Reading("TP4", "dc", 4.5), Reading("TP1", "dc", 3.0), Reading("TP5", "dc", 0.2),
+           Reading("TP3", "dc", 1.0), Reading("TP6", "dc", 0.5)]
+    d = eng.diagnose(odd)
+    assert not d.fits
+    assert "outside the model" in d.fit_text
+    assert sum(s.p for s in d.suspects) == pytest.approx(1.0, abs=1e-9)
+
+
+def test_healthy_prior_moves_healthy(eng):
+    lo = {s.fault: s.p for s in eng.diagnose([], healthy_prior=0.01).suspects}
+    hi = {s.fault: s.p for s in eng.diagnose([], healthy_prior=0.5).suspects}
+    assert hi["healthy"] == pytest.approx(0.5) and lo["healthy"] == pytest.approx(0.01)
+    with pytest.raises(DiagError):
+        eng.diagnose([], healthy_prior=1.5)
+
+
+def test_next_reading_why_names_leading_predictions(eng):
+    d = eng.diagnose([Reading("TP1", "dc", 0.0)])
+    assert d.next
+    n = d.next[0]
+    assert n.bits > 0 and ":" in n.why and (" V" in n.why or "A" in n.why)
+    taken = {("TP1", "dc")}
+    assert all((x.point, x.kind) not in taken for x in d.next)
+    costs = {(o.point, o.kind): o.cost for o in eng.case.observables}
+    ratio = [x.bits / costs[(x.point, x.kind)] for x in d.next]
+    assert ratio == sorted(ratio, reverse=True)
+
+
+def test_bands_and_hypothesis(eng):
+    bands = eng.bands("healthy")
+    assert len(bands) == len(eng.case.observables)
+    assert all(b.low <= b.mid <= b.high for b in bands)
+    h = eng.hypothesis("R1:open")
+    assert h.text.startswith("R1") and h.confirm
+    pair = eng.hypothesis("K1:open+R1:open")  # not in the built set: made on demand
+    assert pair.parts == ("K1", "R1")
+    assert len(eng.bands("K1:open+R1:open")) == len(bands)
+    with pytest.raises(DiagError):
+        eng.hypothesis("R1:evaporated")
+
+
+def test_simulate_is_seeded_and_shows_meter_resolution(eng):
+    a = eng.simulate("R2:open", np.random.default_rng(3))
+    b = eng.simulate("R2:open", np.random.default_rng(3))
+    assert a == b
+    # 2000-count meter (rules/meters.yaml handheld-3.5): a 12 V reading sits on the 20 V
+    # range with 0.01 V resolution
+    tp2 = [r.value for r in a if r.point == "TP2"][0]
+    assert abs(tp2 * 100 - round(tp2 * 100)) < 1e-6
+
+
+def test_cache_is_used_and_invalidated_by_a_case_edit(tmp_path, monkeypatch):
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
+    path = tmp_path / "relay.yaml"
+    shutil.copy(RELAY, path)
+    e1 = Engine(load_case(path), K=16)
+    assert not e1.build().from_cache
+    e2 = Engine(load_case(path), K=16)
+    assert e2.build().from_cache
+    np.testing.assert_array_equal(e1.ensemble.samples, e2.ensemble.samples)
+    path.write_text(path.read_text().replace("ohms: 10k", "ohms: 12k"))
+    e3 = Engine(load_case(path), K=16)
+    assert not e3.build().from_cache
+    assert not np.array_equal(e3.ensemble.samples, e1.ensemble.samples, equal_nan=True)
+
+
+def test_build_reports_progress_and_can_be_cancelled(tmp_path, monkeypatch):
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
+    seen = []
+    e = Engine(load_case(RELAY), K=8, seed=1)
+    e.build(progress=seen.append)
+    assert seen and seen[-1] == pytest.approx(1.0) and seen == sorted(seen)
+    e = Engine(load_case(RELAY), K=8, seed=2)
+    with pytest.raises(DiagError):
+        e.build(cancelled=lambda: True)
+
+
+def test_json_keys_per_spec(eng):
+    d = eng.diagnose([Reading("TP1", "dc", 0.031)])
+    j = d.to_json("cases/relay-switch.yaml", top=3)
+    assert {"case", "readings_used", "fits", "suspects", "next"} <= set(j)
+    assert len(j["suspects"]) == 3
+    assert set(j["suspects"][0]) >= {"fault", "p", "group", "text"}
+    assert set(j["next"][0]) >= {"point", "kind", "bits", "why"}
+    ps = [s["p"] for s in j["suspects"]]
+    assert ps == sorted(ps, reverse=True)

@@ -1,0 +1,147 @@
+"""Fault modes as data (rules/faults.yaml, rules/collateral.yaml) and the hypothesis set."""
+
+from __future__ import annotations
+
+import math
+import re
+import textwrap
+
+import numpy as np
+import pytest
+
+from diag.core import ensemble, faults, netlist
+from diag.core.case import load_case
+from diag.core.errors import DiagError
+from diag.core.rules import load_rules
+
+# SPEC section 3: at least these modes per kind.
+SPEC_MODES = {
+    "resistor": {"open", "short", "high", "low"},
+    "pot": {"open", "wiper-open"},
+    "capacitor": {"open", "short", "leaky"},
+    "electrolytic": {"open", "short", "leaky", "reversed"},
+    "inductor": {"open", "short"}, "speaker": {"open", "short"},
+    "fuse": {"open"}, "link": {"open"},
+    "diode": {"open", "short"}, "led": {"open", "short"}, "zener": {"open", "short"},
+    "npn": {"be-open", "be-short", "bc-open", "bc-short", "ce-short", "low-beta"},
+    "pnp": {"be-open", "be-short", "bc-open", "bc-short", "ce-short", "low-beta"},
+    "supply": {"low", "dead"},
+}
+
+ID = re.compile(r"^(healthy|[A-Za-z]+[0-9]*:[a-z-]+(\+[A-Za-z]+[0-9]*:[a-z-]+)*)$")
+
+
+@pytest.fixture(scope="module")
+def rules():
+    return load_rules()
+
+
+def test_every_spec_mode_is_in_the_rules(rules):
+    kinds = rules["faults"]["kinds"]
+    for kind, modes in SPEC_MODES.items():
+        assert modes <= set(kinds[kind]["modes"]), kind
+
+
+def test_mode_shares_sum_to_one(rules):
+    for kind, kr in rules["faults"]["kinds"].items():
+        shares = [m["share"] for m in kr["modes"].values()]
+        assert math.isclose(sum(shares), 1.0, abs_tol=1e-9), kind  # definition of a split
+
+
+def test_spreads_follow_the_issue(rules):
+    """high x1.5 to x10, low-beta hFE 5 to 30, low supply 60 to 90 % (issue text)."""
+    k = rules["faults"]["kinds"]
+    assert k["resistor"]["modes"]["high"]["set"]["r"]["times"] == [1.5, 10]
+    assert k["npn"]["modes"]["low-beta"]["set"]["bf"]["abs"] == [5, 30]
+    assert k["supply"]["modes"]["low"]["set"]["v"]["times"] == [0.6, 0.9]
+    rev = k["electrolytic"]["modes"]["reversed"]["set"]["leak"]["abs"]
+    assert rev[1] / rev[0] >= 100  # spread over at least two decades (issue text)
+
+
+def test_hypotheses_of_every_case(case_path, rules):
+    case = load_case(case_path, rules)
+    specs = faults.hypotheses(case, rules)
+    ids = [s.id for s in specs]
+    assert ids[0] == "healthy"
+    assert len(ids) == len(set(ids))
+    assert all(ID.match(i) for i in ids)
+    for s in specs[1:]:
+        assert s.text and s.confirm and s.weight > 0
+    pri = faults.priors(specs, 0.02)
+    assert math.isclose(sum(pri), 1.0, rel_tol=1e-9)  # normalised over the set
+    assert pri[0] == 0.02
+    # every change names a parameter the compiled circuit has (DEVELOPERS.md table)
+    circ = netlist.compile_case(case, rules)
+    for s in specs:
+        for ch in s.changes:
+            assert ch.key in circ.nominal, (s.id, ch.key)
+
+
+CASE = textwrap.dedent("""\
+    case: 1
+    title: two stages with a fuse
+    about: test circuit
+    parts:
+      V1: {kind: supply, plus: vcc, minus: gnd, volts: 12, r_source: 0.5}
+      F1: {kind: fuse, nodes: [vcc, vf]}
+      R1: {kind: resistor, nodes: [vf, b1], ohms: 47k}
+      R2: {kind: resistor, nodes: [b1, gnd], ohms: 10k}
+      R3: {kind: resistor, nodes: [vf, c1], ohms: 4k7}
+      R4: {kind: resistor, nodes: [e1, gnd], ohms: 1k}
+      Q1: {kind: npn, c: c1, b: b1, e: e1, model: npn-small}
+      C1: {kind: capacitor, nodes: [c1, b2], farads: 100n}
+      R5: {kind: resistor, nodes: [b2, gnd], ohms: 10k}
+      R6: {kind: resistor, nodes: [vf, b2], ohms: 47k}
+      Q2: {kind: npn, c: vf, b: b2, e: e2, model: npn-small}
+      R7: {kind: resistor, nodes: [e2, gnd], ohms: 4R7}
+    points:
+      TP1: {node: c1, where: "Q1 collector"}
+      TP2: {node: e2, where: "Q2 emitter"}
+    """)
+
+
+@pytest.fixture
+def two_stage(tmp_path, rules):
+    p = tmp_path / "two.yaml"
+    p.write_text(CASE)
+    return load_case(p, rules)
+
+
+def test_linked_faults_found_by_topology(two_stage, rules):
+    ids = {s.id for s in faults.hypotheses(two_stage, rules) if s.origin == "linked"}
+    # shorted transistor takes its collector or emitter resistor with it
+    assert {"Q1:ce-short+R3:open", "Q1:ce-short+R4:open", "Q2:ce-short+R7:open"} <= ids
+    # a resistor on the rail side of the fuse is not a collector resistor of Q2
+    assert "Q2:ce-short+R1:open" not in ids
+    # the output transistor with its collector on the fused rail blows the fuse
+    assert "F1:open+Q2:ce-short" in ids
+    # the coupling capacitor between the stages drags the next base
+    assert "C1:short+Q2:be-open" in ids
+    # members in reference order (SPEC section 3)
+    for i in ids:
+        refs = [m.split(":")[0] for m in i.split("+")]
+        assert refs == sorted(refs, key=faults.ref_key)
+
+
+def test_parse_fault_id(two_stage, rules):
+    s = faults.parse_fault_id(two_stage, rules, "R3:open+Q1:ce-short")
+    assert s.id == "Q1:ce-short+R3:open"
+    for bad in ("R3", "R99:open", "R3:melted", "R3:open+R3:short"):
+        with pytest.raises(DiagError):
+            faults.parse_fault_id(two_stage, rules, bad)
+
+
+def test_fault_draws_follow_the_rules(two_stage, rules):
+    circ = netlist.compile_case(two_stage, rules)
+    spec = faults.parse_fault_id(two_stage, rules, "R3:high")
+    p = ensemble.draw_unit(circ, spec, 500, np.random.default_rng(1))
+    ratio = p["R3.r"] / circ.nominal["R3.r"]
+    # x1.5 to x10 on top of a 5 % tolerance draw (default tol, DEVELOPERS.md)
+    assert ratio.min() >= 1.5 * 0.95 and ratio.max() <= 10 * 1.05
+    spec = faults.parse_fault_id(two_stage, rules, "Q1:be-open")
+    p = ensemble.draw_unit(circ, spec, 4, np.random.default_rng(1))
+    assert np.all(p["Q1.k_be"] == 0.0)
+    a = ensemble.draw_hypotheses(circ, [spec], 8, seed=5)
+    b = ensemble.draw_hypotheses(circ, [faults.healthy_spec(), spec], 8, seed=5)
+    for k in a:  # a hypothesis draws the same units whatever is built beside it
+        np.testing.assert_array_equal(a[k], b[k][8:])

@@ -1,0 +1,135 @@
+"""Likelihood, posterior, goodness of fit and groups on synthetic ensembles.
+
+The synthetic ensembles are Gaussian clouds in the noise-scaled coordinate u (unit noise,
+infer.py), so the expected behaviour follows from Bayes' rule worked by hand."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from diag.core import infer
+
+EPS = 0.02  # blunder probability as in rules/faults.yaml
+
+
+def cloud(centres, K=128, spread=0.5, seed=0):
+    """(H, K, M) units scattered around per-hypothesis centres (H, M)."""
+    rng = np.random.default_rng(seed)
+    c = np.asarray(centres, float)
+    return c[:, None, :] + spread * rng.standard_normal((c.shape[0], K, c.shape[1]))
+
+
+CENTRES = [[0, 0, 0, 0], [10, 0, 0, 0], [0, 10, 0, 0], [0, 0, 10, 0], [10, 10, 0, 40]]
+
+
+def post_of(U, taken, u, prior=None):
+    H = U.shape[0]
+    lp = np.log(np.full(H, 1.0 / H) if prior is None else np.asarray(prior))
+    lo, W = infer.blunder_range(U)
+    return infer.score(U, np.asarray(taken), np.asarray(u, float), lp, EPS, W)
+
+
+@settings(max_examples=30, deadline=None)
+@given(st.lists(st.floats(-50, 50), min_size=1, max_size=4))
+def test_posterior_sums_to_one(vals):
+    U = cloud(CENTRES)
+    sc = post_of(U, list(range(len(vals))), vals)
+    assert sc.posterior.sum() == pytest.approx(1.0, abs=1e-12)  # definition of a posterior
+    assert np.all(sc.posterior >= 0)
+
+
+def test_no_readings_gives_the_prior():
+    U = cloud(CENTRES)
+    prior = np.array([0.5, 0.2, 0.1, 0.1, 0.1])
+    sc = post_of(U, [], [], prior)
+    np.testing.assert_allclose(sc.posterior, prior, rtol=1e-12)  # Bayes with no evidence
+
+
+def test_reading_on_a_prediction_raises_it():
+    U = cloud(CENTRES)
+    before = post_of(U, [], []).posterior
+    after = post_of(U, [1], [10.0]).posterior  # hypothesis 2 predicts 10 at observable 1
+    assert after[2] > before[2]
+    assert after[4] > before[4]  # so does 4 (also 10 there)
+    assert after[0] < before[0]
+    # the second reading at observable 3 tells 2 from 4 (0 versus 40)
+    both = post_of(U, [1, 3], [10.0, 0.0]).posterior
+    assert np.argmax(both) == 2 and both[2] > 0.95
+
+
+def test_a_blunder_does_not_drop_the_truth_below_top_three():
+    U = cloud(CENTRES)
+    # truth = hypothesis 4 (10, 10, 0, 40); the reading at observable 2 is a slip (25)
+    sc = post_of(U, [0, 1, 2, 3], [10.0, 10.0, 25.0, 40.0])
+    rank = list(np.argsort(-sc.posterior))
+    assert rank.index(4) < 3
+    assert rank[0] == 4  # the other three readings still single it out
+
+
+def test_failed_units_are_ignored():
+    U = cloud(CENTRES)
+    U[1, :64] = np.nan
+    sc = post_of(U, [0], [10.0])
+    assert np.isfinite(sc.loglik[1]) and np.argmax(sc.posterior) in (1, 4)
+    U[3] = np.nan
+    sc = post_of(U, [0], [0.0])
+    assert sc.posterior[3] == 0.0
+
+
+def _ref(R, M, seed):
+    rng = np.random.default_rng(seed)
+    return (np.arange(R), rng.standard_normal((R, M)), rng.uniform(size=(R, M)),
+            rng.uniform(size=(R, M)))
+
+
+def test_fit_pvalue_is_calibrated_when_the_model_holds():
+    """Readings of fresh units of the hypothesis (unit noise, blunders at the modelled
+    rate): p-values about uniform, so p < 0.05 about 5 % of the time (definition of a
+    calibrated p-value)."""
+    U = cloud(CENTRES, K=128, spread=2.0, seed=3)
+    lo, W = infer.blunder_range(U)
+    rk, rz, rb, rw = _ref(256, 4, 11)
+    rng = np.random.default_rng(7)
+    ps = []
+    for _ in range(200):
+        unit = np.asarray(CENTRES[2], float) + 2.0 * rng.standard_normal(4)
+        truth = unit + rng.standard_normal(4)
+        slip = rng.uniform(size=4) < EPS
+        truth[slip] = (lo + rng.uniform(size=4) * W)[slip]
+        ps.append(infer.fit_pvalue(U[2], np.arange(4), truth, EPS, lo, W, rk, rz, rb, rw))
+    ps = np.array(ps)
+    # binomial(200, 0.05): mean 10, sd 3.1; allow 2.5 sd each side
+    assert 2 <= np.sum(ps < 0.05) <= 18
+    assert 0.35 <= np.mean(ps) <= 0.65  # uniform mean 0.5
+
+
+def test_fit_pvalue_flags_readings_no_hypothesis_explains():
+    U = cloud(CENTRES, spread=1.0)
+    lo, W = infer.blunder_range(U)
+    rk, rz, rb, rw = _ref(256, 4, 11)
+    odd = np.array([5.0, 5.0, 5.0, 20.0])  # between every cloud, four readings off
+    ps = [infer.fit_pvalue(U[h], np.arange(4), odd, EPS, lo, W, rk, rz, rb, rw)
+          for h in range(5)]
+    assert max(ps) < 0.01
+    assert infer.fit_pvalue(U[0], np.array([], int), np.array([]), EPS, lo, W,
+                            rk, rz, rb, rw) == 1.0  # no readings: nothing to reject
+
+
+def test_groups_join_only_indistinguishable_hypotheses():
+    centres = [[0, 0], [0.5, 0.3], [10, 0], [10, 0.2], [0, 30]]
+    U = cloud(centres, spread=0.5)
+    g = infer.groups(U, np.arange(5), q=0.05, sigmas=1.0, share=0.5)
+    assert g[0] == g[1] and g[2] == g[3]
+    assert len({g[0], g[2], g[4]}) == 3
+
+
+def test_noise_transform_round_trip():
+    nz = infer.Noise(np.array([0.02, 0.05]), np.array([0.02, 1e-6]))
+    y = np.array([[12.0, 0.03], [-0.5, 1e-7]])
+    np.testing.assert_allclose(nz.y(nz.u(y)), y, rtol=1e-10)
+    # du/dy = 1/sigma(y): at y = 0 one noise width b is one unit (derivative of asinh)
+    d = (nz.u(np.array([1e-6, 1e-12])) - nz.u(np.array([0.0, 0.0]))) / np.array([1e-6, 1e-12])
+    np.testing.assert_allclose(d, 1 / nz.b, rtol=1e-3)

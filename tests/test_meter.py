@@ -1,0 +1,160 @@
+"""Meter model: loading, autoranged resolution, accuracy bound, displayed value, sigma."""
+
+from __future__ import annotations
+
+import textwrap
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from diag.core import meter as mt
+from diag.core.rules import load_rules
+
+METERS = load_rules()["meters"]
+H35 = METERS["handheld-3.5"]
+
+
+def test_divider_formula_one_megohm_source_reads_nine_percent_low():
+    # Handbook divider formula worked by hand: 10 MΩ / (10 MΩ + 1 MΩ) = 0.90909,
+    # i.e. the reading is 9.09 % low.
+    r = mt.loaded(1.0, 1e6, mt.input_impedance(H35))
+    assert_allclose(r, 10 / 11, rtol=1e-12)
+    assert_allclose(1 - r, 0.0909, atol=5e-5)
+
+
+def test_ac_input_impedance_is_r_parallel_c():
+    # Handbook: Z = R / (1 + jωRC); 10 MΩ ∥ 100 pF at 1 kHz: ωRC = 2π·1e3·1e-3 = 6.2832.
+    z = mt.input_impedance(H35, 1000.0)
+    assert_allclose(abs(z), 10e6 / np.hypot(1, 2 * np.pi * 1e3 * 10e6 * 100e-12), rtol=1e-12)
+
+
+@pytest.mark.parametrize("value, res", [
+    (1.999, 0.001),     # 2000 counts: 1.999 V shows on the 2 V range (common practice, no source)
+    (12.0, 0.01),       # 12 V needs the 20 V range: 0.01 V resolution (common practice)
+    (2.0, 0.01),        # 2.000 V does not fit 3½ digits: next range up (common practice)
+    (0.1999, 0.0001),   # 199.9 mV on the 200 mV range (common practice, no source)
+    (-5.0, 0.01),       # polarity does not change the range
+    (150.0, 0.1),
+])
+def test_autoranged_resolution_of_a_2000_count_meter(value, res):
+    assert_allclose(mt.resolution(value, H35, "V"), res, rtol=1e-12)
+
+
+def test_amperes_use_the_current_ranges():
+    # 2000 counts on the 200 mA range: 0.1 mA per count (common practice, no source).
+    assert_allclose(mt.resolution(0.104, H35, "A"), 1e-4, rtol=1e-12)
+
+
+def test_accuracy_bound_pct_plus_counts():
+    # ±(0.5 % + 2 counts) of 12.00 V on the 20 V range: 0.06 + 0.02 = 0.08 V (worked by hand
+    # from the SPEC default profile).
+    assert_allclose(mt.accuracy(12.0, "dc", H35, "V"), 0.08, rtol=1e-12)
+    # AC ±(1.0 % + 3 counts) of 0.5 V on the 2 V range: 0.005 + 0.003 = 0.008 V.
+    assert_allclose(mt.accuracy(0.5, "ac", H35, "V"), 0.008, rtol=1e-12)
+    # DC amperes ±(1.0 % + 3 counts) of 30 mA on the 200 mA range: 0.3 mA + 0.3 mA.
+    assert_allclose(mt.accuracy(0.030, "dc", H35, "A"), 0.0006, rtol=1e-12)
+
+
+def test_over_range_is_infinite_bound_and_ol_display():
+    # 2000 counts on the 1000 V top range hold 999.5 V at most (counts × resolution).
+    assert np.isinf(mt.accuracy(1500.0, "dc", H35, "V"))
+    rng = np.random.default_rng(0)
+    shown = mt.display(np.array([1500.0, -1500.0, np.nan]), "dc", H35, "V", rng)
+    assert shown[0] == np.inf and shown[1] == -np.inf and np.isnan(shown[2])
+
+
+def test_display_is_within_bound_and_on_the_resolution_grid():
+    rng = np.random.default_rng(1)
+    true = np.full(20000, 1.5)
+    shown = mt.display(true, "dc", H35, "V", rng)
+    bound = mt.accuracy(1.5, "dc", H35, "V")
+    assert np.all(np.abs(shown - true) <= bound + 0.0005 + 1e-12)
+    steps = shown / 0.001
+    assert_allclose(steps, np.rint(steps), atol=1e-9)
+    # The error is spread over the bound, not stuck at one value.
+    assert np.unique(shown).size > 10
+
+
+def test_sigma_matches_the_spread_of_displayed_values():
+    # Uniform within ±b has standard deviation b/√3; rounding adds q/√12 in quadrature
+    # (variance of a uniform distribution, (b - a)² / 12: handbook).
+    rng = np.random.default_rng(2)
+    for value in (0.7312, 4.87, 11.6):
+        true = np.full(40000, value)
+        shown = mt.display(true, "dc", H35, "V", rng)
+        s = float(mt.sigma(value, "dc", H35, "V"))
+        assert_allclose(np.std(shown), s, rtol=0.05)
+        assert_allclose(np.mean(shown), value, atol=3 * s / np.sqrt(true.size) + 1e-4)
+
+
+def test_every_profile_has_the_fields_the_meter_model_reads():
+    for name, prof in METERS.items():
+        for key in ("r_in", "c_in", "counts", "dc_pct", "dc_counts", "ac_pct", "ac_counts",
+                    "a_pct", "a_counts", "v_ranges", "a_ranges"):
+            assert key in prof, f"{name} lacks {key}"
+        assert list(prof["v_ranges"]) == sorted(prof["v_ranges"]), name
+
+
+def _tmp_case(tmp_path, text: str):
+    from diag.core.case import load_case
+
+    path = tmp_path / "c.yaml"
+    path.write_text(textwrap.dedent(text), encoding="utf-8")
+    return load_case(str(path))
+
+
+def _readings(case):
+    from diag.core import netlist, solver
+
+    rules = load_rules()
+    circuit = netlist.compile_case(case, rules)
+    dc = solver.solve_dc(circuit, {})
+    ac = solver.solve_ac(circuit, {}, dc) if case.signal is not None else None
+    return mt.observe(circuit, {}, dc, ac, case.observables, case.meter)
+
+
+def test_observe_applies_divider_loading(tmp_path):
+    case = _tmp_case(tmp_path, """\
+        case: 1
+        title: loading check
+        about: two 1 MΩ resistors across 10 V
+        parts:
+          V1: {kind: supply, plus: vcc, minus: gnd, volts: 10, r_source: 1}
+          R1: {kind: resistor, nodes: [vcc, mid], ohms: 1M}
+          R2: {kind: resistor, nodes: [mid, gnd], ohms: 1M}
+        points:
+          TP1: {node: mid, where: "midpoint"}
+          TP2: {node: vcc, minus: mid, where: "across R1"}
+          TP3: {supply: V1, where: "ammeter"}
+        """)
+    r = _readings(case)
+    # Handbook divider by hand: open 10 V · 1M / (2M + 1) behind 1M ∥ (1M + 1) on 10 MΩ
+    # (about 5 · 10 / 10.5 = 4.762 V, 4.8 % low).
+    # rtol 1e-5: the solver's 1e-12 S node shunts (solver.GSHUNT) move this by ~3 ppm.
+    v_open, r_th = 10 * 1e6 / (2e6 + 1), 1e6 * (1e6 + 1) / (2e6 + 1)
+    assert_allclose(r[0, 0], v_open * 10e6 / (10e6 + r_th), rtol=1e-5)
+    # Across R1 (a pair off the ground): the same figures by symmetry.
+    assert_allclose(r[0, 1], v_open * 10e6 / (10e6 + r_th), rtol=1e-5)
+    # Supply current without the meter: 10 V / (2 MΩ + 1 Ω) (Ohm's law).
+    assert_allclose(r[0, 2], 10 / (2e6 + 1), rtol=1e-6)
+
+
+def test_observe_ac_loading_uses_r_parallel_c(tmp_path):
+    case = _tmp_case(tmp_path, """\
+        case: 1
+        title: AC loading check
+        about: a 1 kHz source behind 1 MΩ, measured by the meter
+        parts:
+          V1: {kind: signal, plus: in, minus: gnd, vrms: 1, hz: 1k, r_source: 1M}
+          R1: {kind: resistor, nodes: [in, gnd], ohms: 100M}
+        points:
+          TP1: {node: in, where: "source terminal", reads: [dc, ac]}
+        """)
+    r = _readings(case)
+    # By hand: open-circuit 1 V · 100M/(101M) behind 1M ∥ 100M; meter 10 MΩ ∥ 100 pF.
+    zs = 1e6 * 100e6 / 101e6
+    zin = 10e6 / (1 + 2j * np.pi * 1e3 * 10e6 * 100e-12)
+    expect = abs(100 / 101 * zin / (zin + zs))
+    assert_allclose(r[0, 1], expect, rtol=1e-6)
+    assert_allclose(r[0, 0], 0.0, atol=1e-12)

@@ -1,0 +1,205 @@
+"""diag's solver against ngspice (the reference simulator) on every bundled case.
+
+For each case one batch netlist is written from diag's own compiled circuit
+(diag.core.spice), so the models stay in step, and ngspice runs once (`-b`) on it. The
+variants: nominal; a shorted base-emitter junction; an open resistor; a transistor with
+a third of its gain; every supply 15 % low; a shorted electrolytic; an open emitter
+junction; two tolerance draws. Every node voltage must agree within max(1 mV, 0.2 %),
+every supply current within max(1 µA, 0.2 %), every AC magnitude within 1 %.
+A second run checks the meter readings (divider loading through solver.thevenin) against
+ngspice with the meter's input attached at each voltage point.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from diag.core import ensemble, meter, solver, spice
+from diag.core.case import load_case
+from diag.core.netlist import compile_case
+from diag.core.rules import load_rules
+
+pytestmark = pytest.mark.ngspice
+
+V_ATOL, V_RTOL = 1e-3, 2e-3      # volts; the project's agreement target with ngspice
+I_ATOL, I_RTOL = 1e-6, 2e-3      # amperes
+AC_RTOL = 1e-2
+AC_ATOL = 1e-5                   # volts rms: a tenth of the 0.1 mV count of a 2000-count
+                                 # meter's 200 mV range (common practice, no source)
+
+
+def _first(case, kinds):
+    return next((p for p in case.parts if p.kind in kinds), None)
+
+
+def _variants(circuit) -> list[tuple[str, dict[str, float]]]:
+    """(label, overrides) per variant; overrides keyed like params, scalars."""
+    case = circuit.case
+    nom = circuit.nominal
+    q = _first(case, ("npn", "pnp"))
+    r = _first(case, ("resistor",))
+    c = _first(case, ("electrolytic", "capacitor"))
+    d = _first(case, ("diode", "led", "zener"))
+    out = [("nominal", {})]
+    if q is not None:
+        out.append((f"{q.ref} be shorted", {f"{q.ref}.g_be": 100.0}))
+        out.append((f"{q.ref} gain / 3", {f"{q.ref}.bf": nom[f"{q.ref}.bf"] / 3}))
+        out.append((f"{q.ref} be open", {f"{q.ref}.k_be": 0.0}))
+        if f"{q.ref}.ci" in circuit.unknowns:   # the model's RC gives an inner collector
+            out.append((f"{q.ref} collector lead lifted", {f"{q.ref}.rc": 1e12}))
+        out.append((f"{q.ref} ce shorted", {f"{q.ref}.g_ce": 10.0}))
+    if r is not None:
+        out.append((f"{r.ref} open", {f"{r.ref}.r": 1e9}))
+    if c is not None:
+        out.append((f"{c.ref} shorted", {f"{c.ref}.leak": 1.0}))
+    if d is not None:
+        out.append((f"{d.ref} open", {f"{d.ref}.k": 0.0}))
+        out.append((f"{d.ref} shorted", {f"{d.ref}.g_sh": 100.0}))
+    for p in case.parts:
+        if p.kind in ("speaker", "inductor", "fuse"):
+            out.append((f"{p.ref} open", {f"{p.ref}.r": 1e9}))
+    out.append(("supplies -15 %", {f"{s}.v": 0.85 * nom[f"{s}.v"] for s in circuit.supplies}))
+    return out
+
+
+def _batch(circuit, variants, draws=2, seed=0):
+    """params dict of (B,) arrays: the listed variants, then `draws` tolerance draws."""
+    labels = [v[0] for v in variants] + [f"draw {k}" for k in range(draws)]
+    B = len(labels)
+    drawn = ensemble.draw_healthy(circuit, draws, np.random.default_rng(seed))
+    keys = set(drawn) | {k for _, o in variants for k in o}
+    params = {}
+    for key in keys:
+        col = np.full(B, circuit.nominal[key], dtype=float)
+        for b, (_, over) in enumerate(variants):
+            if key in over:
+                col[b] = over[key]
+        if key in drawn:
+            col[len(variants):] = np.asarray(drawn[key], dtype=float)
+        params[key] = col
+    return labels, params
+
+
+def _run(case_path, ngspice_util):
+    case = load_case(str(case_path))
+    circuit = compile_case(case, load_rules())
+    labels, params = _batch(circuit, _variants(circuit))
+    dc = solver.solve_dc(circuit, params)
+    ac = solver.solve_ac(circuit, params, dc) if case.signal is not None else None
+    ref = ngspice_util.run_ngspice(spice.netlist(circuit, params))
+    return case, circuit, labels, params, dc, ac, ref
+
+
+@pytest.fixture(scope="module")
+def runs():
+    return {}
+
+
+def _cached(runs, case_path, ngspice):
+    """One diag solve and one ngspice run per case, shared by the three tests (a failure
+    is kept too, so it is reported once per test without running ngspice again)."""
+    if case_path not in runs:
+        try:
+            runs[case_path] = _run(case_path, ngspice)
+        except Exception as exc:  # noqa: BLE001 - re-raised below, in every test
+            runs[case_path] = exc
+    got = runs[case_path]
+    if isinstance(got, Exception):
+        raise got
+    return got
+
+
+def test_operating_point_matches_ngspice(case_path, ngspice, runs):
+    case, circuit, labels, params, dc, ac, ref = _cached(runs, case_path, ngspice)
+    bad = []
+    for b, label in enumerate(labels):
+        assert dc.ok[b], f"{label}: diag did not converge: {dc.why[b]}"
+        for n in case.nodes:
+            ours = dc.v[b, circuit.node_index[n]]
+            theirs = ref.v(spice.node_name(case, n, b))  # ngspice, the reference simulator
+            if abs(ours - theirs) > max(V_ATOL, V_RTOL * abs(theirs)):
+                bad.append(f"{label}: {n} diag {ours:.6g} V, ngspice {theirs:.6g} V")
+    assert not bad, "\n".join(bad)
+
+
+def test_supply_currents_match_ngspice(case_path, ngspice, runs):
+    case, circuit, labels, params, dc, ac, ref = _cached(runs, case_path, ngspice)
+    bad = []
+    for b, label in enumerate(labels):
+        for s, sref in enumerate(circuit.supplies):
+            ours = dc.i_supply[b, s]
+            theirs = -ref.i(spice.source_name(sref, b))  # ngspice: current drawn = -i(V)
+            if abs(ours - theirs) > max(I_ATOL, I_RTOL * abs(theirs)):
+                bad.append(f"{label}: {sref} diag {ours:.6g} A, ngspice {theirs:.6g} A")
+    assert not bad, "\n".join(bad)
+
+
+def test_ac_magnitudes_match_ngspice(case_path, ngspice, runs):
+    case, circuit, labels, params, dc, ac, ref = _cached(runs, case_path, ngspice)
+    if case.signal is None:
+        pytest.skip(f"{case_path.name} has no signal part (no ac readings offered)")
+    bad = []
+    for b, label in enumerate(labels):
+        for n in case.nodes:
+            ours = abs(ac.v[b, circuit.node_index[n]])
+            theirs = abs(ref.vac(spice.node_name(case, n, b)))  # ngspice AC analysis
+            if abs(ours - theirs) > max(AC_ATOL, AC_RTOL * theirs):
+                bad.append(f"{label}: {n} diag {ours:.6g} V, ngspice {theirs:.6g} V rms")
+    assert not bad, "\n".join(bad)
+
+
+def test_meter_loading_matches_ngspice(case_path, ngspice):
+    """Each voltage point read by the case's meter: diag's divider formula on
+    solver.thevenin against ngspice with r_in (and c_in for ac) attached there."""
+    case = load_case(str(case_path))
+    circuit = compile_case(case, load_rules())
+    pts = [o for o in case.observables if o.unit == "V"]
+    B = len(pts)
+    dc = solver.solve_dc(circuit, {})
+    ac = solver.solve_ac(circuit, {}, dc) if case.signal is not None else None
+    ours = meter.observe(circuit, {}, dc, ac, pts, case.meter)[0]
+    # B copies of the nominal circuit, copy b with the meter across point b.
+    extra = []
+    for b, ob in enumerate(pts):
+        pt = case.point(ob.point)
+        a = spice.node_name(case, pt.node, b)
+        m = spice.node_name(case, pt.minus or case.ground, b)
+        extra.append(f"R_meter__v{b} {a} {m} {float(case.meter['r_in']):.12g}")
+        if ob.kind == "ac":
+            extra.append(f"C_meter__v{b} {a} {m} {float(case.meter['c_in']):.12g}")
+    text = spice.netlist(circuit, copies=B, extra=extra)
+    ref = ngspice.run_ngspice(text)
+    bad = []
+    for b, ob in enumerate(pts):
+        pt = case.point(ob.point)
+        a = spice.node_name(case, pt.node, b)
+        m = spice.node_name(case, pt.minus or case.ground, b)
+        if ob.kind == "dc":
+            theirs = ref.v(a) - ref.v(m)  # ngspice with the meter resistance attached
+            tol = max(V_ATOL, V_RTOL * abs(theirs))
+        else:
+            theirs = abs(ref.vac(a) - ref.vac(m))
+            tol = max(AC_ATOL, AC_RTOL * theirs)
+        if abs(ours[b] - theirs) > tol:
+            bad.append(f"{ob.point} {ob.kind}: diag {ours[b]:.6g}, ngspice {theirs:.6g}")
+    assert not bad, "\n".join(bad)
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "known model gap, reported to the solver and fault engineers: diag's k_bc = 0 removes "
+    "the transport current as well as the BC diode, while a lifted collector lead (ngspice "
+    "with 1e12 ohm in the lead) leaves the transistor saturated inside with Ic = 0, so "
+    "the base-emitter path conducts about BF/(1+BR) times more and Vbe reads 70-95 mV "
+    "lower. rc = 1e12 on the model's own inner collector agrees with ngspice (see the "
+    "'collector lead lifted' variant above)."))
+def test_open_collector_hook_matches_a_lifted_lead(case_path, ngspice):
+    case = load_case(str(case_path))
+    circuit = compile_case(case, load_rules())
+    q = _first(case, ("npn", "pnp"))
+    params = {f"{q.ref}.k_bc": 0.0}
+    dc = solver.solve_dc(circuit, params)
+    ref = ngspice.run_ngspice(spice.netlist(circuit, params))
+    b = q.terminal("b")
+    theirs = ref.v(spice.node_name(case, b))  # ngspice, the reference simulator
+    assert abs(dc.v[0, circuit.node_index[b]] - theirs) <= max(V_ATOL, V_RTOL * abs(theirs))

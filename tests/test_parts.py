@@ -1,0 +1,261 @@
+"""Part models: constants, models.yaml, device equations, defaults, spreads.
+
+`make_case` (also used by test_solver.py and test_handbook_dc.py) builds a Case by hand,
+so these tests do not depend on the case loader.
+"""
+
+from __future__ import annotations
+
+import math
+from types import MappingProxyType
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from scipy import constants
+
+from diag.core import ensemble, netlist, solver
+from diag.core.case import Case, Part
+from diag.core.parts import REGISTRY, VT, check_models
+from diag.core.parts.base import T_KELVIN, pnjlim
+from diag.core.parts.bjt import BJTDevice
+from diag.core.parts.passive import electrolytic_leak_limit
+from diag.core.rules import load_rules
+
+RULES = load_rules()
+MODELS = RULES["models"]
+SEMI = ("npn", "pnp", "diode", "led", "zener")
+DEFAULT = {"npn": "npn-small", "pnp": "pnp-small", "diode": "si-diode", "led": "led-red",
+           "zener": "zener"}
+_counter = [0]
+
+
+def part(ref, kind, nodes, value=None, tol=None, model=None, **fields):
+    """A Part as the loader would give it (model resolved from rules/models.yaml, or an
+    inline mapping of SPICE names)."""
+    m = None
+    if kind in SEMI:
+        if isinstance(model, dict):
+            m = {"name": "inline", **model}
+        else:
+            name = model or DEFAULT[kind]
+            m = {"name": name, **MODELS[name]["params"]}
+    if "hfe" in fields:
+        fields["hfe"] = tuple(float(x) for x in fields["hfe"])
+    return Part(ref, kind, tuple(nodes), value, tol, MappingProxyType(fields),
+                None if m is None else MappingProxyType(m))
+
+
+def make_case(*parts, ground="gnd") -> Case:
+    nodes: list[str] = []
+    for p in parts:
+        for n in p.nodes:
+            if n != ground and n not in nodes:
+                nodes.append(n)
+    _counter[0] += 1
+    return Case(path="<hand-built>", version=1, title="test", about="", ground=ground,
+                parts=tuple(parts), nodes=tuple(nodes), points=(), meter={},
+                hash=f"handbuilt{_counter[0]}")
+
+
+def compiled(*parts):
+    return netlist.compile_case(make_case(*parts), RULES)
+
+
+# ----------------------------------------------------------------------------- constants
+
+def test_thermal_voltage_is_codata_kt_over_q():
+    # CODATA via scipy.constants: kT/q = 25.85 mV at 300 K
+    assert_allclose(constants.k * 300.0 / constants.e, 25.85e-3, atol=0.01e-3)
+    # the solver's 27 °C (SPICE default) value: k * 300.15 K / q
+    assert T_KELVIN == 300.15
+    assert_allclose(VT, constants.k * 300.15 / constants.e, rtol=1e-15)
+    assert_allclose(VT, 25.865e-3, atol=0.001e-3)
+
+
+# ----------------------------------------------------------------------------- models.yaml
+
+def test_generic_models_exist_with_their_kinds():
+    # SPEC section 1: these generic names must exist
+    want = {"npn-small": "npn", "npn-power": "npn", "pnp-small": "pnp", "pnp-power": "pnp",
+            "si-diode": "diode", "si-rectifier": "diode", "led-red": "led",
+            "led-green": "led", "zener": "zener"}
+    for name, kind in want.items():
+        assert MODELS[name]["kind"] == kind
+        assert MODELS[name]["about"]
+    check_models(MODELS, RULES.file("models"))
+
+
+def test_models_check_names_a_bad_parameter():
+    from diag.core.errors import DiagError
+
+    with pytest.raises(DiagError, match="unknown model parameter 'BETA'"):
+        check_models({"x": {"kind": "npn", "params": {"BETA": 100}}}, "models.yaml")
+
+
+def _hfe_at(model: str, ic_target: float, vce: float = 5.0) -> float:
+    """Ic/Ib of the intrinsic model at collector current ic_target (A), bisection on vbe."""
+    c = compiled(part("Q1", "npn", ["c", "b", "gnd"], model=model))
+    p = c.part_nominal("Q1")
+    p.update(BJTDevice.prepare(p))
+    dev = BJTDevice((0, 1, 2), 1.0)
+    lo, hi = 0.3, 1.2
+    for _ in range(80):
+        vbe = 0.5 * (lo + hi)
+        ic, ib, _, _ = dev.currents(p, np.array(vbe), np.array(vbe - vce))
+        lo, hi = (vbe, hi) if ic < ic_target else (lo, vbe)
+    return float(ic / ib)
+
+
+def test_small_npn_gain_falls_at_100_ma():
+    # common practice, no source: a small-signal NPN with low-current hFE ~200-300 has
+    # hFE roughly 45-50 at 100 mA (high-current knee IKF)
+    h_low = _hfe_at("npn-small", 2e-3)
+    h_100 = _hfe_at("npn-small", 0.1)
+    assert 200 <= h_low <= 300
+    assert 45 <= h_100 <= 52
+
+
+# ----------------------------------------------------------------------------- defaults
+
+def test_speaker_dc_resistance_default_is_80_percent_of_rated():
+    # IEC 60268-5: impedance not below 80 % of rated; r_dc default 0.8 x rated, z = rated
+    c = compiled(part("V1", "supply", ["a", "gnd"], 1.0),
+                 part("LS1", "speaker", ["a", "gnd"], 8.0))
+    assert c.nominal["LS1.r"] == pytest.approx(6.4)
+    assert c.nominal["LS1.z"] == pytest.approx(8.0)
+
+
+def test_explicit_fields_are_used_as_given():
+    c = compiled(part("V1", "supply", ["a", "gnd"], 9.0, r_source=1.5),
+                 part("C1", "electrolytic", ["a", "gnd"], 100e-6, esr=0.7, leak=2e6),
+                 part("L1", "inductor", ["a", "gnd"], 1e-3, r_dc=120.0),
+                 part("LS1", "speaker", ["a", "gnd"], 8.0, r_dc=7.1),
+                 part("F1", "fuse", ["a", "gnd"], 0.2), part("W1", "link", ["a", "gnd"]))
+    n = c.nominal
+    assert (n["V1.r"], n["C1.esr"], n["C1.leak"], n["L1.r"], n["LS1.r"], n["F1.r"]) == \
+        (1.5, 0.7, 2e6, 120.0, 7.1, 0.2)
+    assert 1e-3 <= n["W1.r"] <= 0.02      # from memory: a link is a few milliohms
+
+
+def test_electrolytic_leakage_nominal_far_below_limit_and_spread_tops_at_limit():
+    # common practice, no source: limit I = 0.01·C[µF]·V µA or 3 µA, whichever larger
+    assert electrolytic_leak_limit(47e-6, 25.0) == pytest.approx(11.75e-6)
+    assert electrolytic_leak_limit(1e-6, 16.0) == pytest.approx(3e-6)
+    c = compiled(part("V1", "supply", ["a", "gnd"], 12.0),
+                 part("C1", "electrolytic", ["a", "gnd"], 47e-6, volts_rated=25.0),
+                 part("R1", "resistor", ["a", "gnd"], 1e3))
+    i_nom = 25.0 / c.nominal["C1.leak"]
+    assert i_nom <= 0.1 * 11.75e-6
+    draws = ensemble.draw_healthy(c, 2000, np.random.default_rng(1))["C1.leak"]
+    i = 25.0 / draws
+    assert i.max() <= 11.75e-6 * (1 + 1e-12)
+    assert i.max() > 0.5 * 11.75e-6     # the spread reaches up towards the limit
+
+
+def test_electrolytic_without_rating_uses_the_supply_voltage():
+    c = compiled(part("V1", "supply", ["a", "gnd"], 12.0),
+                 part("C1", "electrolytic", ["a", "gnd"], 470e-6))
+    lim = electrolytic_leak_limit(470e-6, 12.0)
+    assert 12.0 / c.nominal["C1.leak"] == pytest.approx(lim / 20)
+
+
+# ----------------------------------------------------------------------------- spreads
+
+def test_draws_stay_inside_tolerance_and_hfe_range():
+    c = compiled(part("V1", "supply", ["vcc", "gnd"], 12.0, tol=0.05),
+                 part("R1", "resistor", ["vcc", "b"], 10e3, tol=0.01),
+                 part("R2", "resistor", ["b", "gnd"], 2.2e3),
+                 part("Q1", "npn", ["vcc", "b", "gnd"], hfe=[150, 450]))
+    d = ensemble.draw_healthy(c, 5000, np.random.default_rng(7))
+    assert np.all(np.abs(d["R1.r"] / 10e3 - 1) <= 0.01)
+    assert np.all(np.abs(d["R2.r"] / 2.2e3 - 1) <= 0.05)      # default 5 % (issue text)
+    assert np.all(np.abs(d["V1.v"] / 12 - 1) <= 0.05)
+    assert d["Q1.bf"].min() >= 150 and d["Q1.bf"].max() <= 450
+    # log-uniform: the median sits at the geometric mean
+    assert_allclose(np.median(d["Q1.bf"]), math.sqrt(150 * 450), rtol=0.05)
+    assert c.nominal["Q1.bf"] == pytest.approx(math.sqrt(150 * 450))
+    # saturation current: log-normal about the nominal
+    assert_allclose(np.median(np.log(d["Q1.is"] / c.nominal["Q1.is"])), 0.0, atol=0.03)
+    again = ensemble.draw_healthy(c, 5000, np.random.default_rng(7))
+    assert all(np.array_equal(d[k], again[k]) for k in d)
+
+
+def test_zener_bv_from_part_and_spread_per_model():
+    c = compiled(part("V1", "supply", ["a", "gnd"], 15.0),
+                 part("R1", "resistor", ["a", "k"], 1e3),
+                 part("D1", "zener", ["gnd", "k"], bv=10.0))
+    assert c.nominal["D1.bv"] == 10.0
+    d = ensemble.draw_healthy(c, 2000, np.random.default_rng(2))["D1.bv"]
+    tol = MODELS["zener"]["spread"]["bv_tol"]
+    assert d.min() >= 10 * (1 - tol) and d.max() <= 10 * (1 + tol)
+
+
+def test_every_kind_is_registered():
+    from diag.core.case import TERMINALS
+
+    assert set(TERMINALS) <= set(REGISTRY)
+
+
+# ----------------------------------------------------------------------------- device maths
+
+def test_pnjlim_limits_large_forward_steps_only():
+    # SPICE pnjlim: a step above vcrit larger than 2 vt is compressed logarithmically
+    v, lim = pnjlim(np.array([2.0, 0.60]), np.array([0.6, 0.59]), VT, 0.6)
+    assert lim[0] and not lim[1]
+    assert_allclose(v[0], 0.6 + VT * math.log(1 + 1.4 / VT), rtol=1e-12)
+    assert v[1] == 0.60
+
+
+def test_bjt_reduces_to_ebers_moll_with_extras_off():
+    # Ebers-Moll transport model (handbook): Ic = IS(e^(vbe/vt) - e^(vbc/vt))
+    #   - IS/BR (e^(vbc/vt) - 1);  Ib = IS/BF (e^(vbe/vt) - 1) + IS/BR (e^(vbc/vt) - 1)
+    em = {"IS": 1e-15, "BF": 120.0, "BR": 3.0}
+    c = compiled(part("Q1", "npn", ["c", "b", "gnd"], model=em))
+    p = c.part_nominal("Q1")
+    p.update(BJTDevice.prepare(p))
+    vbe = np.array([0.55, 0.65, 0.7, 0.2])
+    vbc = np.array([-3.0, -0.2, 0.6, 0.65])
+    ic, ib, _, _ = BJTDevice((0, 1, 2), 1.0).currents(p, vbe, vbc)
+    ebe, ebc = np.exp(vbe / VT), np.exp(vbc / VT)
+    gmin = 1e-12   # SPICE gmin across each junction
+    ic_em = 1e-15 * (ebe - ebc) - 1e-15 / 3.0 * (ebc - 1) - gmin * vbc
+    ib_em = 1e-15 / 120.0 * (ebe - 1) + 1e-15 / 3.0 * (ebc - 1) + gmin * (vbe + vbc)
+    assert_allclose(ic, ic_em, rtol=1e-9, atol=1e-18)
+    assert_allclose(ib, ib_em, rtol=1e-9, atol=1e-18)
+
+
+@pytest.mark.parametrize("kind", ["npn", "pnp"])
+def test_bjt_jacobian_matches_finite_differences(kind):
+    # independent path: central differences of the terminal currents
+    c = compiled(part("Q1", kind, ["c", "b", "gnd"]))
+    p = c.part_nominal("Q1")
+    p.update(k_be=0.7, k_bc=0.9)
+    p.update(BJTDevice.prepare(p))
+    dev = BJTDevice((0, 1, 2), 1.0 if kind == "npn" else -1.0)
+    s = dev.pol
+    v = np.array([[s * 2.0], [s * 0.68], [0.0]])
+
+    def cur(vv):
+        J, ieq, _, _ = dev.eval(p, vv, None, limit=False)
+        return ieq + np.einsum("abk,bk->ak", J, vv)
+
+    J, _, _, _ = dev.eval(p, v, None, limit=False)
+    h = 1e-7
+    for u in range(3):
+        d = np.zeros((3, 1))
+        d[u] = h
+        fd = (cur(v + d) - cur(v - d)) / (2 * h)
+        assert_allclose(J[:, u, 0], fd[:, 0], rtol=1e-4, atol=1e-12)
+
+
+def test_bjt_open_base_emitter_junction_gives_zero_emitter_current():
+    # fault hook (DEVELOPERS.md): k_be = 0 opens the BE junction; the BC diode still
+    # conducts (worked by hand from the transport model: it and ibe scale with k_be)
+    c = compiled(part("Q1", "npn", ["c", "b", "gnd"]))
+    p = c.part_nominal("Q1")
+    p.update(k_be=0.0)
+    p.update(BJTDevice.prepare(p))
+    ic, ib, _, _ = BJTDevice((0, 1, 2), 1.0).currents(p, np.array(0.7), np.array(0.6))
+    assert abs(ic + ib) < 1e-15            # emitter current (ie = -(ic + ib))
+    assert ib > 1e-6                       # BC junction forward: base current flows

@@ -1,0 +1,95 @@
+"""Readings files (SPEC section 2) and the validation of one typed value."""
+
+from __future__ import annotations
+
+import pytest
+
+from diag.core import readings
+from diag.core.case import load_case
+from diag.core.errors import DiagError
+from diag.core.paths import cases_dir
+
+CASE = cases_dir() / "pushpull-output.yaml"  # 12 V supply, TP1 supply point, TP3 dc+ac
+
+
+@pytest.fixture(scope="module")
+def case():
+    return load_case(CASE)
+
+
+def test_single_unit_forms_and_prefixes(case):
+    text = "point,value\nTP2,11.9\nTP3,1.19 V\nTP4,312m\nTP1,27 mA\n"
+    rf = readings.parse_text(text, case)
+    got = {(r.point, r.kind): r.value for r in rf.single()}
+    assert got[("TP2", "dc")] == pytest.approx(11.9)
+    assert got[("TP3", "dc")] == pytest.approx(1.19)
+    assert got[("TP4", "dc")] == pytest.approx(0.312)  # SI prefix m = 1e-3
+    assert got[("TP1", "dc")] == pytest.approx(0.027)
+    assert not rf.errors and not rf.batch
+    rows = {r.point: r.row for r in rf.single()}
+    assert rows == {"TP2": 2, "TP3": 3, "TP4": 4, "TP1": 5}  # header is row 1
+
+
+def test_kind_column(case):
+    rf = readings.parse_text("point,kind,value\nTP3,ac,70m\nTP3,dc,1.2\nTP7,,6.4\n", case)
+    got = {(r.point, r.kind): r.value for r in rf.single()}
+    assert got == {("TP3", "ac"): pytest.approx(0.07), ("TP3", "dc"): pytest.approx(1.2),
+                   ("TP7", "dc"): pytest.approx(6.4)}
+
+
+def test_header_only_is_valid(case):
+    rf = readings.parse_text("point,value\n", case)
+    assert rf.single() == () and not rf.errors
+
+
+def test_bad_rows_reported_with_row_numbers_rest_kept(case):
+    text = ("point,value\nTP2,11.9\nTP99,1\nTP3,4kk\nTP4,13.5\nTP5,-0.6\n"
+            "TP2,ac,1\nTP7,6.4\n")
+    rf = readings.parse_text(text, case, file="u.csv")
+    lines = sorted(e.line for e in rf.errors)
+    assert lines == [3, 4, 5, 6, 7]
+    msgs = " ".join(rf.rejected)
+    assert "TP99" in msgs and "above" in msgs and "negative" in msgs
+    kept = {r.point for r in rf.single()}
+    assert kept == {"TP2", "TP7"}
+
+
+def test_kind_not_offered(case):
+    rf = readings.parse_text("point,kind,value\nTP2,ac,1\n", case)
+    assert rf.errors and "no ac reading" in rf.rejected[0]
+
+
+def test_batch(case):
+    text = "unit,point,value\nA1,TP2,11.9\nB7,TP2,0\nA1,TP3,1.2\nB7,TP3,x\n"
+    rf = readings.parse_text(text, case)
+    assert rf.batch and list(rf.units) == ["A1", "B7"]  # order of first appearance
+    assert len(rf.units["A1"]) == 2 and len(rf.units["B7"]) == 1
+    assert [e.line for e in rf.errors] == [5]
+    with pytest.raises(DiagError):
+        rf.single()
+
+
+def test_repeated_reading_keeps_the_later(case):
+    rf = readings.parse_text("point,value\nTP2,11.0\nTP2,11.9\n", case)
+    assert [r.value for r in rf.single()] == [pytest.approx(11.9)]
+    assert rf.errors[0].line == 2
+
+
+def test_check_value_for_one_typed_reading(case):
+    assert readings.check_value(case, "TP7", "dc", "6.4 V") == pytest.approx(6.4)
+    assert readings.check_value(case, "TP1", "dc", "27m") == pytest.approx(0.027)
+    # 12 V supply at 5 % tolerance: 13.5 V cannot come from this circuit (SPEC section 2)
+    for point, kind, text in (("TP7", "dc", "13.5"), ("TP7", "dc", "-0.6"),
+                              ("TP7", "ac", "-1"), ("TP1", "dc", "-5m"),
+                              ("TP7", "dc", "abc"), ("TP0", "dc", "1")):
+        with pytest.raises(DiagError):
+            readings.check_value(case, point, kind, text)
+
+
+def test_missing_header_and_empty(case):
+    rf = readings.parse_text("TP2,11.9\n", case)  # no header: point,value assumed
+    assert len(rf.single()) == 1
+    with pytest.raises(DiagError):
+        readings.parse_text("", case)
+    with pytest.raises(DiagError):
+        readings.parse_text("a,b,c,d,e\n", case)

@@ -1,0 +1,191 @@
+"""The batched solver: closed forms by hand, batched against single solves, extreme fault
+values, floating nodes, AC and Thevenin, regions, every bundled case."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from diag.core import ensemble, netlist, solver
+from diag.core.case import load_case
+from diag.core.errors import DiagError
+from test_parts import RULES, compiled, part
+
+
+def divider(r_source=None):
+    extra = {} if r_source is None else {"r_source": r_source}
+    return compiled(part("V1", "supply", ["vcc", "gnd"], 12.0, **extra),
+                    part("R1", "resistor", ["vcc", "mid"], 10e3),
+                    part("R2", "resistor", ["mid", "gnd"], 2.2e3))
+
+
+def follower():
+    """Divider-biased emitter follower with a load, 12 V."""
+    return compiled(part("V1", "supply", ["vcc", "gnd"], 12.0, tol=0.05, r_source=0.5),
+                    part("R1", "resistor", ["vcc", "b"], 47e3),
+                    part("R2", "resistor", ["b", "gnd"], 47e3),
+                    part("Q1", "npn", ["vcc", "b", "e"], hfe=[110, 450]),
+                    part("R3", "resistor", ["e", "gnd"], 1e3),
+                    part("C1", "electrolytic", ["e", "out"], 10e-6, volts_rated=25.0),
+                    part("R4", "resistor", ["out", "gnd"], 10e3))
+
+
+def test_divider_and_its_thevenin_resistance_by_hand():
+    c = divider(r_source=0.0)
+    dc = solver.solve_dc(c)
+    # divider formula (handbook): 12 * 2.2k / 12.2k; nothing else loads the node
+    assert_allclose(dc.v[0, c.node_index["mid"]], 12 * 2.2 / 12.2, rtol=1e-9)
+    # Thevenin (handbook): R1 ∥ R2 = 1803.28 Ω to ground; between vcc and mid: R1 ∥ R2 too
+    # (the ideal supply shorts vcc to ground for small signals)
+    z = solver.thevenin(c, None, dc, [("mid", "gnd"), ("gnd", "mid"), ("vcc", "mid")])
+    assert_allclose(z[0, 0], 10e3 * 2.2e3 / 12.2e3, rtol=1e-6)
+    assert_allclose(z[0, 1], z[0, 0], rtol=1e-12)
+    assert_allclose(z[0, 2], z[0, 0], rtol=1e-6)
+    # the default 50 mΩ source resistance (parts.sources.SUPPLY_R), Ohm's law by hand
+    c = divider()
+    dc = solver.solve_dc(c)
+    assert c.nominal["V1.r"] == 0.05
+    assert_allclose(dc.i_supply[0, 0], 12 / (12.2e3 + 0.05), rtol=1e-9)
+
+
+def test_supply_source_resistance_and_current():
+    # Ohm's law by hand: I = 12 / (12.2k + 100), Vcc = 12 - 100 I
+    c = divider(r_source=100.0)
+    dc = solver.solve_dc(c)
+    i = 12 / 12.3e3
+    assert_allclose(dc.i_supply[0, 0], i, rtol=1e-9)
+    assert_allclose(dc.v[0, c.node_index["vcc"]], 12 - 100 * i, rtol=1e-9)
+
+
+def test_batched_solve_equals_single_solves():
+    # independent path: one batched solve against B separate one-variant solves
+    c = follower()
+    params = ensemble.draw_healthy(c, 16, np.random.default_rng(3))
+    params["Q1.g_be"] = np.r_[np.zeros(15), 50.0]         # one variant with a BE short
+    batch = solver.solve_dc(c, params)
+    assert batch.ok.all()
+    for b in range(16):
+        one = solver.solve_dc(c, {k: v[b:b + 1] for k, v in params.items()})
+        assert_allclose(batch.v[b], one.v[0], rtol=1e-9, atol=1e-9)
+        assert_allclose(batch.i_supply[b], one.i_supply[0], rtol=1e-9, atol=1e-12)
+    ac = solver.solve_ac(c, params, batch)
+    assert ac.v.dtype == np.complex128 and ac.v.shape == (16, c.n_nodes)
+
+
+def test_extreme_fault_values_converge_without_nan():
+    c = compiled(part("V1", "supply", ["vcc", "gnd"], 12.0, r_source=0.2),
+                 part("R1", "resistor", ["vcc", "b"], 22e3),
+                 part("R2", "resistor", ["b", "gnd"], 4.7e3),
+                 part("R3", "resistor", ["vcc", "c"], 2.2e3),
+                 part("R4", "resistor", ["e", "gnd"], 470.0),
+                 part("Q1", "npn", ["c", "b", "e"]),
+                 part("D1", "diode", ["c", "vcc"]),
+                 part("C1", "electrolytic", ["e", "gnd"], 100e-6))
+    opens = [1e9, 1e10, 1e11, 1e12]
+    shorts = [1e-3, 1e-2, 0.1, 1.0]
+    rows = []
+    for ref in ("R1", "R2", "R3", "R4"):
+        rows += [{f"{ref}.r": v} for v in opens + shorts]
+    for hook in ("g_be", "g_bc", "g_ce"):
+        rows += [{f"Q1.{hook}": g} for g in (1.0, 10.0, 1e3)]
+    rows += [{"Q1.k_be": 0.0}, {"Q1.k_bc": 0.0}, {"Q1.k_be": 0.0, "Q1.k_bc": 0.0},
+             {"D1.k": 0.0}, {"D1.g_sh": 1e3}, {"C1.leak": 1e-3}, {"V1.v": 0.0},
+             {"Q1.bf": 5.0}, {"Q1.g_ce": 1e3, "R3.r": 1e-3}]
+    B = len(rows)
+    params = {}
+    for b, row in enumerate(rows):
+        for k, v in row.items():
+            params.setdefault(k, np.full(B, c.nominal[k]))[b] = v
+    dc = solver.solve_dc(c, params)
+    bad = [rows[b] for b in np.flatnonzero(~dc.ok)]
+    assert not bad, f"did not converge: {bad}"
+    assert np.isfinite(dc.v).all() and np.isfinite(dc.i_supply).all()
+    # worked by hand: a 1 mΩ short of R2 puts the base at 12 V·1m/(22k) ≈ 0
+    b = rows.index({"R2.r": 1e-3})
+    assert abs(dc.v[b, c.node_index["b"]]) < 1e-5
+    ac = solver.solve_ac(c, params, dc)
+    assert np.isfinite(ac.v).all()
+
+
+def test_node_isolated_by_an_open_is_reported():
+    # R1 open leaves the base with no DC path but through the junction of an off transistor
+    c = compiled(part("V1", "supply", ["vcc", "gnd"], 12.0),
+                 part("R1", "resistor", ["vcc", "b"], 100e3),
+                 part("Q1", "npn", ["c", "b", "gnd"]),
+                 part("R2", "resistor", ["vcc", "c"], 1e3))
+    dc = solver.solve_dc(c, {"R1.r": np.array([100e3, 1e12])})
+    assert dc.why[0] is None
+    assert dc.ok[1] and dc.why[1] is not None
+    assert "node b has no DC path to ground" in dc.why[1]
+    # the transistor is then off and the collector sits at the supply (by hand)
+    assert abs(dc.v[1, c.node_index["c"]] - 12.0) < 1e-3
+    assert solver.regions(c, {"R1.r": np.array([100e3, 1e12])}, dc)["Q1"][1] == "off"
+
+
+def test_unknown_parameter_is_an_error():
+    with pytest.raises(DiagError, match="unknown parameter 'R9.r'"):
+        solver.solve_dc(divider(), {"R9.r": np.ones(2)})
+
+
+def test_ac_rc_lowpass_and_series_inductor_by_hand():
+    # handbook: |H| = 1 / sqrt(1 + (ωRC)^2) for R then C to ground (ESR given as 0)
+    c = compiled(part("V1", "supply", ["vcc", "gnd"], 5.0),
+                 part("V2", "signal", ["in", "gnd"], 1.0, r_source=50.0, hz=2e3),
+                 part("R1", "resistor", ["in", "x"], 950.0),
+                 part("C1", "capacitor", ["x", "gnd"], 100e-9, esr=0.0, leak=1e15),
+                 part("L1", "inductor", ["x", "y"], 10e-3, r_dc=5.0),
+                 part("R2", "resistor", ["y", "gnd"], 1e9),
+                 part("R3", "resistor", ["vcc", "gnd"], 1e3))
+    assert c.hz == 2e3
+    dc = solver.solve_dc(c)
+    ac = solver.solve_ac(c, None, dc)
+    w = 2 * math.pi * 2e3
+    h = 1 / (1 + 1j * w * 1000.0 * 100e-9)   # 50 Ω source + 950 Ω
+    assert_allclose(ac.v[0, c.node_index["x"]], h, rtol=1e-6)
+    assert_allclose(abs(ac.v[0, c.node_index["vcc"]]), 0.0, atol=1e-12)   # supply is AC ground
+    z = solver.thevenin(c, None, dc, [("x", "gnd")], ac=ac)
+    zc = 1 / (1j * w * 100e-9)
+    assert_allclose(z[0, 0], 1 / (1 / 1000.0 + 1 / zc + 1 / (5.0 + 1j * w * 10e-3 + 1e9)),
+                    rtol=1e-6)
+
+
+def test_regions_by_hand():
+    # a saturated switch (base overdriven), an off one (base grounded), an active stage
+    c = compiled(part("V1", "supply", ["vcc", "gnd"], 12.0),
+                 part("R1", "resistor", ["vcc", "b1"], 1e3),
+                 part("R2", "resistor", ["vcc", "c1"], 1e3),
+                 part("Q1", "npn", ["c1", "b1", "gnd"]),
+                 part("R3", "resistor", ["vcc", "b2"], 1e3),
+                 part("R4", "resistor", ["b2", "gnd"], 1e-3),
+                 part("R5", "resistor", ["vcc", "c2"], 1e3),
+                 part("Q2", "npn", ["c2", "b2", "gnd"]),
+                 part("R6", "resistor", ["vcc", "b3"], 1e6),
+                 part("R7", "resistor", ["vcc", "c3"], 1e3),
+                 part("Q3", "npn", ["c3", "b3", "gnd"]))
+    dc = solver.solve_dc(c)
+    reg = solver.regions(c, None, dc)
+    assert (reg["Q1"][0], reg["Q2"][0], reg["Q3"][0]) == ("saturated", "off", "active")
+
+
+def test_circuit_is_cached_per_case_and_rules_hash(case_path):
+    case = load_case(str(case_path))
+    assert netlist.compile_case(case, RULES) is netlist.compile_case(case, RULES)
+
+
+def test_every_bundled_case_solves_nominal_and_healthy_draws(case_path):
+    case = load_case(str(case_path))
+    c = netlist.compile_case(case, RULES)
+    dc = solver.solve_dc(c)
+    assert dc.ok.all() and dc.why == [None]
+    assert dc.v.shape == (1, len(case.nodes)) and dc.i_supply.shape == (1, len(c.supplies))
+    # every supply delivers current into its circuit (a healthy unit draws power)
+    assert (dc.i_supply > 0).all()
+    params = ensemble.draw_healthy(c, 200, np.random.default_rng(0))
+    many = solver.solve_dc(c, params)
+    assert many.ok.all() and all(w is None for w in many.why)
+    if case.signal is not None:
+        ac = solver.solve_ac(c, params, many)
+        assert np.isfinite(ac.v).all()

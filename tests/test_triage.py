@@ -1,0 +1,256 @@
+"""Batch triage (diag/core/triage.py, `diag triage`): the batched ranking against
+`Engine.diagnose` one unit at a time, the summary, the reports and the command."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from diag.cli import main
+from diag.core.case import load_case
+from diag.core.engine import Engine, Reading
+from diag.core.readings import parse_file
+from diag.core.rules import load_rules
+from diag.core.triage import (
+    BatchScorer,
+    caution_lines,
+    kernel_loglik,
+    to_csv,
+    to_json,
+    to_markdown,
+    triage,
+)
+
+ROOT = Path(__file__).resolve().parents[1]
+CASE = ROOT / "cases" / "sounder-driver.yaml"
+SPEC5_KEYS = {"case", "readings_used", "fits", "suspects", "next"}
+
+
+@pytest.fixture(scope="module")
+def engine() -> Engine:
+    eng = Engine(load_case(str(CASE)), load_rules())
+    eng.build()
+    return eng
+
+
+def _units(eng: Engine) -> dict[str, list[Reading]]:
+    """A small batch drawn by the engine: several faults, healthy units, one unit with
+    two readings left out (incomplete) and one with one reading left out."""
+    rng = np.random.default_rng(20261201)
+    faults = ["R2:open", "R2:open", "R3:open", "Q1:be-open", "C3:short", "healthy",
+              "healthy", "LS1:open"]
+    units = {}
+    for i, f in enumerate(faults):
+        units[f"A{i:02d}"] = list(eng.simulate(f, rng))
+    units["A02"] = units["A02"][:3] + units["A02"][5:]
+    units["A05"] = units["A05"][1:]
+    return units
+
+
+def _same(d1, d2) -> None:
+    """Two diagnoses are the same to rounding (the batch multiplies kernel factors where
+    diagnose adds their logarithms)."""
+    assert d1.fits == d2.fits
+    assert d1.readings_used == d2.readings_used
+    live1 = [s.fault for s in d1.suspects if s.p > 1e-9]
+    live2 = [s.fault for s in d2.suspects if s.p > 1e-9]
+    assert live1 == live2
+    p1 = {s.fault: s.p for s in d1.suspects}
+    p2 = {s.fault: s.p for s in d2.suspects}
+    assert p1.keys() == p2.keys()
+    assert_allclose([p2[f] for f in p1], list(p1.values()), rtol=1e-9, atol=1e-12)
+    assert [s.group for s in d1.suspects[:len(live1)]] == \
+        [s.group for s in d2.suspects[:len(live2)]]
+    assert [(n.point, n.kind) for n in d1.next] == [(n.point, n.kind) for n in d2.next]
+    assert_allclose([n.bits for n in d1.next], [n.bits for n in d2.next], rtol=1e-9)
+    assert d1.notes == d2.notes
+    assert d1.extra["p_value"] == pytest.approx(d2.extra["p_value"], abs=1e-12)
+
+
+def test_kernel_product_equals_the_sum_of_logarithms():
+    # Independent path (STYLE.md): log of a product of mixture factors against the sum of
+    # their logarithms, written out directly from the mixture formula in infer.py.
+    rng = np.random.default_rng(5)
+    n, H, K, d = 3, 4, 6, 20
+    ut, Ut = rng.normal(size=(n, H, d)) * 3, rng.normal(size=(d, H, K)) * 3
+    logpeak, c = np.log(rng.uniform(0.1, 0.4, size=(H, d))), rng.uniform(1e-6, 1e-4, d)
+    direct = np.zeros((n, H, K))
+    for j in range(d):
+        direct += np.log(np.exp(logpeak[None, :, j, None]
+                                - (ut[:, :, j, None] - Ut[j][None]) ** 2) + c[j])
+    assert_allclose(kernel_loglik(ut, Ut, logpeak, c), direct, rtol=1e-12)
+
+
+def test_batch_ranking_equals_diagnose_one_unit_at_a_time(engine):
+    # Same answer by an independent path (STYLE.md): the vectorised batch against the
+    # engine's own one-unit diagnosis, for complete and incomplete units.
+    units = _units(engine)
+    res = triage(engine, units)
+    assert [u.unit for u in res.units] == list(units)
+    for name, rs in units.items():
+        _same(engine.diagnose(rs), res.unit(name).diagnosis)
+
+
+def test_batch_with_threads_and_small_blocks_gives_the_same(engine):
+    units = list(_units(engine).values())
+    one = BatchScorer(engine).run(units, chunk=64, threads=1)
+    many = BatchScorer(engine).run(units, chunk=2, threads=3)
+    for a, b in zip(one, many, strict=True):
+        _same(a, b)
+
+
+def test_healthy_prior_reaches_the_batch(engine):
+    units = _units(engine)
+    res = triage(engine, units, healthy_prior=0.5)
+    for name in ("A05", "A06"):
+        _same(engine.diagnose(units[name], healthy_prior=0.5), res.unit(name).diagnosis)
+
+
+def test_summary_partitions_the_batch_and_names_the_incomplete(engine):
+    units = _units(engine)
+    # A unit outside the model: every node near 3 V on a 12 V rail while the supply
+    # draws its healthy current; no single modelled fault (a low supply is 60-90 % of
+    # nominal in rules/faults.yaml) and at most one blunder cannot make that.
+    odd = {("TP2", "dc"): 3.0, ("TP3", "dc"): 2.9, ("TP4", "dc"): 2.8, ("TP5", "dc"): 2.7,
+           ("TP6", "dc"): 2.6}
+    units["Z99"] = [Reading(r.point, r.kind, odd.get((r.point, r.kind), r.value))
+                    for r in units["A06"]]
+    res = triage(engine, units)
+    s = res.summary
+    assert s["units"] == len(units)
+    assert s["faulty"] + len(s["healthy"]) + len(s["no_fit"]) == len(units)
+    assert sum(r["units"] for r in s["by_fault"]) == s["faulty"]
+    assert [r["units"] for r in s["by_fault"]] == sorted(
+        (r["units"] for r in s["by_fault"]), reverse=True)
+    assert "Z99" in s["no_fit"]
+    missing = {r["unit"]: r["missing"] for r in s["incomplete"]}
+    assert set(missing) == {"A02", "A05"}
+    assert missing["A05"] == ["TP1 dc"]
+    assert len(missing["A02"]) == 2
+    # a unit drawn healthy is listed healthy exactly when its leading suspect is one the
+    # offered readings cannot tell from the healthy circuit (same group)
+    for name in ("A05", "A06"):
+        u = res.unit(name)
+        top_group = u.top.group
+        healthy_group = next(x.group for x in u.diagnosis.suspects if x.fault == "healthy")
+        assert (u.status == "healthy") == (top_group == healthy_group)
+    # the dominant failure of the batch (R2 open twice) leads the part table
+    assert s["by_part"][0]["part"] == "R2"
+    assert s["by_part"][0]["units"] >= 2
+
+
+def test_reports_carry_the_cautions_and_spec_json(engine):
+    units = _units(engine)
+    res = triage(engine, units, rejected=["batch.csv:4: row 4: unknown point 'TP99'"])
+    cautions = caution_lines(load_rules())
+    assert len(cautions) >= 5  # rules/cautions.yaml: mains, capacitors, hot parts, ...
+    md = to_markdown(res, "cases/sounder-driver.yaml", cautions)
+    for c in cautions:
+        assert c in md
+    assert "row 4" in md
+    text = to_csv(res, cautions)
+    lines = text.splitlines()
+    assert lines[:len(cautions)] == [f"# caution: {c}" for c in cautions]
+    rows = list(csv.DictReader(io.StringIO("\n".join(lines[len(cautions):]))))
+    assert [r["unit"] for r in rows] == list(units)
+    obj = to_json(res, "cases/sounder-driver.yaml", cautions)
+    assert obj["cautions"] == cautions
+    assert set(obj) >= {"case", "units", "summary"}
+    assert [u["unit"] for u in obj["units"]] == list(units)
+    for u in obj["units"]:
+        assert SPEC5_KEYS <= set(u)
+        assert sum(s["p"] for s in u["suspects"]) == pytest.approx(1.0, abs=1e-4)
+    json.dumps(obj)
+
+
+def _write_batch(path: Path, units: dict[str, list[Reading]], extra: list[str]) -> None:
+    lines = ["unit,point,kind,value"]
+    names = list(units)
+    # interleave units so that "order of first appearance" is tested
+    rows = [(n, r) for i in range(20) for n in names for j, r in enumerate(units[n])
+            if j == i]
+    for n, r in rows:
+        lines.append(f"{n},{r.point},{r.kind},{r.value!r}")
+    lines[3:3] = extra
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+
+
+def test_cli_json_reports_bad_rows_and_triages_the_rest(engine, tmp_path, capsys):
+    units = _units(engine)
+    batch = tmp_path / "batch.csv"
+    _write_batch(batch, units, ["A00,TP99,dc,1.0", "A01,TP3,dc,4kk"])
+    assert main(["triage", str(CASE), str(batch), "--json"]) == 0
+    out = capsys.readouterr()
+    obj = json.loads(out.out)
+    assert [u["unit"] for u in obj["units"]] == list(units)
+    assert "row 4: unknown point 'TP99'" in out.err  # header is row 1
+    assert "row 5: TP3: '4kk' is not a value" in out.err
+    rf = parse_file(batch, engine.case)
+    assert obj["summary"]["rows_rejected"] == len(rf.errors) >= 2
+    assert obj["summary"]["rejected"] == list(rf.rejected)
+    for u in obj["units"]:
+        d = engine.diagnose(rf.units[u["unit"]])
+        assert [s["fault"] for s in u["suspects"][:3]] == [s.fault for s in d.suspects[:3]]
+
+
+def test_cli_out_formats(engine, tmp_path, capsys):
+    units = _units(engine)
+    batch = tmp_path / "batch.csv"
+    _write_batch(batch, units, [])
+    for fmt in ("md", "csv", "json"):
+        out = tmp_path / f"report.{fmt}"
+        assert main(["triage", str(CASE), str(batch), "--out", str(out)]) == 0
+        text = out.read_text(encoding="utf-8")
+        assert "Charged capacitors" in text  # a caution title of rules/cautions.yaml
+    assert json.loads((tmp_path / "report.json").read_text())["summary"]["units"] == len(units)
+    assert main(["triage", str(CASE), str(batch), "--out", str(tmp_path / "r.txt"),
+                 "--format", "csv"]) == 0
+    assert (tmp_path / "r.txt").read_text().startswith("# caution:")
+    capsys.readouterr()
+
+
+def test_cli_errors(tmp_path, capsys):
+    assert main(["triage", str(CASE), str(tmp_path / "nothing.csv")]) == 1
+    assert "file not found" in capsys.readouterr().err
+    with pytest.raises(SystemExit) as exc:
+        main(["triage", str(CASE), str(tmp_path / "x.csv"), "--format", "xml"])
+    assert exc.value.code == 2
+
+
+@pytest.mark.ngspice
+def test_ngspice_batch_matches_diagnose_and_truth(ngspice, engine, tmp_path):
+    # ngspice as the reference simulator: units generated by eval.generate (richer device
+    # models, meter loading and error), a batch dominated by one failure.
+    from eval import generate, inject
+
+    case = engine.case
+    plan = ([("fault", "R2:open")] * 8 + [("fault", "R3:open")] * 3
+            + [("healthy", None)] * 3
+            + [("unmodelled", k) for k in inject.unmodelled_kinds(case)[:2]])
+    gen, dropped = generate.generate_case(case, plan, 11)
+    bpath, tpath = generate.write(case, gen, tmp_path)
+    truth = {r["unit"]: r for r in csv.DictReader(tpath.open(encoding="utf-8"))}
+    rf = parse_file(bpath, case)
+    res = triage(engine, rf.units, rf.rejected)
+    assert len(res.units) == len(plan) - dropped
+    for u in res.units:
+        _same(engine.diagnose(u.readings), u.diagnosis)
+    s = res.summary
+    n_r2 = sum(1 for t in truth.values() if t["fault"] == "R2:open")
+    n_r3 = sum(1 for t in truth.values() if t["fault"] == "R3:open")
+    by_part = {r["part"]: r["units"] for r in s["by_part"]}
+    # The summary's counts against the truth labels: the dominant failure leads, and no
+    # part is counted for more units than could carry it (its truth units plus the
+    # healthy and unmodelled ones, which may be blamed on anything).
+    assert s["by_part"][0]["part"] == "R2"
+    others = len(res.units) - n_r2 - n_r3
+    assert n_r2 // 2 <= by_part["R2"] <= n_r2 + others
+    assert by_part.get("R3", 0) <= n_r3 + others
+    r2 = [u for u in res.units if truth[u.unit]["fault"] == "R2:open"]
+    assert sum(u.top.fault == "R2:open" for u in r2) >= len(r2) // 2
