@@ -18,6 +18,7 @@ import csv
 import json
 import math
 import sys
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -47,6 +48,7 @@ class GenUnit:
     true: list[float] = field(default_factory=list)
     shown: list[float | None] = field(default_factory=list)
     id: str = ""
+    alone: list[tuple[str, BenchUnit]] = field(default_factory=list)
 
 
 def plan(case: Case, rng: np.random.Generator, per_fault: int, healthy: int,
@@ -91,8 +93,8 @@ def build(case: Case, what: tuple[str, str | None], seed: int) -> GenUnit:
         return GenUnit(s, "healthy", "", u, seed)
     if s in ("fault", "blunder"):
         return GenUnit(s, arg, inject.apply_fault(u, arg, rng), u, seed)
-    label, detail = inject.apply_unmodelled(u, arg, rng)
-    return GenUnit(s, label, detail, u, seed)
+    label, detail, alone = inject.apply_unmodelled(u, arg, rng)
+    return GenUnit(s, label, detail, u, seed, alone=alone)
 
 
 def measure(case: Case, units: list[GenUnit], jobs: int | None = None) -> None:
@@ -102,6 +104,23 @@ def measure(case: Case, units: list[GenUnit], jobs: int | None = None) -> None:
                     jobs=jobs)
     for g, r in zip(units, res, strict=True):
         g.true = r
+
+
+def mark_masked(case: Case, units: list[GenUnit], jobs: int | None = None) -> None:
+    """For two-fault units: when the unit reads, at every observable, within the meter's
+    stated accuracy of one member fault alone (same unit, same fault values), the other
+    fault is hidden; the detail then ends with `masked: reads as <fault> alone`."""
+    obs = case.observables
+    alone = [(g, f, v) for g in units for f, v in g.alone]
+    res = run_decks([measure_script(v, obs) for _, _, v in alone], [len(obs)] * len(alone),
+                    jobs=jobs)
+    for (g, f, _), r in zip(alone, res, strict=True):
+        if "masked:" in g.detail:
+            continue
+        if all(math.isfinite(a) and abs(t - a) <= meterlike.bound(a, ob.kind, ob.unit,
+                                                                 case.meter)
+               for t, a, ob in zip(g.true, r, obs, strict=True)):
+            g.detail += f"; masked: reads as {f} alone"
 
 
 def display(case: Case, g: GenUnit) -> None:
@@ -179,6 +198,7 @@ def generate_case(case: Case, plan_: list[tuple[str, str | None]], seed: int,
             keep.append(g)
         else:
             dropped += 1
+    mark_masked(case, [g for g in keep if g.alone], jobs)
     for g in keep:
         display(case, g)
     order = np.random.default_rng([seed, 2]).permutation(len(keep))
@@ -235,17 +255,21 @@ def main(argv: list[str] | None = None) -> int:
         return 1
     rules = load_rules()
     manifest = {"seed": a.seed, "cases": {}}
-    for k, path in enumerate(a.case or bundled_cases()):
+    for path in a.case or bundled_cases():
         case = load_case(str(path), rules)
-        rng = np.random.default_rng([a.seed, k])
+        # a case's units depend on the seed and the case's name only, not on which other
+        # cases are generated alongside
+        key = [a.seed, zlib.crc32(Path(case.path).stem.encode())]
+        rng = np.random.default_rng(key)
         p = (plan_mix(case, rng, a.units) if a.units else
              plan(case, rng, a.per_fault, a.healthy, a.blunder, a.unmodelled))
-        units, dropped = generate_case(case, p, seed=a.seed * 1000 + k, jobs=a.jobs)
+        seed = int(np.random.SeedSequence(key).generate_state(1)[0])
+        units, dropped = generate_case(case, p, seed=seed, jobs=a.jobs)
         b, t = write(case, units, Path(a.out))
         counts = {s: sum(g.set == s for g in units) for s in
                   ("healthy", "fault", "blunder", "unmodelled")}
-        manifest["cases"][str(path)] = {"batch": b.name, "truth": t.name, "units": counts,
-                                        "dropped": dropped}
+        manifest["cases"][str(Path(path).resolve())] = {
+            "batch": b.name, "truth": t.name, "units": counts, "dropped": dropped}
         print(f"{Path(str(path)).name}: {len(units)} units ({counts}), {dropped} dropped "
               f"-> {b}", file=sys.stderr)
     (Path(a.out) / "manifest.json").write_text(json.dumps(manifest, indent=2) + "\n",

@@ -156,25 +156,42 @@ def transistors(case: Case) -> list[str]:
     return [p.ref for p in case.parts if p.kind in ("npn", "pnp")]
 
 
-def apply_unmodelled(u: BenchUnit, kind: str, rng: np.random.Generator) -> tuple[str, str]:
-    """Inject one fault outside the model; return (label, description)."""
+def double(u: BenchUnit, f1: str, f2: str, rng: np.random.Generator
+           ) -> tuple[str, str, list[tuple[str, BenchUnit]]]:
+    """Inject faults f1 and f2 into `u`; return (label, description, alone), `alone`
+    holding each fault on its own on a copy of the unit with the same fault values."""
+    seeds = [int(x) for x in rng.integers(2**62, size=2)]
+    base = u.copy()
+    notes, alone = [], []
+    for f, sd in zip((f1, f2), seeds, strict=True):
+        notes.append(apply_fault(u, f, np.random.default_rng(sd)))
+        v = base.copy()
+        apply_fault(v, f, np.random.default_rng(sd))
+        alone.append((f, v))
+    return f"{f1}+{f2}", "; ".join(notes), alone
+
+
+def apply_unmodelled(u: BenchUnit, kind: str, rng: np.random.Generator
+                     ) -> tuple[str, str, list[tuple[str, BenchUnit]]]:
+    """Inject one fault outside the model; return (label, description, alone). For two
+    unrelated faults `alone` holds each member fault on its own on the same unit with
+    the same fault values (to tell whether one fault hides the other); else empty."""
     case = u.case
     if kind == "double":
         pairs = unrelated_pairs(case)
         f1, f2 = pairs[rng.integers(len(pairs))]
-        label = f"{f1}+{f2}"
-        return label, apply_fault(u, label, rng)
+        return double(u, f1, f2, rng)
     if kind == "bridge":
         pairs = bridge_pairs(case)
         x, y = pairs[rng.integers(len(pairs))]
         ohms = uni(rng, bench()["unmodelled"]["bridge_ohms"], log=True)
         u.extra.append((x, y, ohms))
-        return f"bridge:{x}-{y}", f"solder bridge {x} to {y}, {ohms:.3g} ohm"
+        return f"bridge:{x}-{y}", f"solder bridge {x} to {y}, {ohms:.3g} ohm", []
     if kind == "swapped":
         qs = transistors(case)
         q = qs[rng.integers(len(qs))]
         u.swapped_ce.add(q)
-        return f"{q}:ce-swapped", f"{q} fitted with collector and emitter swapped"
+        return f"{q}:ce-swapped", f"{q} fitted with collector and emitter swapped", []
     raise ValueError(f"unknown unmodelled kind {kind!r}")
 
 

@@ -37,6 +37,16 @@ def resolution(value: float, kind: str, unit: str, meter) -> float | None:
     return None
 
 
+def bound(value: float, kind: str, unit: str, meter) -> float:
+    """The profile's stated accuracy at a value: pct % of reading + counts x resolution
+    (volts or amperes); infinite on overload."""
+    pk, ck, _ = _keys(kind, unit)
+    res = resolution(value, kind, unit, meter)
+    if res is None:
+        return math.inf
+    return float(meter[pk]) / 100.0 * abs(value) + float(meter[ck]) * res
+
+
 @dataclass(frozen=True)
 class MeterErrors:
     """The calibration state of the meter that reads one unit: gain error per kind."""

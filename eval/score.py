@@ -215,6 +215,16 @@ def score_dir(folder: Path, guided_per_fault: int = 1, draws: int = 128, log=Non
 
 # ---------------------------------------------------------------- summary
 
+def masked(s: UnitScore) -> bool:
+    """A two-fault unit that reads like one of its faults alone (see eval.generate)."""
+    return s.set == "unmodelled" and "masked:" in s.detail
+
+
+def _visible(s: UnitScore) -> str:
+    """The member fault a masked two-fault unit reads as."""
+    return s.detail.split("masked: reads as ")[-1].split()[0]
+
+
 def _mean(xs) -> float:
     xs = list(xs)
     return float(np.mean(xs)) if xs else float("nan")
@@ -224,7 +234,7 @@ def summarise(scores: list[UnitScore]) -> dict:
     """Every headline figure over a list of unit scores."""
     mod = [s for s in scores if s.set in ("fault", "healthy") and s.modelled]
     blu = [s for s in scores if s.set == "blunder" and s.modelled]
-    unm = [s for s in scores if s.set == "unmodelled"]
+    unm = [s for s in scores if s.set == "unmodelled" and not masked(s)]
     conf = mod + blu
     g = [s for s in scores if s.guided is not None]
     rel = reliability(conf)
@@ -242,6 +252,7 @@ def summarise(scores: list[UnitScore]) -> dict:
         "blunder_flagged": _mean(not s.fits for s in blu),
         "flagged": _mean(s.handled for s in unm),
         "flagged_strict": _mean(not s.fits for s in unm),
+        "masked": sum(masked(s) for s in scores),
         "false_alarm": _mean(not s.fits for s in mod),
         "ece": rel["ece"],
         "mean_gap": rel["mean_gap"],
@@ -357,9 +368,16 @@ def markdown(scores: list[UnitScore]) -> str:
                  "swapped" if s.truth.endswith(":ce-swapped") else "double")
             kinds[k].append(s)
     for k, ss in sorted(kinds.items()):
-        lines.append(f"- {k}: {sum(not s.fits for s in ss)} of {len(ss)} flagged; "
-                     f"{sum(s.handled and s.fits for s in ss)} more explained exactly by a "
-                     f"pair ranked first")
+        hid = [s for s in ss if masked(s)]
+        vis = [s for s in ss if not masked(s)]
+        lines.append(f"- {k}: {sum(not s.fits for s in vis)} of {len(vis)} flagged; "
+                     f"{sum(s.handled and s.fits for s in vis)} more explained exactly by a "
+                     f"pair ranked first" + (
+                         f"; plus {len(hid)} where one fault hides the other (the unit reads "
+                         f"within meter accuracy of one fault alone; not in the headline), "
+                         f"{sum(not s.fits for s in hid)} of them flagged, "
+                         f"{sum(s.top == _visible(s) for s in hid)} with the visible fault "
+                         f"ranked first" if hid else ""))
     return "\n".join(lines) + "\n"
 
 
@@ -378,7 +396,7 @@ def failures(scores: list[UnitScore], n: int = 40) -> str:
             why.append("confident wrong")
         if s.modelled and s.set in ("fault", "healthy") and not s.fits:
             why.append("false alarm")
-        if s.set == "unmodelled" and not s.handled:
+        if s.set == "unmodelled" and not s.handled and not masked(s):
             why.append("unmodelled not flagged")
         if not why:
             continue

@@ -56,7 +56,11 @@ class BenchUnit:
     swapped_ce: set[str] = field(default_factory=set)
 
     def copy(self) -> BenchUnit:
-        return copy.deepcopy(self)
+        """An independent copy (the frozen case is shared)."""
+        return BenchUnit(case=self.case, temp_c=self.temp_c,
+                         values=copy.deepcopy(self.values), cards=copy.deepcopy(self.cards),
+                         lifted=set(self.lifted), extra=list(self.extra),
+                         swapped_ce=set(self.swapped_ce))
 
 
 def _tol(part: Part) -> float:

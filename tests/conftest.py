@@ -3,7 +3,8 @@
 - `case_paths`: every bundled case file (cases/*.yaml), sorted, as Paths.
 - `case_path`: a test that takes this argument runs once per bundled case (ids = file stems).
 - `ngspice`: skips the test with a clear reason when ngspice is not on PATH; returns the
-  tests.ngspice_util module (run_ngspice, SpiceRun).
+  tests.ngspice_util module (run_ngspice, SpiceRun). Tests marked `@pytest.mark.ngspice`
+  skip the same way even without the fixture.
 - Every test session runs with DIAG_HOME set to a temporary folder, so no test touches
   the user's cache, sessions or cases (a test may still set its own with monkeypatch).
 """
@@ -23,6 +24,16 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))  # tests/ helpers: ngsp
 import ngspice_util  # noqa: E402
 
 CASE_PATHS = sorted(CASES_DIR.glob("*.yaml"))
+
+
+def pytest_collection_modifyitems(config, items):
+    """Tests marked `ngspice` skip with the reason when ngspice is missing, fixture or not."""
+    if ngspice_util.have_ngspice():
+        return
+    skip = pytest.mark.skip(reason=ngspice_util.NGSPICE_MISSING)
+    for item in items:
+        if "ngspice" in item.keywords:
+            item.add_marker(skip)
 
 
 def pytest_generate_tests(metafunc):

@@ -248,3 +248,23 @@ def test_summary_of_a_bad_file(tmp_path, capsys):
     with pytest.raises(SystemExit) as exc:
         main(["drill"])
     assert exc.value.code == 2
+
+
+def test_command_line_builds_the_drill(tmp_path, capsys):
+    from diag.cli import build_parser
+    from diag.commands.drill import build_drill
+
+    args = build_parser().parse_args(["drill", "sounder-driver", "--fault", "R2:open",
+                                      "--seed", "3", "--trainee", "ana", "--hints"])
+    d = build_drill(args)
+    assert (d.round.truth, d.round.seed, d.trainee, d.hints) == ("R2:open", 3, "ana", True)
+    ex = tmp_path / "ex.yaml"
+    ex.write_text("exercises:\n  - {fault: R3:open, seed: 1}\n  - {seed: 2}\n",
+                  encoding="utf-8")
+    args = build_parser().parse_args(["drill", str(CASE), "--exercises", str(ex)])
+    d = build_drill(args)
+    assert [e.fault for e in d.exercises] == ["R3:open", None]
+    assert d.round.truth == "R3:open"
+    # a fault the case does not have is a bad input (exit 1), found before the screen
+    assert main(["drill", str(CASE), "--fault", "R9:open"]) == 1
+    assert "R9" in capsys.readouterr().err

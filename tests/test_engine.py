@@ -169,3 +169,37 @@ def test_json_keys_per_spec(eng):
     assert set(j["next"][0]) >= {"point", "kind", "bits", "why"}
     ps = [s["p"] for s in j["suspects"]]
     assert ps == sorted(ps, reverse=True)
+
+
+def test_bench_notes_from_readings_alone(eng):
+    # Q1's emitter is on ground in this case, so TP4 (base) reads V_BE and TP5
+    # (collector) reads V_CE directly. 0.55-0.8 V: a conducting silicon junction;
+    # V_CE below ~0.3 V: saturation (rules/checks.yaml, # common practice, no source)
+    d = eng.diagnose([Reading("TP4", "dc", 0.74), Reading("TP5", "dc", 0.08)])
+    text = " ".join(d.notes)
+    assert "Q1: base-emitter reads 0.74 V" in text and "conducting" in text
+    assert "saturated" in text
+    # collector at the supply: no collector current
+    d = eng.diagnose([Reading("TP2", "dc", 12.0), Reading("TP5", "dc", 11.95),
+                      Reading("TP4", "dc", 0.0)])
+    text = " ".join(d.notes)
+    assert "sits at the supply" in text and "off" in text
+    assert d.to_json("x")["notes"] == list(d.notes)
+
+
+def test_cache_is_invalidated_by_a_rules_edit(tmp_path, monkeypatch):
+    from diag.core.paths import rules_dir
+    from diag.core.rules import load_rules
+
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
+    folder = tmp_path / "rules"
+    shutil.copytree(rules_dir(), folder)
+    case = load_case(RELAY)
+    assert not Engine(case, load_rules(folder), K=16).build().from_cache
+    assert Engine(case, load_rules(folder), K=16).build().from_cache
+    faults_yaml = folder / "faults.yaml"
+    faults_yaml.write_text(faults_yaml.read_text().replace("blunder: 0.02", "blunder: 0.03"))
+    from diag.core import rules as rules_mod
+
+    rules_mod._load.cache_clear()  # the loader caches per folder within a process
+    assert not Engine(case, load_rules(folder), K=16).build().from_cache

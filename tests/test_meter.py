@@ -6,6 +6,8 @@ import textwrap
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
 from diag.core import meter as mt
@@ -158,3 +160,23 @@ def test_observe_ac_loading_uses_r_parallel_c(tmp_path):
     expect = abs(100 / 101 * zin / (zin + zs))
     assert_allclose(r[0, 1], expect, rtol=1e-6)
     assert_allclose(r[0, 0], 0.0, atol=1e-12)
+
+
+def test_single_range_meter_overflows_above_its_range():
+    # analog-20k has one 10 V range: 12 V is off the scale (rules/meters.yaml profile).
+    analog = METERS["analog-20k"]
+    assert np.isinf(mt.accuracy(12.0, "dc", analog, "V"))
+    assert_allclose(mt.accuracy(5.0, "dc", analog, "V"), 0.15, rtol=1e-12)  # 3 % of 5 V
+
+
+@given(st.floats(min_value=-900.0, max_value=900.0, allow_nan=False),
+       st.sampled_from(["dc", "ac"]), st.integers(0, 2**32 - 1))
+@settings(max_examples=300, deadline=None)
+def test_displayed_value_stays_within_the_bound(value, kind, seed):
+    if kind == "ac":
+        value = abs(value)
+    shown = float(mt.display(value, kind, H35, "V", np.random.default_rng(seed)))
+    bound = float(mt.accuracy(value, kind, H35, "V"))
+    # error within the specification, plus half a count of the range it is shown on
+    q = float(mt.resolution(shown, H35, "V"))
+    assert abs(shown - value) <= bound + q / 2 + 1e-9 * max(1.0, abs(value))

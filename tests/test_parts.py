@@ -238,9 +238,9 @@ def test_bjt_jacobian_matches_finite_differences(kind):
 
     def cur(vv):
         J, ieq, _, _ = dev.eval(p, vv, None, limit=False)
-        return ieq + np.einsum("abk,bk->ak", J, vv)
+        return np.array(ieq) + np.einsum("abk,bk->ak", np.array(J), vv)
 
-    J, _, _, _ = dev.eval(p, v, None, limit=False)
+    J = np.array(dev.eval(p, v, None, limit=False)[0])
     h = 1e-7
     for u in range(3):
         d = np.zeros((3, 1))

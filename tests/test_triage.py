@@ -254,3 +254,16 @@ def test_ngspice_batch_matches_diagnose_and_truth(ngspice, engine, tmp_path):
     assert by_part.get("R3", 0) <= n_r3 + others
     r2 = [u for u in res.units if truth[u.unit]["fault"] == "R2:open"]
     assert sum(u.top.fault == "R2:open" for u in r2) >= len(r2) // 2
+
+
+def test_progress_bar_on_a_terminal(engine, tmp_path, capsys, monkeypatch):
+    import sys
+
+    units = _units(engine)
+    batch = tmp_path / "batch.csv"
+    _write_batch(batch, units, [])
+    monkeypatch.setattr("diag.commands.triage.PROGRESS_MIN_UNITS", 1)
+    monkeypatch.setattr(sys.stderr, "isatty", lambda: True)
+    assert main(["triage", str(CASE), str(batch), "--json"]) == 0
+    err = capsys.readouterr().err
+    assert f"triage {len(units)} units [" in err and "100%" in err

@@ -22,6 +22,21 @@ pytestmark = [
 ]
 
 
+SOCK = ["-L", f"diag-test-{os.getpid()}"]  # a private tmux server, never the user's
+
+
+def tmux(*args: str, **kw) -> subprocess.CompletedProcess:
+    return subprocess.run([TMUX, *SOCK, *args], **kw)
+
+
+@pytest.fixture
+def server():
+    """The private tmux server, kept alive between panes by an idle session."""
+    tmux("new-session", "-d", "-s", "keeper", "sleep", "600", check=True)
+    yield
+    tmux("kill-server", capture_output=True)
+
+
 class Pane:
     """One detached tmux session running a command in a 120x40 window."""
 
@@ -29,13 +44,11 @@ class Pane:
         self.name = name
         envs = [a for k, v in env.items() for a in ("-e", f"{k}={v}")]
         # COLUMNS/LINES inherited from the test runner would pin the app at their size
-        subprocess.run([TMUX, "new-session", "-d", "-s", name, "-x", "120", "-y", "40",
-                        "-c", str(cwd), *envs, "env", "-u", "COLUMNS", "-u", "LINES", *cmd],
-                       check=True)
+        tmux("new-session", "-d", "-s", name, "-x", "120", "-y", "40", "-c", str(cwd),
+             *envs, "env", "-u", "COLUMNS", "-u", "LINES", *cmd, check=True)
 
     def text(self) -> str:
-        out = subprocess.run([TMUX, "capture-pane", "-p", "-t", self.name],
-                             capture_output=True, text=True)
+        out = tmux("capture-pane", "-p", "-t", self.name, capture_output=True, text=True)
         return out.stdout
 
     def wait_for(self, needle: str, timeout: float = 30.0) -> str:
@@ -49,15 +62,15 @@ class Pane:
         raise AssertionError(f"{needle!r} never appeared; the pane shows:\n{self.text()}")
 
     def keys(self, *keys: str) -> None:
-        subprocess.run([TMUX, "send-keys", "-t", self.name, *keys], check=True)
+        tmux("send-keys", "-t", self.name, *keys, check=True)
 
     def pid(self) -> int:
-        out = subprocess.run([TMUX, "list-panes", "-t", self.name, "-F", "#{pane_pid}"],
-                             capture_output=True, text=True, check=True)
+        out = tmux("list-panes", "-t", self.name, "-F", "#{pane_pid}", capture_output=True,
+                   text=True, check=True)
         return int(out.stdout.split()[0])
 
     def close(self) -> None:
-        subprocess.run([TMUX, "kill-session", "-t", self.name], capture_output=True)
+        tmux("kill-session", "-t", self.name, capture_output=True)
 
 
 @pytest.fixture
@@ -67,7 +80,7 @@ def home(tmp_path):
     return h
 
 
-def test_diag_open_in_a_real_terminal(home, tmp_path):
+def test_diag_open_in_a_real_terminal(server, home, tmp_path):
     case = CASES[0]
     from diag.core.case import load_case
 
@@ -105,10 +118,11 @@ def test_diag_open_in_a_real_terminal(home, tmp_path):
         pane.keys("y")
         screen = pane.wait_for("next reading ▸")
         assert "1.25" in screen
-        pane.keys("C-q")
+        pane.keys("C-q")                                      # quits cleanly
         deadline = time.monotonic() + 15
-        while time.monotonic() < deadline and name + "b" in subprocess.run(
-                [TMUX, "ls"], capture_output=True, text=True).stdout:
+        while time.monotonic() < deadline and name + "b" in tmux(
+                "ls", capture_output=True, text=True).stdout:
             time.sleep(0.1)
+        assert name + "b" not in tmux("ls", capture_output=True, text=True).stdout
     finally:
         pane.close()

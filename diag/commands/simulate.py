@@ -39,6 +39,7 @@ def run(args) -> int:
     units = {(o.point, o.kind): o.unit for o in case.observables}
     rows = ["point,kind,value"]
     for r in eng.simulate(args.fault, rng):
-        rows.append(f"{r.point},{r.kind},{shown(r.value, units[(r.point, r.kind)], r.kind, case.meter)}")
+        value = shown(r.value, units[(r.point, r.kind)], r.kind, case.meter)
+        rows.append(f"{r.point},{r.kind},{value}")
     print("\n".join(rows))
     return 0

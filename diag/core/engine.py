@@ -24,8 +24,9 @@ each group of several hypotheses, the kind of reading that would split it).
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from typing import Any, Callable, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -298,7 +299,7 @@ class Engine:
         # at least 256 reference readings so p-values resolve well below fit_alpha
         R = max(256, self.K * int(self.inf["fit_draws"]))
         hyps = tuple(Hypothesis(s.id, float(p), s.text, s.confirm, s.parts, s.origin)
-                     for s, p in zip(self.specs, pri))
+                     for s, p in zip(self.specs, pri, strict=True))
         self._ens = Ensemble(self.case.hash, self.rules.hash, self.observables, hyps,
                              data["samples"], grp, a, b,
                              ensemble.reference_draws(R, len(self.observables), self.seed),
@@ -336,7 +337,7 @@ class Engine:
         todo = [s for s in specs if s.id not in self._extra]
         if todo:
             x, _, _ = self._solve(todo, self.K)
-            for s, xs in zip(todo, x):
+            for s, xs in zip(todo, x, strict=True):
                 self._extra[s.id] = (s, xs)
         return np.stack([self._extra[s.id][1] for s in specs]) if specs else \
             np.empty((0, self.K, len(self.observables)))
@@ -477,7 +478,7 @@ class Engine:
         acc = self._accuracy_fn()
         nts = tuple(notes.bench_notes(self.case, self.rules, [
             Reading(self.observables[j].point, self.observables[j].kind, v)
-            for j, v in zip(idx, vals)], acc))
+            for j, v in zip(idx, vals, strict=True)], acc))
         fit_text = self._fit_text(fits, pval, len(idx), specs[order[0]], pairs_tried)
         confirm = {specs[h].id: specs[h].confirm for h in order[:5]}
         return Diagnosis(len(idx), bool(fits), tuple(suspects), tuple(nxt), nts, fit_text,
@@ -533,7 +534,7 @@ class Engine:
                 lead.append(h)
             if len(lead) == 3:
                 break
-        for j, b in zip(untaken, bits):
+        for j, b in zip(untaken, bits, strict=True):
             if b < 1e-3:
                 continue
             o = self.observables[j]

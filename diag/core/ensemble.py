@@ -50,6 +50,7 @@ from pathlib import Path  # noqa: E402
 
 from diag.core.errors import DiagError  # noqa: E402
 
+
 def hypothesis_rng(seed: int, fault_id: str) -> np.random.Generator:
     """The Generator for one hypothesis's draws: seeded by (seed, crc32 of its id), so a
     hypothesis draws the same units whatever else is built with it."""

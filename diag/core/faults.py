@@ -16,9 +16,10 @@ prior of `healthy`.
 from __future__ import annotations
 
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
 from itertools import combinations
-from typing import Any, Sequence
+from typing import Any
 
 from diag.core.case import TERMINALS, Case, Part
 from diag.core.errors import DiagError
@@ -77,7 +78,7 @@ def _fields(part: Part, case: Case) -> dict[str, str]:
     unit = _UNITS.get(part.kind)
     out["value"] = format_value(part.value, unit) if part.value is not None else ""
     out["model"] = (part.model or {}).get("name", part.kind) if part.model else part.kind
-    for term, node in zip(TERMINALS[part.kind], part.nodes):
+    for term, node in zip(TERMINALS[part.kind], part.nodes, strict=True):
         out[term] = node
     out["from"] = part.nodes[0]
     out["to"] = part.nodes[1] if len(part.nodes) > 1 else ""
@@ -239,7 +240,7 @@ def linked(case: Case, rules, singles_: Sequence[FaultSpec]) -> list[FaultSpec]:
     """Linked faults from rules/collateral.yaml, found by topology."""
     by_id = {s.id: s for s in singles_}
     out: dict[str, FaultSpec] = {}
-    for i, rule in enumerate((rules["collateral"].get("links") or [])):
+    for i, rule in enumerate(rules["collateral"].get("links") or []):
         try:
             cause_k, effect_k = rule["cause"], rule["effect"]
             p_link = float(rule["p"])

@@ -29,7 +29,6 @@ from dataclasses import dataclass
 import numpy as np
 
 
-
 @dataclass(frozen=True)
 class Noise:
     """Per-observable reading noise: sigma(y) = sqrt(b^2 + (a y)^2); a (M,) relative,

@@ -7,7 +7,7 @@ looking at the meter.
 
 from __future__ import annotations
 
-from typing import Sequence
+from collections.abc import Sequence
 
 from diag.core.case import TERMINALS, Case
 from diag.core.errors import DiagError

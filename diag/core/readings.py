@@ -141,7 +141,7 @@ def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> R
             errors.append(DiagError(f"{len(cells)} fields, expected {len(cols)} "
                                     f"({','.join(cols)})", file=file, line=i, where=f"row {i}"))
             continue
-        rec = dict(zip(cols, cells))
+        rec = dict(zip(cols, cells, strict=True))
         unit = rec.get("unit", "")
         if batch and not unit:
             errors.append(DiagError("no unit name", file=file, line=i, where=f"row {i}",

@@ -25,10 +25,11 @@ from diag.core.netlist import Circuit
 
 GSHUNT = 1e-15            # siemens from every unknown node to ground (keeps every node defined;
                           # far below the 1e-12 S SPICE gmin across junctions)
-VNTOL = 1e-9              # volts, absolute Newton step tolerance
-RELTOL = 1e-7             # relative Newton step tolerance
+VNTOL = 1e-6              # volts, absolute Newton step tolerance (SPICE vntol)
+RELTOL = 1e-6             # relative Newton step tolerance (SPICE uses 1e-3)
 MAXIT = 60                # Newton iterations per attempt
-RES_REL = 1e-6            # accepted KCL residual, relative to the currents at the node
+RES_REL = 1e-5            # accepted KCL residual at the last iterate, relative to the
+                          # currents at the node (the accepted point is one Newton step on)
 RES_ABS = 1e-14           # amperes, accepted KCL residual floor
 FLOAT_OHMS = 3e8          # a node whose resistance to ground exceeds this floats (opens: >=1e9)
 GMIN_STEPS = (1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10, 0.0)
@@ -151,30 +152,48 @@ class _Plan:
         # row-summation of the original entries: r = S @ (A_vals * x[cols])
         self.rowsum = sparse.csr_matrix(
             (np.ones(len(keys)), (self.r_i, np.arange(len(keys)))), shape=(n, len(keys)))
+        # entries are sorted by row and every row holds its diagonal: row sums by reduceat
+        self.row_starts = np.searchsorted(self.r_i, np.arange(n))
+        self._compile()
 
     # -- numeric LU on the pattern (values: (nz, B), float or complex) --
+    def _compile(self):
+        """Straight-line code of the factorisation and the two substitutions: every
+        entry is a row of the (nz, B) value array, every operation a (B,) vector op."""
+        f = ["def factor(M):", "    R = list(M)", "    t = np.empty_like(R[0])"]
+        fw = ["def forward(R, Y):", "    t = np.empty_like(Y[0])"]
+        bw = ["def backward(R, Y):", "    t = np.empty_like(Y[0])"]
+        for k, kk, rows, ik, kj, ij, ik_rep, kj_rep in self.steps:
+            for a in ik:
+                f.append(f"    dv(R[{a}], R[{kk}], out=R[{a}])")
+            for a, b2, c in zip(ij, ik_rep, kj_rep):
+                f.append(f"    mul(R[{b2}], R[{c}], out=t); sub(R[{a}], t, out=R[{a}])")
+            for i, a in zip(rows, ik):
+                fw.append(f"    mul(R[{a}], Y[{k}], out=t); sub(Y[{i}], t, out=Y[{i}])")
+        for k, kk, rows, ik, kj, ij, ik_rep, kj_rep in reversed(self.steps):
+            for j, a in zip(rows, kj):
+                bw.append(f"    mul(R[{a}], Y[{j}], out=t); sub(Y[{k}], t, out=Y[{k}])")
+            bw.append(f"    dv(Y[{k}], R[{kk}], out=Y[{k}])")
+        f.append("    return M")
+        fw.append("    return Y")
+        bw.append("    return Y")
+        ns = {"np": np, "dv": np.divide, "mul": np.multiply, "sub": np.subtract}
+        exec("\n".join(f + fw + bw), ns)     # generated from the fixed pattern only
+        self._factor, self._forward, self._backward = ns["factor"], ns["forward"], ns["backward"]
+
     def factor(self, M):
         """In-place LU of M (nz, B); returns M."""
-        for k, kk, rows, ik, kj, ij, ik_rep, kj_rep in self.steps:
-            if len(rows):
-                M[ik] /= M[kk]
-                M[ij] -= M[ik_rep] * M[kj_rep]
-        return M
+        return self._factor(M)
 
     def solve_lu(self, M, y):
         """Solve with a factored M; y (n, ..., B) right-hand sides, overwritten."""
-        extra = y.ndim - 2
-
-        def col(a):
-            return a.reshape(a.shape[:1] + (1,) * extra + a.shape[1:])
-
-        for k, kk, rows, ik, kj, ij, ik_rep, kj_rep in self.steps:
-            if len(rows):
-                y[rows] -= col(M[ik]) * y[k][None]
-        for k, kk, rows, ik, kj, ij, ik_rep, kj_rep in reversed(self.steps):
-            if len(rows):
-                y[k] -= (col(M[kj]) * y[rows]).sum(axis=0)
-            y[k] /= col(M[kk][None])[0]
+        if y.ndim == 2:
+            R = list(M)
+        else:
+            R = [r.reshape((1,) * (y.ndim - 2) + r.shape) for r in M]
+        Y = list(y)
+        self._forward(R, Y)
+        self._backward(R, Y)
         return y
 
     def dense(self, M):
@@ -219,6 +238,11 @@ def _nominal_p(circuit: Circuit, pi: int) -> dict:
 def _batch(circuit: Circuit, params: Mapping[str, object] | None) -> tuple[int, list[dict]]:
     """(B, per-part parameter dicts) with arrays (B,) or scalars."""
     params = params or {}
+    keys = circuit.cache.get("keys")
+    if keys is None:
+        keys = circuit.cache["keys"] = [
+            [(k[len(part.ref) + 1:], k) for k in circuit.nominal
+             if k.startswith(part.ref + ".")] for part in circuit.parts]
     unknown = [k for k in params if k not in circuit.nominal]
     if unknown:
         raise DiagError(f"unknown parameter {unknown[0]!r}", file=circuit.case.path,
@@ -230,25 +254,32 @@ def _batch(circuit: Circuit, params: Mapping[str, object] | None) -> tuple[int, 
         a = np.asarray(v, dtype=float)
         if a.ndim > 1:
             raise DiagError(f"parameter {k!r} must be a scalar or a (B,) array")
-        if a.ndim == 1:
-            if B not in (1, a.shape[0]) and a.shape[0] != 1:
+        if a.ndim == 1 and a.shape[0] != 1:
+            if B not in (1, a.shape[0]):
                 raise DiagError(f"parameter {k!r} has {a.shape[0]} variants, others {B}")
-            B = max(B, a.shape[0])
+            B = a.shape[0]
         arrs[k] = a
     out = []
-    for part in circuit.parts:
-        pre = part.ref + "."
+    nominal = circuit.nominal
+    for plist in keys:
         d = {}
-        for k, v in circuit.nominal.items():
-            if k.startswith(pre):
-                a = arrs.get(k)
-                d[k[len(pre):]] = v if a is None else (float(a) if a.ndim == 0 else a)
+        for short, k in plist:
+            a = arrs.get(k)
+            if a is None:
+                d[short] = nominal[k]
+            elif a.ndim == 0 or a.shape[0] == 1:
+                d[short] = float(a.reshape(-1)[0])
+            else:
+                d[short] = a
         out.append(d)
-    for d in out:
-        for k, v in d.items():
-            if isinstance(v, np.ndarray) and v.shape[0] != B:
-                d[k] = np.broadcast_to(v, (B,))
     return B, out
+
+
+def _nominal_dp(circuit: Circuit, plan) -> list[dict]:
+    dp = circuit.cache.get("dp_nominal")
+    if dp is None:
+        dp = circuit.cache["dp_nominal"] = _prepared(plan, _batch(circuit, None)[1])
+    return dp
 
 
 def _sub(d: dict, act) -> dict:
@@ -294,22 +325,33 @@ def _linear(circuit: Circuit, plan: _Plan, P: list[dict], B: int, omega: float |
     return A, b
 
 
-def _stamp_devices(plan, DP, x, state, A, b, act, limit=True):
+def _stamp_devices(plan, DP, x, state, A, b, act, limit=True, currents=None, init=False):
     """Add every device's companion model at x (n+1, Ba) to A, b; update state in place.
+    With `currents` (n, Ba) given, add the device currents at x (leaving each node) to it.
     Returns limited (Ba,) bool."""
     limited = np.zeros(x.shape[1], dtype=bool)
     for q, ((_, dev, idx), ent) in enumerate(zip(plan.devices, plan.dev_slots)):
-        p = _sub(DP[q], act)
-        st = tuple(s[act] for s in state[q]) if state is not None else None
-        J, ieq, new, lim = dev.eval(p, x[idx], st, limit=limit)
+        p = DP[q] if act is None else _sub(DP[q], act)
+        st = None
+        if state is not None:
+            st = state[q] if act is None else tuple(s[act] for s in state[q])
+        v = x[idx]
+        J, ieq, new, lim = dev.eval(p, v, st, limit=limit, init=init)
         for a, bb, s in ent:
-            A[s] += J[a, bb]
+            A[s] += J[a][bb]
         for a, i in enumerate(idx):
             if i < plan.n:
                 b[i] -= ieq[a]
+        if currents is not None:
+            for a, i in enumerate(idx):
+                if i < plan.n:
+                    currents[i] += ieq[a] + sum(J[a][u] * v[u] for u in range(len(idx)))
         if state is not None:
             for s_full, s_new in zip(state[q], new):
-                s_full[act] = s_new
+                if act is None:
+                    s_full[:] = s_new
+                else:
+                    s_full[act] = s_new
         limited |= lim
     return limited
 
@@ -319,54 +361,91 @@ def _junction_state(plan, x):
              for j in dev.junctions(x[idx])] for _, dev, idx in plan.devices]
 
 
-def _newton(plan, DP, A_lin, b_lin, x, act, gextra=0.0, scale=1.0, dense=False,
-            maxit=MAXIT):
-    """Newton-Raphson on variants `act` from x (n+1, B), in place. Returns the converged
-    subset of act and the iterations used per variant (B,)."""
-    state = _junction_state(plan, x)
+def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=False,
+            maxit=MAXIT, start=None):
+    """Newton-Raphson on variants `act` from x (n+1, B), in place. A variant is accepted
+    when its step is below tolerance, no junction was limited, and its KCL residual at
+    every unknown is within tolerance. The work runs on a working set of variants that is
+    compacted only when fewer than half of it are still iterating (gathers cost more than
+    the arithmetic). For accepted variants (LU path) probe[:, q] gets J^-1 · 1 (A/V), the
+    floating-node probe. `start` (per device, junction voltages (B,)) is where the devices
+    are evaluated in the first iteration; else at x. Returns the accepted subset of act
+    and iterations per variant."""
+    B = x.shape[1]
+    its = np.zeros(B, dtype=int)
     conv = []
-    its = np.zeros(x.shape[1], dtype=int)
-    for _ in range(maxit):
-        if act.size == 0:
+    W = act                                    # working set (indices into B)
+    live = np.ones(W.size, dtype=bool)         # still iterating, per working column
+    full = W.size == B
+    Aw, bw = (A_lin, b_lin) if full else (A_lin[:, W], b_lin[:, W])
+    xw = x.copy() if full else x[:, W]
+    DPw = DP if full else [_sub(d, W) for d in DP]
+    if start is None:
+        state = _junction_state(plan, xw)
+    else:
+        state = [[np.array(np.broadcast_to(j, (B,)))[W] for j in st] for st in start]
+    Arows = Aw[plan.rows]
+    bufA = np.empty((plan.nz, W.size))          # reused buffers (no page faults per step)
+    bufC = np.empty((plan.n, W.size))
+    bufR = np.empty((plan.n, 2, W.size))
+    for it_no in range(maxit):
+        if not live.any():
             break
-        A = A_lin[:, act].copy()
-        b = b_lin[:, act] * scale
+        if live.sum() < 0.5 * W.size:          # compact the working set
+            keep = np.flatnonzero(live)
+            W, Aw, bw, xw, Arows = W[keep], Aw[:, keep], bw[:, keep], xw[:, keep], Arows[:, keep]
+            DPw = [_sub(d, keep) for d in DPw]
+            state = [[s[keep] for s in st] for st in state]
+            live = np.ones(W.size, dtype=bool)
+        nw = W.size
+        A = bufA[:, :nw]
+        np.copyto(A, Aw)
+        b = bw * scale
         if gextra:
             A[plan.diag] += gextra
-        xa = x[:, act]
-        lim = _stamp_devices(plan, DP, xa, state, A, b, act)
-        xn = plan.solve(A, b, dense=dense)
-        its[act] += 1
-        fin = np.isfinite(xn).all(axis=0)
+        dev_cur = bufC[:, :nw]
+        dev_cur.fill(0.0)
+        lim = _stamp_devices(plan, DPw, xw, state, A, b, None, currents=dev_cur,
+                             init=start is not None and it_no == 0)
+        if dense:
+            xn = plan.solve(A, b, dense=True)
+            yp = None
+        else:
+            rhs = bufR[:, :, :nw]
+            rhs[:, 0] = b
+            rhs[:, 1] = 1.0
+            with np.errstate(all="ignore"):
+                y = plan.solve_lu(plan.factor(A), rhs)
+            xn, yp = y[:, 0], y[:, 1]
+        its[W[live]] += 1
         with np.errstate(invalid="ignore"):
-            dx = np.abs(xn - xa[:-1])
-            tol = RELTOL * np.maximum(np.abs(xn), np.abs(xa[:-1])) + VNTOL
-            done = fin & (dx <= tol).all(axis=0) & ~lim
-        x[:-1, act[fin]] = xn[:, fin]
-        conv.append(act[done])
-        act = act[fin & ~done]
+            fin = np.isfinite(xn).all(axis=0)
+            step_ok = (np.abs(xn - xw[:-1]) <= RELTOL * np.abs(xn) + VNTOL).all(axis=0)
+            cand = live & fin & step_ok & ~lim
+        if cand.any():
+            ci = np.flatnonzero(cand)
+            if ci.size > 0.3 * W.size:      # cheaper than gathering the columns
+                prod = (Arows * xw[plan.r_j])[:, ci]
+            else:
+                prod = Arows[:, ci] * xw[plan.r_j][:, ci]
+            F = np.add.reduceat(prod, plan.row_starts, axis=0) - bw[:, ci] * scale \
+                + dev_cur[:, ci]
+            S = (np.add.reduceat(np.abs(prod), plan.row_starts, axis=0)
+                 + np.abs(bw[:, ci]) * scale + np.abs(dev_cur[:, ci]))
+            if gextra:
+                F += gextra * xw[:-1, ci]
+            with np.errstate(invalid="ignore"):
+                good = (np.abs(F) <= RES_REL * S + RES_ABS).all(axis=0)
+            cand[ci[~good]] = False
+            acc = ci[good]
+            x[:-1, W[acc]] = xn[:, acc]
+            if yp is not None:
+                probe[:, W[acc]] = yp[:, acc]
+            conv.append(W[acc])
+        step = live & fin & ~cand
+        xw[:-1, step] = xn[:, step]
+        live = step
     return (np.concatenate(conv) if conv else np.zeros(0, dtype=int)), its
-
-
-def _residual_ok(plan, DP, A_lin, b_lin, x, act):
-    """True where the KCL residual at every unknown is within tolerance."""
-    if act.size == 0:
-        return np.zeros(0, dtype=bool)
-    xa = x[:, act]
-    A = A_lin[:, act]
-    cols = xa[plan.r_j]
-    prod = A[plan.rows] * cols
-    F = plan.rowsum @ prod - b_lin[:, act]
-    S = plan.rowsum @ np.abs(prod) + np.abs(b_lin[:, act])
-    for q, ((_, dev, idx), ent) in enumerate(zip(plan.devices, plan.dev_slots)):
-        J, ieq, _, _ = dev.eval(_sub(DP[q], act), xa[idx], None, limit=False)
-        cur = ieq + np.einsum("abk,bk->ak", J, xa[idx])
-        for a, i in enumerate(idx):
-            if i < plan.n:
-                F[i] += cur[a]
-                S[i] += np.abs(cur[a])
-    with np.errstate(invalid="ignore"):
-        return (np.isfinite(F).all(axis=0) & (np.abs(F) <= RES_REL * S + RES_ABS).all(axis=0))
 
 
 def _nominal_x(circuit: Circuit, plan: _Plan) -> np.ndarray:
@@ -377,41 +456,40 @@ def _nominal_x(circuit: Circuit, plan: _Plan) -> np.ndarray:
         DP = _prepared(plan, P)
         A_lin, b_lin = _linear(circuit, plan, P, 1, None)
         x = np.zeros((plan.n + 1, 1))
-        ok, _, _ = _robust(plan, DP, A_lin, b_lin, x, np.arange(1), np.zeros((plan.n + 1, 1)))
+        probe = np.full((plan.n, 1), np.nan)
+        ok, _ = _robust(plan, DP, A_lin, b_lin, x, np.arange(1), np.zeros((plan.n + 1, 1)),
+                        probe)
         x0 = x[:, 0].copy() if ok[0] else np.zeros(plan.n + 1)
         circuit.cache["x_nominal"] = x0
     return x0
 
 
-def _robust(plan, DP, A_lin, b_lin, x, act, x_start):
+def _robust(plan, DP, A_lin, b_lin, x, act, x_start, probe, start=None):
     """Newton from x on `act`, then gmin stepping, then source stepping for the rest.
-    Returns (ok (B,), iterations (B,), method note per variant or None)."""
+    Returns (ok (B,), iterations (B,)); x holds the accepted solutions."""
     B = x.shape[1]
     ok = np.zeros(B, dtype=bool)
     its = np.zeros(B, dtype=int)
-    conv, it = _newton(plan, DP, A_lin, b_lin, x, act)
+    good, it = _newton(plan, DP, A_lin, b_lin, x, act, probe, start=start)
     its += it
-    good = conv[_residual_ok(plan, DP, A_lin, b_lin, x, conv)]
     ok[good] = True
     rest = act[~ok[act]]
     if rest.size:   # gmin stepping, pivoting dense solves
         x[:, rest] = x_start[:, rest] if x_start.shape[1] == B else x_start[:, :1]
         live = rest
         for g in GMIN_STEPS:
-            live, it = _newton(plan, DP, A_lin, b_lin, x, live, gextra=g, dense=True)
+            live, it = _newton(plan, DP, A_lin, b_lin, x, live, probe, gextra=g, dense=True)
             its += it
-        good = live[_residual_ok(plan, DP, A_lin, b_lin, x, live)]
-        ok[good] = True
+        ok[live] = True
         rest = rest[~ok[rest]]
     if rest.size:   # source stepping from zero
         x[:, rest] = 0.0
         live = rest
         for s in SOURCE_STEPS:
-            live, it = _newton(plan, DP, A_lin, b_lin, x, live, scale=s, dense=True)
+            live, it = _newton(plan, DP, A_lin, b_lin, x, live, probe, scale=s, dense=True)
             its += it
-        good = live[_residual_ok(plan, DP, A_lin, b_lin, x, live)]
-        ok[good] = True
-    return ok, its, None
+        ok[live] = True
+    return ok, its
 
 
 # ----------------------------------------------------------------------------- DC
@@ -425,13 +503,17 @@ def solve_dc(circuit: Circuit, params: Mapping[str, object] | None = None) -> DC
     DP = _prepared(plan, P)
     A_lin, b_lin = _linear(circuit, plan, P, B, None)
     x = np.repeat(x0[:, None], B, axis=1)
-    ok, its, _ = _robust(plan, DP, A_lin, b_lin, x, np.arange(B), x0[:, None])
+    probe = np.full((plan.n, B), np.nan)
+    DPn = _nominal_dp(circuit, plan)
+    start = [dev.start(DP[q], DPn[q], x[idx]) for q, (_, dev, idx) in enumerate(plan.devices)]
+    ok, its = _robust(plan, DP, A_lin, b_lin, x, np.arange(B), x0[:, None], probe, start)
     why: list = [None] * B
     for q in np.flatnonzero(~ok):
         why[q] = ("did not converge: no consistent DC operating point found "
                   "(Newton, gmin stepping and source stepping tried)")
     x[:, ~ok] = np.nan
-    for q, names in _floating(circuit, plan, DP, A_lin, x, np.flatnonzero(ok)).items():
+    floating = _floating(circuit, plan, DP, A_lin, x, np.flatnonzero(ok), probe)
+    for q, names in floating.items():
         nodes = ", ".join(names)
         one = len(names) == 1
         why[q] = (f"node{'' if one else 's'} {nodes} ha{'s' if one else 've'} no DC path to "
@@ -484,11 +566,11 @@ def _outflow(circuit, plan, P, DP, x, node, skip):
     for q, (pi, dev, idx) in enumerate(plan.devices):
         if pi == skip or node not in idx:
             continue
-        J, ieq, _, _ = dev.eval(DP[q], x[idx], None, limit=False)
-        cur = ieq + np.einsum("abk,bk->ak", J, x[idx])
+        v = x[idx]
+        J, ieq, _, _ = dev.eval(DP[q], v, None, limit=False)
         for a, i in enumerate(idx):
             if i == node:
-                tot = tot + cur[a]
+                tot = tot + ieq[a] + sum(J[a][u] * v[u] for u in range(len(idx)))
     return tot
 
 
@@ -500,17 +582,22 @@ def _jacobian(circuit, plan, DP, A_lin, x, act):
     return A
 
 
-def _floating(circuit, plan, DP, A_lin, x, act) -> dict[int, list[str]]:
-    """Variants (index -> node names) where case nodes have no DC path to ground."""
+def _floating(circuit, plan, DP, A_lin, x, act, probe) -> dict[int, list[str]]:
+    """Variants (index -> node names) where case nodes have no DC path to ground: a 1 A
+    probe into every node shows them (the sum of transfer resistances is huge there);
+    suspects are confirmed by the diagonal of the inverse Jacobian (> FLOAT_OHMS)."""
     if act.size == 0:
         return {}
-    A = _jacobian(circuit, plan, DP, A_lin, x, act)
-    y = plan.solve(A, np.ones((plan.n, act.size)))
-    with np.errstate(invalid="ignore"):
+    y = probe[:, act]
+    have = np.isfinite(y).all(axis=0)
+    with np.errstate(all="ignore"):
+        if (~have).any():
+            A = _jacobian(circuit, plan, DP, A_lin, x, act[~have])
+            y[:, ~have] = plan.solve(A, np.ones((plan.n, int((~have).sum()))), dense=True)
         sus = ~(np.abs(y[:circuit.n_nodes]) <= FLOAT_OHMS).all(axis=0)
     out = {}
     if sus.any():
-        D = plan.dense(A[:, sus])
+        D = plan.dense(_jacobian(circuit, plan, DP, A_lin, x, act[sus]))
         try:
             inv = np.linalg.inv(D)
         except np.linalg.LinAlgError:

@@ -82,6 +82,7 @@ class SessionScreen(Screen[None]):
         self.shown_serial = -1
         self.last_error = ""
         self._typing = False
+        self._binding_state: tuple = ()
 
     # ------------------------------------------------------------------ layout
 
@@ -159,7 +160,7 @@ class SessionScreen(Screen[None]):
         self.query_one("#build-row").display = False
         self._show_readings()
         self.request_ranking()
-        self.refresh_bindings()
+        self._sync_bindings()
 
     def on_ensemble_failed(self, msg: EnsembleFailed) -> None:
         self.query_one("#build-label", Label).update("predictions failed")
@@ -175,44 +176,56 @@ class SessionScreen(Screen[None]):
         self.query_one(NextReadingPanel).show(msg.diagnosis)
         self.query_one(BenchNotesPanel).show(msg.diagnosis)
         self.query_one(FitBanner).show(msg.diagnosis)
-        self.refresh_bindings()
+        self._sync_bindings()
 
     @on(DataTable.RowHighlighted, "#points")
     def _row_moved(self) -> None:
         self._sync_entry_label()
+        self._sync_bindings()
 
     @on(DataTable.RowSelected, "#points")
     def _row_chosen(self) -> None:
-        self.action_enter_reading()
+        if self._typing:  # enter typed fast after a value: it reached the table first
+            self._submit(self.query_one("#entry", Input).value)
+        else:
+            self.action_enter_reading()
 
     @on(DataTable.RowSelected, "#suspects")
     def _suspect_chosen(self) -> None:
         self.action_detail()
 
     def on_key(self, event: Key) -> None:
-        # typing a digit on the table starts the entry in place for the highlighted row;
-        # keys that arrive before the focus has moved are appended, not lost
-        if (event.character and event.character in _TYPING
-                and isinstance(self.focused, PointsTable)):
-            entry = self.query_one("#entry", Input)
-            entry.value = (entry.value if self._typing else "") + event.character
-            entry.cursor_position = len(entry.value)
+        # Typing a digit on the table starts the entry in place for the highlighted row.
+        # Keys typed fast reach the table before the focus has moved and bubble up here
+        # after it: while an entry is being typed they are appended, not lost.
+        if not event.is_printable:
+            return
+        entry = self.query_one("#entry", Input)
+        if isinstance(self.focused, PointsTable) and event.character in _TYPING:
+            entry.value = event.character
             self._typing = True
-            entry.focus()
-            event.stop()
-            event.prevent_default()
+        elif self._typing:  # the Input stops its own keys: this one came from the table
+            entry.value += event.character
+        else:
+            return
+        entry.cursor_position = len(entry.value)
+        self.set_focus(entry)
+        event.stop()
+        event.prevent_default()
 
     def on_descendant_focus(self, event) -> None:
-        if not isinstance(self.focused, PointsTable):
+        if isinstance(self.focused, PointsTable):
             self._typing = False
-        self.refresh_bindings()
 
     @on(Input.Submitted, "#entry")
     def _entry_submitted(self, event: Input.Submitted) -> None:
+        self._submit(event.value)
+
+    def _submit(self, text: str) -> None:
         o = self.query_one("#points", PointsTable).observable_at_cursor()
         if o is None:
             return
-        text = event.value.strip()
+        text = text.strip()
         if not text:
             self.action_leave_entry()
             return
@@ -360,7 +373,16 @@ class SessionScreen(Screen[None]):
         self._autosave()
         self._message(what)
         self.request_ranking()
-        self.refresh_bindings()
+        self._sync_bindings()
+
+    def _sync_bindings(self) -> None:
+        """Refresh the footer only when what applies has changed (a footer refresh
+        rebuilds its keys, the dearest part of a screen update)."""
+        state = tuple(self.check_action(a, ()) for a in
+                      ("undo", "clear_reading", "detail", "goto_next"))
+        if state != self._binding_state:
+            self._binding_state = state
+            self.refresh_bindings()
 
     def _autosave(self) -> None:
         if self.session.path is None:

@@ -127,12 +127,27 @@ class BJTDevice:
         ib = ibe + ibc
         return ic, ib, (dit_be, dit_bc - gibc), (gibe, gibc)
 
-    def eval(self, p, v, state, limit=True):
+    def start(self, p, pn, v):
+        """(vbe, vbc) to evaluate first, from the nominal solution v (parameters pn):
+        the forward junctions carry the nominal currents with this variant's IS, NF, NR."""
+        vbe, vbc = self.junctions(v)
+        with np.errstate(invalid="ignore"):
+            lr = np.log(pn["is"] / p["is"])
+            be = np.where(vbe > 0, p["_vtf"] * (vbe / pn["_vtf"] + lr), vbe)
+            bc = np.where(vbc > 0, p["_vtr"] * (vbc / pn["_vtr"] + lr), vbc)
+        return be, bc
+
+    def eval(self, p, v, state, limit=True, init=False):
         """Companion model at terminal voltages v (3, B) ordered (c, b, e):
-        (J (3,3,B), Ieq (3,B), state, limited (B,) bool)."""
+        (J, Ieq, state, limited (B,) bool); J[a][b] and Ieq[a] are (B,) arrays (nested
+        tuples, 3 x 3 and 3). With `init` the junctions are evaluated at the state
+        voltages (SPICE's first iteration)."""
         vbe, vbc = self.junctions(v)
         limited = np.zeros(np.shape(vbe), dtype=bool)
-        if limit:
+        if init:
+            vbe = np.broadcast_to(state[0], np.shape(vbe))
+            vbc = np.broadcast_to(state[1], np.shape(vbc))
+        elif limit:
             vbe, l1 = pnjlim(vbe, state[0], p["_vtf"], p["_vcf"])
             vbc, l2 = pnjlim(vbc, state[1], p["_vtr"], p["_vcr"])
             limited = l1 | l2
@@ -145,13 +160,13 @@ class BJTDevice:
         jc = (-gc_bc, gc_be + gc_bc, -gc_be)
         jb = (-gb_bc, gb_be + gb_bc, -gb_be)
         je = tuple(-(a + b) for a, b in zip(jc, jb))
-        J = np.stack([np.stack(jc), np.stack(jb), np.stack(je)])
+        J = (jc, jb, je)
         # consistent terminal voltages for the (limited) junction voltages, emitter at 0
         vb_ = s * vbe
         vc_ = vb_ - s * vbc
-        ieq = np.stack([Ic - (jc[0] * vc_ + jc[1] * vb_),
-                        Ib - (jb[0] * vc_ + jb[1] * vb_),
-                        Ie - (je[0] * vc_ + je[1] * vb_)])
+        ieq = (Ic - (jc[0] * vc_ + jc[1] * vb_),
+               Ib - (jb[0] * vc_ + jb[1] * vb_),
+               Ie - (je[0] * vc_ + je[1] * vb_))
         return J, ieq, (vbe, vbc), limited
 
     def region(self, p, v):

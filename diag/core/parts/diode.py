@@ -103,13 +103,27 @@ class DiodeDevice:
     def junctions(v):
         return (v[0] - v[1],)
 
-    def eval(self, p, v, state, limit=True):
-        """Companion model at terminal voltages v (2, B): (J (2,2,B), Ieq (2,B), state,
-        limited (B,) bool)."""
+    @staticmethod
+    def start(p, pn, v):
+        """Junction voltage to evaluate first, from the nominal solution v (parameters
+        pn): the one carrying the nominal current with this variant's IS, N or BV."""
+        vd = v[0] - v[1]
+        brk = np.isfinite(pn["_xbv"]) & (vd < -pn["_xbv"] + 10.0 * pn["_vte"])
+        with np.errstate(invalid="ignore"):
+            fwd = p["_vte"] * (vd / pn["_vte"] + np.log(pn["is"] / p["is"]))
+            rev = vd + pn["_xbv"] - p["_xbv"]
+        return (np.where(brk, rev, np.where(vd > 0, fwd, vd)),)
+
+    def eval(self, p, v, state, limit=True, init=False):
+        """Companion model at terminal voltages v (2, B): (J, Ieq, state, limited (B,)
+        bool); J[a][b] and Ieq[a] are (B,) arrays (nested tuples, 2 x 2 and 2). With
+        `init` the junction is evaluated at the state voltage (SPICE's first iteration)."""
         vd = v[0] - v[1]
         vte, xbv = p["_vte"], p["_xbv"]
         limited = np.zeros(vd.shape, dtype=bool)
-        if limit:
+        if init:
+            vd = np.broadcast_to(state[0], vd.shape)
+        elif limit:
             vold = state[0]
             brk = np.isfinite(xbv) & (vd < np.minimum(0.0, -xbv + 10.0 * vte))
             with np.errstate(invalid="ignore"):
@@ -122,19 +136,37 @@ class DiodeDevice:
         cd = k * (cd + GMIN * vd)
         gd = k * (gd + GMIN)
         ieq = cd - gd * vd
-        J = np.stack([np.stack([gd, -gd]), np.stack([-gd, gd])])
-        return J, np.stack([ieq, -ieq]), (vd,), limited
+        ng = -gd
+        return ((gd, ng), (ng, gd)), (ieq, -ieq), (vd,), limited
 
 
 def diode_iv(vd, is_, vte, xbv):
-    """ngspice diode current (A) and conductance (S) at junction voltage vd (volts)."""
+    """ngspice diode current (A) and conductance (S) at junction voltage vd (volts):
+    forward above -3 N vt, the cubic reverse law below, breakdown beyond -BV."""
     e, de = safe_exp(vd / vte)
-    fwd = vd >= -3.0 * vte
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        vneg = np.where(fwd, -1.0, vd)
-        arg = (3.0 * vte / (vneg * math.e)) ** 3
-        er, der = safe_exp(-(xbv + vd) / vte)
-    brk = ~fwd & np.isfinite(xbv) & (vd < -xbv)
-    cd = np.where(fwd, is_ * (e - 1.0), np.where(brk, -is_ * er, -is_ * (1.0 + arg)))
-    gd = np.where(fwd, is_ * de / vte, np.where(brk, is_ * der / vte, is_ * 3.0 * arg / vneg))
+    cd = is_ * (e - 1.0)
+    gd = is_ * de / vte
+    rev = vd < -3.0 * vte
+    if rev.any():
+        r = np.flatnonzero(rev) if np.ndim(rev) else None
+        v = vd[r] if r is not None else vd
+
+        def at(a):
+            return a[r] if r is not None and np.ndim(a) else a
+
+        i_s, vt_, xb = at(np.broadcast_to(is_, np.shape(vd))), at(
+            np.broadcast_to(vte, np.shape(vd))), at(np.broadcast_to(xbv, np.shape(vd)))
+        arg = (3.0 * vt_ / (v * math.e)) ** 3
+        c_r, g_r = -i_s * (1.0 + arg), i_s * 3.0 * arg / v
+        brk = np.isfinite(xb) & (v < -xb)
+        if np.any(brk):
+            with np.errstate(invalid="ignore", over="ignore"):
+                er, der = safe_exp(np.where(brk, -(xb + v) / vt_, 0.0))
+            c_r = np.where(brk, -i_s * er, c_r)
+            g_r = np.where(brk, i_s * der / vt_, g_r)
+        if r is None:
+            return c_r, g_r
+        cd = np.array(cd, dtype=float)
+        gd = np.array(gd, dtype=float)
+        cd[r], gd[r] = c_r, g_r
     return cd, gd
