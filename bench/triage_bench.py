@@ -12,6 +12,7 @@ memory. Targets (issue 5): 10 000 units in < 10 s after the ensemble is cached, 
 from __future__ import annotations
 
 import argparse
+import os
 import resource
 import sys
 import time
@@ -79,6 +80,7 @@ def main() -> None:
                     help="units compared against Engine.diagnose one at a time")
     args = ap.parse_args()
 
+    load = os.getloadavg()
     rules = load_rules()
     case = load_case(args.case)
     Engine(case, rules).build()                      # make sure the cache exists
@@ -106,7 +108,9 @@ def main() -> None:
         worst = max(worst, max(abs(got[s.fault] - s.p) for s in d.suspects))
 
     print(f"case `{Path(args.case).name}`, {len(case.observables)} observables, "
-          f"{len(eng.ensemble.hypotheses)} hypotheses, K = {eng.ensemble.samples.shape[1]}\n")
+          f"{len(eng.ensemble.hypotheses)} hypotheses, K = {eng.ensemble.samples.shape[1]}; "
+          f"{os.cpu_count()} CPUs, load average {load[0]:.1f} at the start, "
+          f"{os.getloadavg()[0]:.1f} at the end\n")
     print("| measure | value | target |")
     print("|---|---:|---|")
     print(f"| ensemble from cache | {t_cached:.3f} s | |")

@@ -61,6 +61,9 @@ def _open_runs(tmux, sock, diag, case, home, runs) -> list[float]:
                 if "next reading ▸" in pane:
                     break
                 time.sleep(0.01)
+            else:
+                print(f"{case.stem}: no ranked screen within 60 s; the pane shows:\n{pane}",
+                      file=sys.stderr)
             dt = time.perf_counter() - t0
         finally:
             subprocess.run([tmux, *sock, "kill-session", "-t", name], capture_output=True)

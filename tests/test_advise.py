@@ -42,3 +42,13 @@ def test_unit_weights_share_each_posterior():
     w = advise.unit_weights(llk, np.array([0.8, 0.2]))
     np.testing.assert_allclose(w, [[0.2, 0.6], [0.1, 0.1]])  # by hand
     assert w.sum() == pytest.approx(1.0)
+
+
+def test_gain_about_groups_ignores_splits_inside_a_group():
+    # hypotheses 0 and 1 differ at this reading but share a group: only the split
+    # between the group {0, 1} and hypothesis 2 counts, H(1/3, 2/3) = 0.918 bits
+    u = np.repeat(np.array([0.0, 100.0, 200.0])[:, None], 8, axis=1)
+    w = np.full((3, 8), 1 / 24)
+    assert advise.gain(u, w) == pytest.approx(np.log2(3), abs=1e-3)
+    h = -(1 / 3) * np.log2(1 / 3) - (2 / 3) * np.log2(2 / 3)  # Shannon entropy by hand
+    assert advise.gain(u, w, labels=np.array([0, 0, 1])) == pytest.approx(h, abs=1e-3)

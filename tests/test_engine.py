@@ -203,3 +203,24 @@ def test_cache_is_invalidated_by_a_rules_edit(tmp_path, monkeypatch):
 
     rules_mod._load.cache_clear()  # the loader caches per folder within a process
     assert not Engine(case, load_rules(folder), K=16).build().from_cache
+
+
+def test_pairs_are_tried_when_no_single_fault_fits(eng):
+    # R1 open turns Q1 off (coil pin at the rail) while a low 12 V supply (60-90 %)
+    # pulls the rail down: no single fault does both (worked from the schematic)
+    unit = eng.simulate("R1:open+V1:low", np.random.default_rng(11))
+    d = eng.diagnose(unit)
+    assert d.extra["pairs_tried"]
+    top = [s.fault for s in d.suspects[:3]]
+    assert "R1:open+V1:low" in top
+    assert sum(s.p for s in d.suspects) == pytest.approx(1.0, abs=1e-9)
+
+
+def test_a_reading_that_does_not_fit_is_named(eng):
+    unit = list(eng.simulate("K1:open", np.random.default_rng(5)))
+    unit = [Reading(r.point, r.kind, 12.0) if r.point == "TP4" else r for r in unit]
+    d = eng.diagnose(unit)
+    assert d.extra["odd_readings"] == ["TP4 dc"]  # the slipped probe above
+    assert "TP4 dc does not fit" in d.fit_text
+    clean = eng.diagnose(eng.simulate("K1:open", np.random.default_rng(5)))
+    assert clean.extra["odd_readings"] == []

@@ -201,3 +201,35 @@ def test_triage_batch_command_is_seeded_and_labelled(ngspice, tmp_path):
         assert r["set"] in ("healthy", "fault", "blunder", "unmodelled")
         if r["set"] in ("healthy", "fault", "blunder"):
             assert r["fault"] in faults  # SPEC section 3 identifiers
+
+
+@pytest.mark.ngspice
+def test_pot_link_and_film_capacitor_units(ngspice, tmp_path):
+    text = """case: 1
+title: pot divider
+about: a 10 kΩ pot at mid travel from 10 V through a wire link, a film capacitor across
+parts:
+  V1: {kind: supply, plus: top, minus: gnd, volts: 10, tol: 0.000001, r_source: 0.001}
+  J1: {kind: link, nodes: [top, a]}
+  P1: {kind: pot, a: a, wiper: w, b: gnd, ohms: 10k, set: 0.5, tol: 0.000001}
+  R1: {kind: resistor, nodes: [w, gnd], ohms: 1M, tol: 0.000001}
+  C1: {kind: capacitor, nodes: [w, gnd], farads: 100n}
+points:
+  TP1: {node: w, where: "wiper"}
+  TP2: {node: a, where: "pot top"}
+"""
+    path = tmp_path / "pot.yaml"
+    path.write_text(text, encoding="utf-8")
+    case = load_case(str(path))
+    plan = [("healthy", None), ("fault", "P1:wiper-open"), ("fault", "J1:open"),
+            ("fault", "C1:short")]
+    units, dropped = generate.generate_case(case, plan, seed=2)
+    assert dropped == 0
+    by = {g.fault: g for g in units}
+    # divider by hand: 5 kΩ over (5 kΩ || 1 MΩ || 10 MΩ meter) from 10 V = 4.97 V, less the
+    # wiper's few ohms of contact resistance (eval/bench.yaml)
+    expect = 10 * (1 / (1 / 5e3 + 1 / 1e6 + 1 / 1e7)) / (5e3 + 1 / (1 / 5e3 + 1 / 1e6 + 1 / 1e7))
+    assert by["healthy"].true[0] == pytest.approx(expect, rel=2e-3)
+    assert abs(by["P1:wiper-open"].true[0]) < 1e-3  # wiper lifted: R1 holds it at 0 V
+    assert abs(by["J1:open"].true[1]) < 1e-3        # link open: nothing feeds the pot
+    assert abs(by["C1:short"].true[0]) < 0.01       # 0.1-1 Ω across a 5 kΩ source

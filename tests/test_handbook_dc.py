@@ -6,10 +6,10 @@ import math
 
 import numpy as np
 from numpy.testing import assert_allclose
+from test_parts import MODELS, compiled, part
 
 from diag.core import solver
 from diag.core.parts import VT
-from test_parts import MODELS, compiled, part
 
 # an ideal Ebers-Moll transistor: VAF, IKF infinite, ISE 0, no series resistances
 EM = {"IS": 1e-15, "BF": 100.0, "BR": 1.0}

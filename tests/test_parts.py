@@ -14,7 +14,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import constants
 
-from diag.core import ensemble, netlist, solver
+from diag.core import ensemble, netlist
 from diag.core.case import Case, Part
 from diag.core.parts import REGISTRY, VT, check_models
 from diag.core.parts.base import T_KELVIN, pnjlim

@@ -8,11 +8,11 @@ import math
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
+from test_parts import RULES, compiled, part
 
 from diag.core import ensemble, netlist, solver
 from diag.core.case import load_case
 from diag.core.errors import DiagError
-from test_parts import RULES, compiled, part
 
 
 def divider(r_source=None):
@@ -189,3 +189,41 @@ def test_every_bundled_case_solves_nominal_and_healthy_draws(case_path):
     if case.signal is not None:
         ac = solver.solve_ac(c, params, many)
         assert np.isfinite(ac.v).all()
+
+
+def test_pot_divider_and_speaker_fault_carries_to_ac_by_hand():
+    # divider formula (handbook): wiper at set 0.25 from a (a on 10 V, b grounded) reads
+    # 10 V x 0.75, the wiper contact adding nothing without load
+    c = compiled(part("V1", "supply", ["vcc", "gnd"], 10.0, r_source=0.0),
+                 part("RV1", "pot", ["vcc", "w", "gnd"], 10e3, set=0.25),
+                 part("V2", "signal", ["in", "gnd"], 1.0, r_source=8.0),
+                 part("LS1", "speaker", ["in", "gnd"], 8.0))
+    params = {"LS1.r": np.array([6.4, 1e9])}
+    dc = solver.solve_dc(c, params)
+    assert_allclose(dc.v[:, c.node_index["w"]], 7.5, rtol=1e-6)
+    ac = solver.solve_ac(c, params, dc)
+    # healthy: 8 Ω source into the rated 8 Ω: half the signal; an open coil: all of it
+    assert_allclose(abs(ac.v[0, c.node_index["in"]]), 0.5, rtol=1e-9)
+    assert_allclose(abs(ac.v[1, c.node_index["in"]]), 1.0, rtol=1e-6)
+
+
+def test_a_variant_that_does_not_converge_is_flagged_never_answered(monkeypatch):
+    # never a silent wrong answer: with one Newton iteration allowed and no fall-backs a
+    # moved variant cannot be accepted; it comes back not ok, NaN, with the reason
+    c = follower()
+    assert solver.solve_dc(c).ok.all()      # the nominal point is solved and kept first
+    orig = solver._newton
+
+    def one_step(*a, **k):
+        k["maxit"] = 1
+        return orig(*a, **k)
+
+    monkeypatch.setattr(solver, "_newton", one_step)
+    monkeypatch.setattr(solver, "GMIN_STEPS", ())
+    monkeypatch.setattr(solver, "SOURCE_STEPS", ())
+    dc = solver.solve_dc(c, {"R2.r": np.array([47e3, 33e3])})
+    assert dc.ok.tolist() == [True, False]
+    assert np.isnan(dc.v[1]).all() and np.isfinite(dc.v[0]).all()
+    assert dc.why[1].startswith("did not converge")
+    ac = solver.solve_ac(c, {"R2.r": np.array([47e3, 33e3])}, dc)
+    assert np.isnan(ac.v[1]).all()

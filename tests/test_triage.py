@@ -20,6 +20,7 @@ from diag.core.rules import load_rules
 from diag.core.triage import (
     BatchScorer,
     caution_lines,
+    groups_batch,
     kernel_loglik,
     to_csv,
     to_json,
@@ -41,7 +42,8 @@ def engine() -> Engine:
 
 def _units(eng: Engine) -> dict[str, list[Reading]]:
     """A small batch drawn by the engine: several faults, healthy units, one unit with
-    two readings left out (incomplete) and one with one reading left out."""
+    two readings left out (incomplete), one with one reading left out, one with a
+    blunder."""
     rng = np.random.default_rng(20261201)
     faults = ["R2:open", "R2:open", "R3:open", "Q1:be-open", "C3:short", "healthy",
               "healthy", "LS1:open"]
@@ -50,6 +52,9 @@ def _units(eng: Engine) -> dict[str, list[Reading]]:
         units[f"A{i:02d}"] = list(eng.simulate(f, rng))
     units["A02"] = units["A02"][:3] + units["A02"][5:]
     units["A05"] = units["A05"][1:]
+    # a blunder: the 12 V rail written down a decade low (a slipped decimal point)
+    units["A08"] = [Reading(r.point, r.kind, r.value / 10 if r.point == "TP2" else r.value)
+                    for r in units["A00"]]
     return units
 
 
@@ -70,6 +75,8 @@ def _same(d1, d2) -> None:
     assert [(n.point, n.kind) for n in d1.next] == [(n.point, n.kind) for n in d2.next]
     assert_allclose([n.bits for n in d1.next], [n.bits for n in d2.next], rtol=1e-9)
     assert d1.notes == d2.notes
+    assert d1.fit_text == d2.fit_text
+    assert d1.extra.get("odd_readings") == d2.extra.get("odd_readings")
     assert d1.extra["p_value"] == pytest.approx(d2.extra["p_value"], abs=1e-12)
 
 
@@ -85,6 +92,23 @@ def test_kernel_product_equals_the_sum_of_logarithms():
         direct += np.log(np.exp(logpeak[None, :, j, None]
                                 - (ut[:, :, j, None] - Ut[j][None]) ** 2) + c[j])
     assert_allclose(kernel_loglik(ut, Ut, logpeak, c), direct, rtol=1e-12)
+
+
+def test_groups_batch_equals_the_greedy_grouping(engine):
+    # Independent path: the grouping of many orders at once against infer.groups_from
+    # one order at a time, on the case's own `apart` matrix and on random ones.
+    from diag.core import infer
+
+    rng = np.random.default_rng(11)
+    cases = [engine._apart] + [rng.random((30, 30)) < q for q in (0.2, 0.6, 0.9)]
+    for ap in cases:
+        ap = ap | ap.T
+        np.fill_diagonal(ap, False)
+        H = ap.shape[0]
+        orders = np.stack([rng.permutation(H) for _ in range(25)])
+        got = groups_batch(ap, orders)
+        for o, g in zip(orders, got, strict=True):
+            np.testing.assert_array_equal(g, infer.groups_from(ap, o))
 
 
 def test_batch_ranking_equals_diagnose_one_unit_at_a_time(engine):

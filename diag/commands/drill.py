@@ -26,10 +26,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.set_defaults(_parser=p)
 
 
-def print_summary(paths: list[str], out=sys.stdout) -> None:
-    """Print the class summary of one or more results CSVs."""
+def print_summary(paths: list[str], out=None) -> None:
+    """Print the class summary of one or more results CSVs (to `out`, default stdout)."""
     from diag.core.drill import read_results, summarise
 
+    out = out or sys.stdout
     rows = read_results(paths)
     people = summarise(rows)
     out.write(f"Class summary: {len(people)} trainee(s), {len(rows)} exercise(s) "

@@ -89,8 +89,10 @@ def run(args: argparse.Namespace) -> int:
         print(f"diag: {msg}", file=sys.stderr)
     bar = None
     if sys.stderr.isatty() and len(units) >= PROGRESS_MIN_UNITS:
+        pre = _Bar("predictions")
+        eng.build(progress=pre)
+        pre.done()
         bar = _Bar(f"triage {len(units)} units")
-        eng.build(progress=bar)
     res = triage(eng, units, rejected=rejected, progress=bar,
                  healthy_prior=args.healthy_prior)
     if bar is not None:

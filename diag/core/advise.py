@@ -3,7 +3,9 @@
 With the current readings, every drawn unit k of hypothesis h carries a posterior weight
 w_hk (prior x its kernel likelihood). A new reading at observable j then follows the
 mixture of the units' predictions with unit noise in the noise-scaled coordinate u (see
-infer.py). The expected gain is the mutual information I(H; Y_j) of that joint law,
+infer.py). The expected gain is the mutual information I(G; Y_j) of that joint law between
+the reading and the group of the hypothesis (the engine passes the groups formed around
+the leading suspects: telling apart what no offered reading can split earns nothing),
 computed on a histogram of u in half-noise-width bins smoothed by the unit-noise Gaussian.
 An observable every hypothesis predicts alike gains 0 bits.
 """
@@ -41,9 +43,11 @@ def _smooth(a: np.ndarray, sigma: float) -> np.ndarray:
     return out
 
 
-def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9) -> float:
-    """Mutual information (bits) between the hypothesis and a new reading whose units'
-    predictions are u_j (H, K) in u coordinates with weights w (H, K)."""
+def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9,
+         labels: np.ndarray | None = None) -> float:
+    """Mutual information (bits) between the hypothesis (or its group, when `labels`
+    (H,) gives each hypothesis's group) and a new reading whose units' predictions are
+    u_j (H, K) in u coordinates with weights w (H, K)."""
     keep = (w > tiny) & np.isfinite(u_j)
     if not keep.any():
         return 0.0
@@ -60,6 +64,11 @@ def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9) -> float:
     rows = np.repeat(np.arange(len(hs)), u.shape[1])
     joint = np.bincount(rows * nb + idx.ravel(), weights=ww.ravel(),
                         minlength=len(hs) * nb).reshape(len(hs), nb)
+    if labels is not None:  # rows summed per group: gain about the group only
+        lab = np.unique(np.asarray(labels)[hs], return_inverse=True)[1]
+        summed = np.zeros((lab.max() + 1, nb))
+        np.add.at(summed, lab, joint)
+        joint = summed
     joint = _smooth(joint, 1.0 / width)
     total = joint.sum()
     if total <= 0:
@@ -73,6 +82,8 @@ def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9) -> float:
     return max(mi, 0.0) if mi > 1e-9 else 0.0
 
 
-def gains(U: np.ndarray, w: np.ndarray, untaken: np.ndarray) -> np.ndarray:
-    """Expected gain (bits) of each untaken observable index (len(untaken),)."""
-    return np.array([gain(U[:, :, j], w) for j in untaken], dtype=float)
+def gains(U: np.ndarray, w: np.ndarray, untaken: np.ndarray,
+          labels: np.ndarray | None = None) -> np.ndarray:
+    """Expected gain (bits) of each untaken observable index (len(untaken),); about the
+    group when `labels` is given (see `gain`)."""
+    return np.array([gain(U[:, :, j], w, labels=labels) for j in untaken], dtype=float)

@@ -233,7 +233,11 @@ def telling_readings(engine: Engine, truth: str, named: str,
                      steps: Sequence[tuple[str, str, float]]) -> tuple[Telling, ...]:
     """The readings that would have told the most. When the named fault is another one,
     the observables whose predicted bands under the two faults lie furthest apart (in
-    units of their combined half-widths); otherwise the first readings diag advised."""
+    units of their combined half-widths, each widened by two meter standard deviations);
+    otherwise the first readings diag advised."""
+    from diag.core import meter
+
+    m = engine.case.meter
     units = {(o.point, o.kind): o.unit for o in engine.case.observables}
     if named != truth and named in _group_of(engine):
         bt = {(b.observable.point, b.observable.kind): b for b in engine.bands(truth)}
@@ -243,7 +247,8 @@ def telling_readings(engine: Engine, truth: str, named: str,
             b = bn.get(key)
             if b is None or not np.isfinite([a.mid, b.mid]).all():
                 continue
-            width = (a.high - a.low) / 2 + (b.high - b.low) / 2
+            sig = meter.sigma(np.array([a.mid, b.mid]), key[1], m, units[key])
+            width = (a.high - a.low) / 2 + (b.high - b.low) / 2 + 2.0 * float(np.sum(sig))
             sep = abs(a.mid - b.mid) / max(width, 1e-12)
             scored.append((sep, key, a, b))
         scored.sort(key=lambda t: -t[0])

@@ -18,12 +18,19 @@ Readings are matched to observables by (point, kind).
 
 Also: eng.case, eng.rules, eng.check_value(point, kind, text) -> float (the readings
 file's validation for one typed value; DiagError with the reason), eng.splitters() (for
-each group of several hypotheses, the kind of reading that would split it).
+each group of several hypotheses, the kind of reading that would split it),
+eng.groups_for(order) (group numbers formed around the leading suspects, as diagnose
+numbers them).
+
+Groups: Ensemble.group numbers hypotheses greedily by prior (what `diag faults` lists);
+a Diagnosis forms its groups greedily by posterior, so the leading group is built around
+the leading suspect (same pairwise rule, infer.apart).
 """
 
 from __future__ import annotations
 
 import math
+import threading
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -157,7 +164,7 @@ def _r(x):
 
 
 # Bumped when the cached arrays change meaning (the cache key also holds both hashes).
-CACHE_VERSION = "e1"
+CACHE_VERSION = "e3"
 # Reading kinds' model-error keys in faults.yaml `inference.model_error`.
 _MODEL_ERR = {("dc", "V"): ("dc_v", "dc_rel"), ("ac", "V"): ("ac_v", "ac_rel"),
               ("dc", "A"): ("a_abs", "a_rel")}
@@ -183,6 +190,7 @@ class Engine:
         self.observables = case.observables
         self._obs_index = {(o.point, o.kind): j for j, o in enumerate(self.observables)}
         self._ens: Ensemble | None = None
+        self._lock = threading.RLock()  # one build at a time (interface worker threads)
         self._circuit = None
         self._extra: dict[str, tuple[Any, np.ndarray]] = {}  # on-demand hypotheses
         self._limits = None
@@ -263,6 +271,10 @@ class Engine:
     def build(self, progress: Callable[[float], None] | None = None,
               cancelled: Callable[[], bool] | None = None) -> Ensemble:
         """Build (or load from the disk cache) the ensemble of every hypothesis."""
+        with self._lock:
+            return self._build(progress, cancelled)
+
+    def _build(self, progress, cancelled) -> Ensemble:
         from diag import __version__
         from diag.core import ensemble, infer
 
@@ -275,12 +287,18 @@ class Engine:
         ids = np.array([s.id for s in self.specs])
         data = ensemble.load_cache(path)
         from_cache = data is not None and np.array_equal(data.get("ids"), ids)
+        a, b = self._noise()
+        noise = infer.Noise(a, b)
+        default_hp = float(self.inf["healthy_prior"])
+        pri = self._priors(default_hp, self.specs)
         if not from_cache:
             samples, hidden, names = self._solve(self.specs, self.K, progress, cancelled)
             q = float(self.inf["group_quantile"])
             band = np.moveaxis(infer.nan_quantile(hidden, [q, 1 - q], axis=1), 0, 1)
+            ap = infer.apart(noise.u(samples), q, float(self.inf["group_sigmas"]),
+                             float(self.inf["group_share"]))
             data = {"ids": ids, "samples": samples, "hidden_band": band,
-                    "hidden_names": np.array(names),
+                    "hidden_names": np.array(names), "apart": ap,
                     "failed": np.sum(~np.all(np.isfinite(samples), axis=2), axis=1)}
             try:
                 ensemble.save_cache(path, data)
@@ -288,14 +306,9 @@ class Engine:
                 pass  # a read-only cache folder only costs speed
         elif progress:
             progress(1.0)
-        a, b = self._noise()
-        noise = infer.Noise(a, b)
         U = noise.u(data["samples"])
-        default_hp = float(self.inf["healthy_prior"])
-        pri = self._priors(default_hp, self.specs)
-        order = np.argsort(-pri, kind="stable")
-        grp = infer.groups(U, order, float(self.inf["group_quantile"]),
-                           float(self.inf["group_sigmas"]), float(self.inf["group_share"]))
+        self._apart = data["apart"]
+        grp = infer.groups_from(self._apart, np.argsort(-pri, kind="stable"))
         # at least 256 reference readings so p-values resolve well below fit_alpha
         R = max(256, self.K * int(self.inf["fit_draws"]))
         hyps = tuple(Hypothesis(s.id, float(p), s.text, s.confirm, s.parts, s.origin)
@@ -334,11 +347,12 @@ class Engine:
 
     def _samples_of(self, specs) -> np.ndarray:
         """Samples (n, K, M) of specs outside the built set, solved once and kept."""
-        todo = [s for s in specs if s.id not in self._extra]
-        if todo:
-            x, _, _ = self._solve(todo, self.K)
-            for s, xs in zip(todo, x, strict=True):
-                self._extra[s.id] = (s, xs)
+        with self._lock:
+            todo = [s for s in specs if s.id not in self._extra]
+            if todo:
+                x, _, _ = self._solve(todo, self.K)
+                for s, xs in zip(todo, x, strict=True):
+                    self._extra[s.id] = (s, xs)
         return np.stack([self._extra[s.id][1] for s in specs]) if specs else \
             np.empty((0, self.K, len(self.observables)))
 
@@ -432,9 +446,9 @@ class Engine:
     def diagnose(self, readings: Sequence[Reading],
                  healthy_prior: float | None = None) -> Diagnosis:
         """Rank every hypothesis for these readings, test the fit, advise the next."""
-        from diag.core import faults, infer, notes
+        from diag.core import notes
 
-        ens = self.ensemble
+        self.build()
         hp = float(self.inf["healthy_prior"]) if healthy_prior is None else float(healthy_prior)
         if not 0.0 <= hp < 1.0:
             raise DiagError(f"healthy prior {hp} must lie in [0, 1)",
@@ -448,13 +462,8 @@ class Engine:
         pval = self._fit(U, sc, idx, u_read)
         alpha = float(self.inf["fit_alpha"])
         pairs_tried = False
-        group = ens.group
         if pval < alpha and len(idx):
-            order = np.argsort(-sc.posterior)
-            leaders = [specs[h] for h in order if specs[h].origin == "single"]
-            leaders = leaders[:int(self.inf["pair_top"])]
-            pairs = [p for p in faults.pair_specs(self.rules, leaders, self._pair_scale)
-                     if p.id not in {s.id for s in specs}]
+            pairs = self._pair_candidates(U, specs, sc, idx, u_read)
             if pairs:
                 pairs_tried = True
                 Up = noise.u(self._samples_of(pairs))
@@ -462,13 +471,10 @@ class Engine:
                 specs = specs + pairs
                 sc, pri = self._score(U, specs, idx, u_read, hp)
                 pval = self._fit(U, sc, idx, u_read)
-                order_p = np.argsort(-pri, kind="stable")
-                group = infer.groups(U, order_p, float(self.inf["group_quantile"]),
-                                     float(self.inf["group_sigmas"]),
-                                     float(self.inf["group_share"]))
         fits = pval >= alpha
         post = sc.posterior
         order = np.argsort(-post, kind="stable")
+        group = self.groups_for(order, U)
         renum: dict[int, int] = {}
         suspects = []
         for h in order:
@@ -480,10 +486,73 @@ class Engine:
             Reading(self.observables[j].point, self.observables[j].kind, v)
             for j, v in zip(idx, vals, strict=True)], acc))
         fit_text = self._fit_text(fits, pval, len(idx), specs[order[0]], pairs_tried)
+        odd = self._odd_readings(U, specs, order[0], idx, u_read)
+        if odd:
+            fit_text += (f" {', '.join(odd)} {'does' if len(odd) == 1 else 'do'} not fit the "
+                         f"leading suspect: a slip of the probe or range, or a fault outside "
+                         f"the model; take {'it' if len(odd) == 1 else 'them'} again.")
         confirm = {specs[h].id: specs[h].confirm for h in order[:5]}
         return Diagnosis(len(idx), bool(fits), tuple(suspects), tuple(nxt), nts, fit_text,
                          tuple(rejected), {"p_value": pval, "pairs_tried": pairs_tried,
-                                           "confirm": confirm})
+                                           "confirm": confirm, "odd_readings": odd})
+
+    def groups_for(self, order: np.ndarray, U: np.ndarray | None = None) -> np.ndarray:
+        """Group number per hypothesis (H,), formed around the leading suspects: greedy
+        in `order` (hypothesis indices by falling posterior), numbered in that order.
+        `U` is needed only for a hypothesis set beyond the built one (pairs)."""
+        from diag.core import infer
+
+        ap = self._apart
+        if U is not None and U.shape[0] != ap.shape[0]:
+            ap = infer.apart(U, float(self.inf["group_quantile"]),
+                             float(self.inf["group_sigmas"]), float(self.inf["group_share"]))
+        return infer.groups_from(ap, order)
+
+    def _odd_readings(self, U, specs, best: int, idx, u_read) -> list[str]:
+        """Taken readings the leading hypothesis explains only as blunders ("TP5 dc")."""
+        from diag.core import infer
+
+        if len(idx) == 0:
+            return []
+        eps = float(self.inf["blunder"])
+        lo, W = self._blunder
+        sp = self._spread[best:best + 1] if best < self._spread.shape[0] else None
+        per = infer.per_reading(U[best:best + 1], idx, u_read, eps, W, sp)[0]
+        floor = np.log(eps / W[idx]) + 1.0
+        return [f"{self.observables[j].point} {self.observables[j].kind}"
+                for j, v, f in zip(idx, per, floor, strict=True) if v < f]
+
+    def _pair_candidates(self, U, specs, sc, idx, u_read) -> list:
+        """Unrelated pairs worth solving when no single fault fits: pairs among the
+        `pair_top` leading single faults, and each of the three leading ones paired with
+        the single faults that best explain the readings it misses."""
+        from diag.core import faults, infer
+
+        top = int(self.inf["pair_top"])
+        order = [h for h in np.argsort(-sc.posterior) if specs[h].origin == "single"]
+        cands = faults.pair_specs(self.rules, [specs[h] for h in order[:top]],
+                                  self._pair_scale)
+        eps = float(self.inf["blunder"])
+        lo, W = self._blunder
+        per = infer.per_reading(U, idx, u_read, eps, W, self._spread)  # (H, d)
+        floor = np.log(eps / W[idx]) + 1.0  # within e of the blunder floor: missed
+        singles = np.array([s.origin == "single" for s in specs])
+        for a in order[:3]:
+            missed = per[a] < floor
+            if not missed.any():
+                continue
+            fit_missed = np.where(singles, per[:, missed].sum(axis=1), -np.inf)
+            fit_missed[a] = -np.inf
+            best = [h for h in np.argsort(-fit_missed)[:top] if np.isfinite(fit_missed[h])]
+            for h in best:
+                cands += faults.pair_specs(self.rules, [specs[a], specs[h]], self._pair_scale)
+        have = {s.id for s in specs}
+        out, seen = [], set()
+        for p in cands:
+            if p.id not in have and p.id not in seen:
+                seen.add(p.id)
+                out.append(p)
+        return out
 
     def _shown(self, v: float, o: Observable) -> str:
         """A predicted reading as the meter would round it (no error drawn)."""
@@ -501,6 +570,10 @@ class Engine:
     def _fit_text(self, fits, pval, n, best, pairs_tried) -> str:
         if n == 0:
             return "No readings yet: the ranking is the prior (how often each part fails)."
+        if fits and pairs_tried:
+            return ("No single fault explains the readings; with pairs of faults among the "
+                    f"leading suspects tried too, the leading ones do (goodness of fit p = "
+                    f"{pval:.2f}). Check both parts of a paired suspect.")
         if fits:
             return (f"The leading suspects explain the readings (goodness of fit p = "
                     f"{pval:.2f}).")
@@ -521,7 +594,7 @@ class Engine:
                            dtype=int)
         if len(untaken) == 0:
             return []
-        bits = advise.gains(U, w, untaken)
+        bits = advise.gains(U, w, untaken, labels=group)
         out = []
         samples = [self.ensemble.samples]
         if U.shape[0] > self.ensemble.samples.shape[0]:

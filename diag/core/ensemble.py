@@ -6,9 +6,12 @@ compiled Circuit (its `spreads`). Fault draws are added below by the faults engi
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
 
-from diag.core.netlist import Circuit
+if TYPE_CHECKING:  # annotation only: a cached ensemble loads without the solver stack
+    from diag.core.netlist import Circuit
 
 
 def draw_healthy(circuit: Circuit, K: int, rng: np.random.Generator) -> dict[str, np.ndarray]:

@@ -153,6 +153,20 @@ def score(U: np.ndarray, taken: np.ndarray, u_read: np.ndarray, log_prior: np.nd
     return Scored(ll, llk, post)
 
 
+def per_reading(U: np.ndarray, taken: np.ndarray, u_read: np.ndarray, eps: float,
+                W: np.ndarray, spread_: np.ndarray | None = None) -> np.ndarray:
+    """Log-likelihood (H, d) of each taken reading alone under each hypothesis, with the
+    kernel of `score`; a reading near log(eps / W_j) is one the hypothesis misses."""
+    s = np.sqrt(1.0 + bandwidth(U, len(taken), spread_)[:, taken] ** 2)
+    with np.errstate(invalid="ignore", over="ignore", under="ignore", divide="ignore"):
+        z = (u_read[None, None, :] - U[:, :, taken]) / s[:, None, :]
+        peak = (1.0 - eps) / (s * math.sqrt(2.0 * math.pi))
+        mix = np.log(peak[:, None, :] * np.exp(-0.5 * z * z) + eps / W[taken])
+    mix = np.where(np.isnan(mix), -np.inf, mix)
+    n = np.sum(np.all(np.isfinite(U), axis=2), axis=1)
+    return _logmeanexp(np.moveaxis(mix, 2, 1), n[:, None])
+
+
 def fit_pvalue(U_h: np.ndarray, taken: np.ndarray, u_read: np.ndarray, eps: float,
                W_lo: np.ndarray, W: np.ndarray, ref_k: np.ndarray, ref_z: np.ndarray,
                ref_b: np.ndarray, ref_w: np.ndarray, spread_h: np.ndarray | None = None
@@ -220,22 +234,26 @@ def apart(U: np.ndarray, q: float, sigmas: float, share: float) -> np.ndarray:
     return out
 
 
+def groups_from(ap: np.ndarray, order: np.ndarray) -> np.ndarray:
+    """Group number (H,) from an `apart` matrix: greedy in `order`, a hypothesis joins
+    the first group none of whose members it can be told from; numbers follow `order`."""
+    H = ap.shape[0]
+    g = np.full(H, -1, dtype=int)
+    blocked = np.zeros((0, H), dtype=bool)  # per group: apart from some member
+    for h in order:
+        free = np.nonzero(~blocked[:, h])[0]
+        if len(free):
+            gi = int(free[0])
+            blocked[gi] |= ap[h]
+        else:
+            gi = blocked.shape[0]
+            blocked = np.vstack([blocked, ap[h][None]])
+        g[h] = gi
+    return g
+
+
 def groups(U: np.ndarray, order: np.ndarray, q: float, sigmas: float,
            share: float = 0.5) -> np.ndarray:
     """Group number (H,) per hypothesis: hypotheses no offered reading can tell apart
-    (see `apart`) share a number. Greedy in `order` (e.g. by prior): a hypothesis joins
-    the first group none of whose members it can be told from."""
-    ap = apart(U, q, sigmas, share)
-    H = U.shape[0]
-    g = np.full(H, -1, dtype=int)
-    members: list[list[int]] = []
-    for h in order:
-        for gi, mem in enumerate(members):
-            if not ap[h, mem].any():
-                mem.append(int(h))
-                g[h] = gi
-                break
-        else:
-            members.append([int(h)])
-            g[h] = len(members) - 1
-    return g
+    (see `apart`) share a number; greedy in `order` (e.g. by prior or posterior)."""
+    return groups_from(apart(U, q, sigmas, share), order)

@@ -7,9 +7,10 @@ a missing key means the nominal value. Circuits are cached per (case.hash, rules
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from types import MappingProxyType
-from typing import Any, Mapping
+from typing import Any
 
 from diag.core.case import TERMINALS, Case, Part
 from diag.core.errors import DiagError
@@ -111,7 +112,7 @@ def _compile(case: Case, models: Mapping[str, Any], rules_hash: str) -> Circuit:
                             line=part.line or None, where=part.ref,
                             hint="check the part's value fields") from None
         t: dict[str, int] = {}
-        for name, node in zip(TERMINALS[part.kind], part.nodes):
+        for name, node in zip(TERMINALS[part.kind], part.nodes, strict=True):
             if node == case.ground:
                 t[name] = -1
             elif node in node_index:

@@ -27,6 +27,7 @@ import numpy as np
 
 from diag.core.case import Case
 from diag.core.engine import Diagnosis, Engine, Reading
+from diag.core.errors import DiagError
 
 STATUSES = ("fault", "healthy", "no-fit")
 
@@ -107,6 +108,9 @@ def rank_batch(engine: Engine, units: Sequence[Sequence[Reading]],
 # The kernel product is taken to a logarithm every this many readings, so that it stays
 # far inside the float64 range (each factor lies between eps/W and 0.4).
 _LOG_EVERY = 16
+# Working-array size of the kernel, in float64 elements (about 0.5 MB: inside a typical
+# per-core L2 cache, where the passes run several times faster than from main memory).
+_TILE_ELEMENTS = 1 << 16
 
 
 def kernel_loglik(ut: np.ndarray, Ut: np.ndarray, logpeak: np.ndarray, c: np.ndarray
@@ -116,26 +120,53 @@ def kernel_loglik(ut: np.ndarray, Ut: np.ndarray, logpeak: np.ndarray, c: np.nda
     This is infer's per-unit kernel mixture, log of (1-eps) N(u; U, s^2) + eps/W, with
     the readings and units pre-divided by s*sqrt(2) (ut (n, H, d), Ut (d, H, K)),
     logpeak = log((1-eps) / (s sqrt(2 pi))) (H, d) and c = eps / W (d,). NaN units give
-    -inf. One pass over (n, H, K) per reading, one logarithm per _LOG_EVERY readings.
+    -inf. Units are taken a few at a time so that the working arrays stay in the CPU
+    cache; one pass over them per reading, one logarithm per _LOG_EVERY readings.
     """
     n, H, d = ut.shape
     K = Ut.shape[2]
     out = np.zeros((n, H, K))
-    prod = np.ones((n, H, K))
-    w = np.empty((n, H, K))
+    tile = max(1, _TILE_ELEMENTS // (H * K))
+    prod = np.empty((tile, H, K))
+    w = np.empty((tile, H, K))
     with np.errstate(invalid="ignore", over="ignore", under="ignore", divide="ignore"):
-        for j in range(d):
-            np.subtract(ut[:, :, j, None], Ut[j][None], out=w)
-            np.square(w, out=w)
-            np.subtract(logpeak[None, :, j, None], w, out=w)
-            np.exp(w, out=w)
-            w += c[j]
-            prod *= w
-            if (j + 1) % _LOG_EVERY == 0 or j == d - 1:
-                out += np.log(prod)
-                prod.fill(1.0)
+        for a in range(0, n, tile):
+            m = min(tile, n - a)
+            p_, w_, o_ = prod[:m], w[:m], out[a:a + m]
+            p_.fill(1.0)
+            for j in range(d):
+                np.subtract(ut[a:a + m, :, j, None], Ut[j][None], out=w_)
+                np.square(w_, out=w_)
+                np.subtract(logpeak[None, :, j, None], w_, out=w_)
+                np.exp(w_, out=w_)
+                w_ += c[j]
+                p_ *= w_
+                if (j + 1) % _LOG_EVERY == 0 or j == d - 1:
+                    o_ += np.log(p_)
+                    p_.fill(1.0)
     out[np.isnan(out)] = -np.inf
     return out
+
+
+def groups_batch(ap: np.ndarray, orders: np.ndarray) -> np.ndarray:
+    """infer.groups_from for many orders at once: group number (n, H) per unit's order
+    (n, H) of hypothesis indices, from the (H, H) `apart` matrix. The same greedy rule:
+    down the order, a hypothesis joins the first group none of whose members it can be
+    told from, else starts a new one; numbers follow the order."""
+    n, H = orders.shape
+    g = np.full((n, H), -1, dtype=int)
+    blocked = np.zeros((n, H + 1, H), dtype=bool)  # per unit and group: apart from some
+    count = np.zeros(n, dtype=int)
+    rows = np.arange(n)
+    cols = np.arange(H + 1)
+    for t in range(H):
+        h = orders[:, t]
+        free = ~blocked[rows, :, h] & (cols[None, :] <= count[:, None])  # (n, H+1)
+        gi = np.argmax(free, axis=1)  # first free group; the next new one is always free
+        count = np.maximum(count, gi + 1)
+        g[rows, h] = gi
+        blocked[rows, gi] |= ap[h]
+    return g
 
 
 class BatchScorer:
@@ -159,8 +190,6 @@ class BatchScorer:
         inf = engine.inf
         hp = float(inf["healthy_prior"]) if healthy_prior is None else float(healthy_prior)
         if not 0.0 <= hp < 1.0:
-            from diag.core.errors import DiagError
-
             raise DiagError(f"healthy prior {hp} must lie in [0, 1)",
                             hint="e.g. --healthy-prior 0.02")
         self.hp = hp
@@ -177,9 +206,10 @@ class BatchScorer:
         self.valid = np.all(np.isfinite(self.U), axis=2)
         self.n = self.valid.sum(axis=1)
         self.ref = ens.ref
-        self.group = ens.group
         self._refs: dict[tuple[int, tuple[int, ...]], tuple] = {}
         self._acc = engine._accuracy_fn()
+        self._ids = np.array([sp.id for sp in self.specs], dtype=object)
+        self._texts = np.array([sp.text for sp in self.specs], dtype=object)
 
     # -- one group of units reading the same observables --------------------------------
 
@@ -241,53 +271,82 @@ class BatchScorer:
         self._refs[key] = out
         return out
 
-    def _pvalue(self, h: int, g: dict, ll_h: float, u_read: np.ndarray) -> float:
-        got = self._reference(h, g)
-        if got is None:
-            return 0.0
-        ref, R, s, Uv = got
-        if np.array_equal(s, g["s"][h]):
-            obs = ll_h
-        else:  # units with a gap at some readings only: the fit's own kernel widths
-            obs = float(self.infer._logmeanexp(self.infer._log_kernel(
-                Uv, u_read, s, self.eps, self.W[g["idx"]]), np.array(Uv.shape[0])))
-        count = np.searchsorted(ref, obs, side="right")
-        return float((count + 1) / (R + 1))
+    def _pvalues(self, g: dict, ll: np.ndarray, post: np.ndarray, u_read: np.ndarray
+                 ) -> np.ndarray:
+        """Goodness of fit (n,) of a block: for each unit the largest predictive p-value
+        among its `fit_test_top` leading hypotheses (infer.fit_pvalue's statistic)."""
+        lead = np.argsort(-post, axis=1)[:, :self.top]
+        pv = np.zeros(lead.shape)
+        for h in np.unique(lead):
+            rows, cols = np.nonzero(lead == h)
+            got = self._reference(int(h), g)
+            if got is None:
+                continue  # fewer than 3 units solved: p = 0, as fit_pvalue says
+            ref, R, s, Uv = got
+            if np.array_equal(s, g["s"][h]):
+                obs = ll[rows, h]
+            else:  # units with a gap at some readings only: the fit's own kernel widths
+                obs = np.array([float(self.infer._logmeanexp(self.infer._log_kernel(
+                    Uv, u_read[r], s, self.eps, self.W[g["idx"]]), np.array(Uv.shape[0])))
+                    for r in rows])
+            pv[rows, cols] = (np.searchsorted(ref, obs, side="right") + 1) / (R + 1)
+        return pv.max(axis=1)
 
-    def _finish(self, rs, idx, vals, rejected, llk, ll, post, u_read, g) -> Diagnosis:
+    def _odd(self, g: dict, u_read: np.ndarray, best: np.ndarray) -> list[list[str]]:
+        """Engine._odd_readings for a block: the taken readings (n lists of "TP5 dc") that
+        each unit's leading hypothesis `best` (n,) explains only as blunders (its
+        per-reading log-likelihood, infer.per_reading, within e of log(eps / W))."""
+        idx, eps = g["idx"], self.eps
+        s = g["s"][best]                                              # (n, d)
+        Ub = self.U[best][:, :, idx]                                  # (n, K, d)
+        with np.errstate(invalid="ignore", over="ignore", under="ignore", divide="ignore"):
+            z = (u_read[:, None, :] - Ub) / s[:, None, :]
+            peak = (1.0 - eps) / (s * math.sqrt(2.0 * math.pi))
+            mix = np.log(peak[:, None, :] * np.exp(-0.5 * z * z) + eps / self.W[idx])
+        mix = np.where(np.isnan(mix), -np.inf, mix)
+        per = self.infer._logmeanexp(np.moveaxis(mix, 2, 1), self.n[best][:, None])
+        floor = np.log(eps / self.W[idx]) + 1.0
+        names = [f"{o.point} {o.kind}" for o in (self.engine.observables[j] for j in idx)]
+        return [[names[k] for k in np.nonzero(row < floor)[0]] for row in per]
+
+    def _finish(self, rs, idx, vals, rejected, llk, ll, post, pval, order, group, odd
+                ) -> Diagnosis:
         from diag.core import notes
         from diag.core.engine import Suspect
 
         eng = self.engine
         d = len(idx)
-        if d:
-            pval = max(self._pvalue(int(h), g, float(ll[h]), u_read)
-                       for h in np.argsort(-post)[:self.top])
-        else:
-            pval = 1.0
         if pval < self.alpha and d:
             return eng.diagnose(rs, healthy_prior=self.hp)
-        order = np.argsort(-post, kind="stable")
-        renum: dict[int, int] = {}
         specs = self.specs
-        suspects = []
-        for h in order:
-            gr = renum.setdefault(int(self.group[h]), len(renum))
-            suspects.append(Suspect(specs[h].id, float(post[h]), gr, specs[h].text))
+        # group numbers in order of first appearance down the ranking (as diagnose does)
+        gs = group[order]
+        uniq, first = np.unique(gs, return_index=True)
+        renum = np.empty(int(uniq.max()) + 1, dtype=int)
+        renum[uniq[np.argsort(first)]] = np.arange(len(uniq))
+        suspects = tuple(map(Suspect, self._ids[order].tolist(), post[order].tolist(),
+                             renum[gs].tolist(), self._texts[order].tolist()))
         if d < len(eng.observables):
             nxt = eng._advise(self.U, specs, self.infer.Scored(ll, llk, post), idx, order,
-                              self.group)
+                              group)
         else:
             nxt = []
         obs = eng.observables
-        nts = tuple(notes.bench_notes(eng.case, eng.rules, [
-            Reading(obs[j].point, obs[j].kind, v) for j, v in zip(idx, vals, strict=True)],
-            self._acc))
+        if len(rs) == d and not rejected:  # each reading used once, as given
+            used = rs
+        else:
+            used = [Reading(obs[j].point, obs[j].kind, v)
+                    for j, v in zip(idx, vals, strict=True)]
+        nts = tuple(notes.bench_notes(eng.case, eng.rules, used, self._acc))
         fit_text = eng._fit_text(True, pval, d, specs[order[0]], False)
+        if odd:  # the sentence Engine.diagnose adds (kept word for word; tests compare)
+            fit_text += (f" {', '.join(odd)} {'does' if len(odd) == 1 else 'do'} not fit the "
+                         f"leading suspect: a slip of the probe or range, or a fault outside "
+                         f"the model; take {'it' if len(odd) == 1 else 'them'} again.")
         confirm = {specs[h].id: specs[h].confirm for h in order[:5]}
-        return Diagnosis(d, True, tuple(suspects), tuple(nxt), nts, fit_text,
+        return Diagnosis(d, True, suspects, tuple(nxt), nts, fit_text,
                          tuple(rejected), {"p_value": pval, "pairs_tried": False,
-                                           "confirm": confirm})
+                                           "confirm": confirm, "odd_readings": odd})
 
     def _block(self, items: list[int], matched, units, g: dict, out: list) -> None:
         if not len(g["idx"]):
@@ -297,9 +356,14 @@ class BatchScorer:
         vals = np.stack([matched[i][1] for i in items])
         u_read = self.engine._noise_obj.u(vals, g["idx"])
         llk, ll, post = self._score(g, u_read)
+        pval = self._pvalues(g, ll, post, u_read).tolist()
+        orders = np.argsort(-post, axis=1, kind="stable")
+        groups = groups_batch(self.engine._apart, orders)  # around each unit's leaders
+        odd = self._odd(g, u_read, orders[:, 0])
         for r, i in enumerate(items):
             idx, v, rej = matched[i]
-            out[i] = self._finish(units[i], idx, v, rej, llk[r], ll[r], post[r], u_read[r], g)
+            out[i] = self._finish(units[i], idx, v, rej, llk[r], ll[r], post[r], pval[r],
+                                  orders[r], groups[r], odd[r])
 
     def run(self, units: Sequence[Sequence[Reading]], progress=None, cancelled=None,
             chunk: int = 64, threads: int | None = None) -> list[Diagnosis]:
@@ -317,12 +381,20 @@ class BatchScorer:
         out: list = [None] * len(units)
         if threads is None:
             threads = max(1, min(4, os.cpu_count() or 1))
+        total = max(len(units), 1)
         done = 0
-        with ThreadPoolExecutor(max_workers=threads) as pool:
-            futures = []
+        if threads <= 1:  # in the calling thread
             for items, g in blocks:
-                futures.append((len(items), pool.submit(self._block, items, matched, units,
-                                                        g, out)))
+                if cancelled is not None and cancelled():
+                    raise InterruptedError("triage cancelled")
+                self._block(items, matched, units, g, out)
+                done += len(items)
+                if progress is not None:
+                    progress(done / total)
+            return out
+        with ThreadPoolExecutor(max_workers=threads) as pool:
+            futures = [(len(items), pool.submit(self._block, items, matched, units, g, out))
+                       for items, g in blocks]
             for n, f in futures:
                 if cancelled is not None and cancelled():
                     for _, rest in futures:
@@ -331,7 +403,7 @@ class BatchScorer:
                 f.result()
                 done += n
                 if progress is not None:
-                    progress(done / max(len(units), 1))
+                    progress(done / total)
         return out
 
 

@@ -27,6 +27,7 @@ class PointsTable(DataTable):
         super().__init__(cursor_type="row", zebra_stripes=True, **kwargs)
         self.case = case
         self.observables: tuple[Observable, ...] = case.observables
+        self._shown: dict[str, tuple] = {}
 
     def on_mount(self) -> None:
         for label, key in self.COLUMNS:
@@ -46,11 +47,15 @@ class PointsTable(DataTable):
 
     def show(self, bands: dict[tuple[str, str], Band] | None,
              readings: dict[tuple[str, str], Reading]) -> None:
-        """Refresh the band, reading and offset cells."""
+        """Refresh the band, reading and offset cells of the rows that changed."""
         for o in self.observables:
             key = row_key(o.point, o.kind)
             band = bands.get((o.point, o.kind)) if bands else None
             r = readings.get((o.point, o.kind))
+            state = (band, r.value if r else None)
+            if self._shown.get(key) == state:
+                continue
+            self._shown[key] = state
             unit = o.unit
             healthy = (f"{fmt.value(band.low, unit)} … {fmt.value(band.high, unit)}"
                        if band else "…")

@@ -13,8 +13,9 @@ guess: terminal currents (leaving each node into the device) I ~= Ieq + J @ V.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import Any, Mapping
+from typing import Any
 
 import numpy as np
 from scipy import constants
@@ -22,7 +23,7 @@ from scipy import constants
 T_KELVIN = 300.15                                   # 27 °C, the SPICE default temperature
 VT = constants.k * T_KELVIN / constants.e           # thermal voltage, volts (about 25.86 mV)
 GMIN = 1e-12                                        # siemens across every junction (SPICE gmin)
-EXP_LIMIT = 100.0                                   # exp() argument above which it continues linearly
+EXP_LIMIT = 100.0                                   # exp() argument above which it is linear
 
 
 @dataclass(frozen=True)
@@ -53,25 +54,39 @@ def safe_exp(x):
     """exp(x) continued linearly above EXP_LIMIT (keeps Newton steps finite); returns
     (value, derivative)."""
     x = np.asarray(x, dtype=float)
+    if not (x > EXP_LIMIT).any():
+        e = np.exp(x)
+        return e, e
     xc = np.minimum(x, EXP_LIMIT)
     e = np.exp(xc)
     return e * (1.0 + (x - xc)), e
 
 
 def pnjlim(vnew, vold, vt, vcrit):
-    """SPICE junction-voltage limiting (pnjlim) of a Newton step; returns (v, limited)."""
+    """SPICE junction-voltage limiting (pnjlim) of a Newton step; returns (v, limited).
+    A rise above vcrit by more than 2 vt is compressed logarithmically; a fall below
+    -1 V is held to -vold - 1 (vold > 0) or 2 vold - 1 (ngspice's negative limit)."""
     vnew = np.asarray(vnew, dtype=float)
     vold = np.broadcast_to(np.asarray(vold, dtype=float), vnew.shape)
     big = (vnew > vcrit) & (np.abs(vnew - vold) > 2.0 * vt)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        arg = 1.0 + (vnew - vold) / vt
-        up = np.where(arg > 0, vold + vt * np.log(np.where(arg > 0, arg, 1.0)), vcrit)
-        fresh = vt * np.log(np.where(vnew > 0, vnew / vt, 1.0))
-    v_big = np.where(vold > 0, up, fresh)
-    neg_floor = np.where(vold > 0, -vold - 1.0, 2.0 * vold - 1.0)
-    neg = ~big & (vnew < 0) & (vnew < neg_floor)
-    out = np.where(big, v_big, np.where(neg, neg_floor, vnew))
-    return out, big | neg
+    low = vnew < -1.0
+    any_big, any_low = big.any(), low.any()
+    if not (any_big or any_low):
+        return vnew, big
+    out = vnew
+    if any_low:
+        floor = np.where(vold > 0, -vold - 1.0, 2.0 * vold - 1.0)
+        neg = vnew < floor
+        if neg.any():
+            out = np.where(neg, floor, out)
+            big = big | neg
+    if any_big:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            arg = 1.0 + (vnew - vold) / vt
+            up = np.where(arg > 0, vold + vt * np.log(np.where(arg > 0, arg, 1.0)), vcrit)
+            fresh = vt * np.log(np.where(vnew > 0, vnew / vt, 1.0))
+        out = np.where(big & (vnew > vcrit), np.where(vold > 0, up, fresh), out)
+    return out, big
 
 
 class PartKind:

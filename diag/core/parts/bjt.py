@@ -150,7 +150,8 @@ class BJTDevice:
         elif limit:
             vbe, l1 = pnjlim(vbe, state[0], p["_vtf"], p["_vcf"])
             vbc, l2 = pnjlim(vbc, state[1], p["_vtr"], p["_vcr"])
-            limited = l1 | l2
+            # an open junction carries nothing: its limiting does not hold convergence
+            limited = (l1 & (p["k_be"] > 0)) | (l2 & (p["k_bc"] > 0))
         ic, ib, (gc_be, gc_bc), (gb_be, gb_bc) = self.currents(p, vbe, vbc)
         s = self.pol
         # terminal currents into the device (leaving the node): c, b, e
@@ -159,7 +160,7 @@ class BJTDevice:
         # d/dV with vbe = s(Vb - Ve), vbc = s(Vb - Vc): dI_term/dV = s*s*(...) = (...)
         jc = (-gc_bc, gc_be + gc_bc, -gc_be)
         jb = (-gb_bc, gb_be + gb_bc, -gb_be)
-        je = tuple(-(a + b) for a, b in zip(jc, jb))
+        je = tuple(-(a + b) for a, b in zip(jc, jb, strict=True))
         J = (jc, jb, je)
         # consistent terminal voltages for the (limited) junction voltages, emitter at 0
         vb_ = s * vbe

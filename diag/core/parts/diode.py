@@ -43,8 +43,12 @@ def breakdown_knee(bv, ibv, is_, nvt):
     bvf = np.where(finite, bv, 0.0)
     cbv = np.maximum(ibv, is_ * bvf / VT)
     xbv = bvf - nvt * np.log1p(cbv / is_)
-    for _ in range(25):
-        xbv = bvf - nvt * np.log(np.maximum(cbv / is_ + 1.0 - xbv / VT, 1e-300))
+    for _ in range(25):                      # ngspice iterates up to 25 times
+        new = bvf - nvt * np.log(np.maximum(cbv / is_ + 1.0 - xbv / VT, 1e-300))
+        done = np.all(np.abs(new - xbv) <= 1e-12 * np.maximum(np.abs(bvf), 1.0))
+        xbv = new
+        if done:
+            break
     small = ibv < is_ * bvf / VT
     xbv = np.where(small, bvf, xbv)
     return np.where(finite, xbv, np.inf)
@@ -130,7 +134,7 @@ class DiodeDevice:
                 vr, lr = pnjlim(-(vd + xbv), -(vold + xbv), vte, p["_vcrit"])
             vf, lf = pnjlim(vd, vold, vte, p["_vcrit"])
             vd = np.where(brk, -(vr + xbv), vf)
-            limited = np.where(brk, lr, lf)
+            limited = np.where(brk, lr, lf) & (p["k"] > 0)   # an open junction carries nothing
         cd, gd = diode_iv(vd, p["is"], vte, xbv)
         k = p["k"]
         cd = k * (cd + GMIN * vd)
