@@ -85,7 +85,7 @@ async def reading_seconds(case: Path, runs: int):
     t_start = time.perf_counter()
     app = DiagApp(case_path=str(case))
     ui, core = [], []
-    async with app.run_test(size=(120, 40)) as pilot:
+    async with app.run_test(size=(120, 40)):
         while not (isinstance(app.screen, SessionScreen) and app.screen.diagnosis):
             await asyncio.sleep(0.001)
         ready = time.perf_counter() - t_start
@@ -136,11 +136,11 @@ def main() -> int:
     widths = [max(len(str(r[i])) for r in rows + [head]) for i in range(len(head))]
     print(f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} CPUs "
           "(wall times grow with the load)")
-    line = " | ".join(h.ljust(w) for h, w in zip(head, widths))
+    line = " | ".join(h.ljust(w) for h, w in zip(head, widths, strict=True))
     print(line)
     print("-|-".join("-" * w for w in widths))
     for r in rows:
-        print(" | ".join(str(c).ljust(w) for c, w in zip(r, widths)))
+        print(" | ".join(str(c).ljust(w) for c, w in zip(r, widths, strict=True)))
     if shutil.which("tmux") is None:
         print("(tmux not installed: the open time was not measured)")
     shutil.rmtree(home, ignore_errors=True)

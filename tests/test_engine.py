@@ -224,3 +224,17 @@ def test_a_reading_that_does_not_fit_is_named(eng):
     assert "TP4 dc does not fit" in d.fit_text
     clean = eng.diagnose(eng.simulate("K1:open", np.random.default_rng(5)))
     assert clean.extra["odd_readings"] == []
+
+
+def test_pair_ensembles_are_cached_on_disk(tmp_path, monkeypatch):
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
+    e1 = Engine(load_case(RELAY), K=16)
+    first = e1.bands("K1:open+R1:open")
+    e2 = Engine(load_case(RELAY), K=16)
+    e2.build()
+
+    def no_solve(*a, **k):
+        raise AssertionError("solved again instead of reading the cache")
+
+    monkeypatch.setattr(e2, "_solve", no_solve)
+    assert e2.bands("K1:open+R1:open") == first

@@ -180,3 +180,12 @@ def test_displayed_value_stays_within_the_bound(value, kind, seed):
     # error within the specification, plus half a count of the range it is shown on
     q = float(mt.resolution(shown, H35, "V"))
     assert abs(shown - value) <= bound + q / 2 + 1e-9 * max(1.0, abs(value))
+
+
+def test_ac_display_never_shows_below_zero():
+    # An rms reading is a magnitude (common practice, no source): near 0 V the error
+    # draw must not produce a negative display.
+    rng = np.random.default_rng(3)
+    shown = mt.display(np.zeros(5000), "ac", H35, "V", rng)
+    assert shown.min() >= 0.0
+    assert shown.max() > 0.0  # the meter's count error still shows

@@ -7,7 +7,7 @@ import json
 import os
 
 import pytest
-from tui_support import CASES, diag_home, shared_cache  # noqa: F401
+from tui_support import CASES, fixture_diag_home, fixture_shared_cache  # noqa: F401
 
 from diag.core import paths
 from diag.core.case import load_case

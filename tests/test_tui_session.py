@@ -10,9 +10,9 @@ import numpy as np
 import pytest
 from tui_support import (  # noqa: F401
     CASES,
-    diag_home,
+    fixture_diag_home,
+    fixture_shared_cache,
     settle,
-    shared_cache,
     sync,
     type_reading,
     value_text,
@@ -300,3 +300,42 @@ async def test_keys_palette_and_check_action(diag_home):
         await pilot.press("escape")
         await settle(pilot)
         assert app.screen is screen
+
+
+@sync
+async def test_fast_typing_reaches_the_entry(diag_home):
+    # keys that arrive in one burst (a real terminal delivers them so) all land in the
+    # entry, and the enter that follows them submits it
+    from textual import events
+
+    app = DiagApp(case_path=CASE)
+    async with app.run_test(size=(120, 40)) as pilot:
+        screen = await _open(pilot)
+        o = screen.case.observables[0]
+        for key, char in (("1", "1"), ("full_stop", "."), ("2", "2"), ("5", "5"),
+                          ("enter", "\r")):
+            app._driver.send_message(events.Key(key, char))
+        await settle(pilot)
+        r = screen.session.reading(o.point, o.kind)
+        assert r is not None and r.value == pytest.approx(1.25)  # typed text, parsed
+
+
+@sync
+async def test_cold_build_reports_progress(tmp_path, monkeypatch):
+    # a private, empty cache: the predictions are built in the worker, with progress
+    from diag.core import paths
+    from diag.tui.app import mark_started
+    from diag.tui.messages import EnsembleBuilt, EnsembleProgressed
+
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "cold"))
+    mark_started()
+    assert not any(paths.cache_dir().iterdir())
+    seen = []
+    app = DiagApp(case_path=CASE)
+    async with app.run_test(size=(120, 40), message_hook=seen.append) as pilot:
+        screen = await _open(pilot)
+        fractions = [m.fraction for m in seen if isinstance(m, EnsembleProgressed)]
+        assert fractions and all(0.0 <= f <= 1.0 for f in fractions)
+        assert any(isinstance(m, EnsembleBuilt) for m in seen)
+        assert screen.query_one("#build-row").display is False
+    assert any(paths.cache_dir().iterdir())               # and left in the cache

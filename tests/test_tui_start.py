@@ -7,7 +7,13 @@ from __future__ import annotations
 import shutil
 
 from textual.widgets import DataTable, Input
-from tui_support import CASES, diag_home, settle, shared_cache, sync  # noqa: F401
+from tui_support import (  # noqa: F401
+    CASES,
+    fixture_diag_home,
+    fixture_shared_cache,
+    settle,
+    sync,
+)
 
 from diag.core import paths
 from diag.core.case import load_case
@@ -135,3 +141,42 @@ async def test_app_hosts_drill_and_batch_screens(diag_home):
     async with app.run_test(size=(120, 40)) as pilot:
         await settle(pilot)
         assert isinstance(app.screen, BatchScreen)
+
+
+def test_every_binding_has_an_id_and_a_description():
+    from diag.tui import (
+        cautions_screen,
+        detail_screen,
+        export_dialog,
+        help_screen,
+        node_screen,
+        notes_dialog,
+        picker_screen,
+        resume_dialog,
+        session_screen,
+    )
+
+    owners = [DiagApp, cautions_screen.CautionsScreen, detail_screen.SuspectDetailScreen,
+              export_dialog.ExportDialog, help_screen.HelpScreen, node_screen.NodeScreen,
+              notes_dialog.NotesDialog, picker_screen.PickerScreen,
+              resume_dialog.ResumeDialog, session_screen.SessionScreen]
+    ids = []
+    for owner in owners:
+        assert owner.BINDINGS, owner
+        for b in owner.BINDINGS:
+            assert b.id and b.description, (owner.__name__, b)
+            ids.append(b.id)
+    assert len(ids) == len(set(ids))                     # ids are unique
+
+
+@sync
+async def test_palette_offers_every_action_that_applies(diag_home):
+    app = DiagApp(case_path=str(CASES[0]))
+    async with app.run_test(size=(120, 40)) as pilot:
+        await settle(pilot)
+        screen = app.screen
+        assert isinstance(screen, SessionScreen)
+        titles = {c.title for c in app.get_system_commands(screen)}
+        for active in screen.active_bindings.values():
+            if active.enabled and active.binding.description:
+                assert active.binding.description in titles, active.binding

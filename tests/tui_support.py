@@ -1,5 +1,8 @@
 """Helpers for the interface tests (test_tui_*.py, test_session.py): a private DIAG_HOME,
-the bundled case paths, and Pilot waits that need no sleeps."""
+the bundled case paths, and Pilot waits that need no sleeps.
+
+Fixtures: a test module imports `fixture_diag_home` and `fixture_shared_cache`; pytest
+knows them by their names `diag_home` and `shared_cache`."""
 
 from __future__ import annotations
 
@@ -12,15 +15,15 @@ ROOT = Path(__file__).resolve().parents[1]
 CASES = sorted((ROOT / "cases").glob("*.yaml"))
 
 
-@pytest.fixture(scope="session")
-def shared_cache(tmp_path_factory) -> Path:
+@pytest.fixture(scope="session", name="shared_cache")
+def fixture_shared_cache(tmp_path_factory) -> Path:
     """One ensemble cache for every interface test (the cache is keyed by case and rules
     content, so sharing it changes no result, only the time)."""
     return tmp_path_factory.mktemp("diag_cache")
 
 
-@pytest.fixture
-def diag_home(tmp_path, monkeypatch, shared_cache):
+@pytest.fixture(name="diag_home")
+def fixture_diag_home(tmp_path, monkeypatch, shared_cache):
     """DIAG_HOME in a temporary folder (sessions, state, user cases of this test only; the
     ensemble cache shared), with the first-start marker already written (tests of the
     first start remove it)."""
@@ -92,3 +95,7 @@ def sync(fn):
         return asyncio.run(fn(*args, **kwargs))
 
     return wrapper
+
+# the names other test modules already import (the fixture objects themselves)
+diag_home = fixture_diag_home
+shared_cache = fixture_shared_cache

@@ -165,6 +165,8 @@ def _r(x):
 
 # Bumped when the cached arrays change meaning (the cache key also holds both hashes).
 CACHE_VERSION = "e3"
+# Most on-demand hypotheses (pairs) kept in the extra cache file (14 kB each at K=128).
+EXTRA_KEEP = 2000
 # Reading kinds' model-error keys in faults.yaml `inference.model_error`.
 _MODEL_ERR = {("dc", "V"): ("dc_v", "dc_rel"), ("ac", "V"): ("ac_v", "ac_rel"),
               ("dc", "A"): ("a_abs", "a_rel")}
@@ -193,6 +195,8 @@ class Engine:
         self._lock = threading.RLock()  # one build at a time (interface worker threads)
         self._circuit = None
         self._extra: dict[str, tuple[Any, np.ndarray]] = {}  # on-demand hypotheses
+        self._extra_loaded = False
+        self._extra_disk: dict[str, np.ndarray] = {}  # what the extra cache file holds
         self._limits = None
 
     # -- building ------------------------------------------------------------------------
@@ -315,7 +319,8 @@ class Engine:
                      for s, p in zip(self.specs, pri, strict=True))
         self._ens = Ensemble(self.case.hash, self.rules.hash, self.observables, hyps,
                              data["samples"], grp, a, b,
-                             ensemble.reference_draws(R, len(self.observables), self.seed),
+                             ensemble.reference_draws(R, len(self.observables), self.seed,
+                                                         bool(self.inf["fit_blunders"])),
                              tuple(str(n) for n in data["hidden_names"]),
                              data["hidden_band"], data["failed"], from_cache)
         self._noise_obj = noise
@@ -345,14 +350,45 @@ class Engine:
         s = self._spec(fault_id)
         return Hypothesis(s.id, 0.0, s.text, s.confirm, s.parts, s.origin)
 
+    def _extra_file(self):
+        from diag import __version__
+        from diag.core import ensemble
+
+        base = ensemble.cache_file(self.case.hash, self.rules.hash, self.K, self.seed,
+                                   f"{CACHE_VERSION}-{__version__}")
+        return base.with_name(base.stem + "-extra.npz")
+
     def _samples_of(self, specs) -> np.ndarray:
-        """Samples (n, K, M) of specs outside the built set, solved once and kept."""
+        """Samples (n, K, M) of specs outside the built set (pairs, other multiple
+        faults): solved once, kept in memory and in a disk cache beside the ensemble's."""
+        from diag.core import ensemble
+
         with self._lock:
             todo = [s for s in specs if s.id not in self._extra]
+            if todo and not self._extra_loaded:
+                self._extra_loaded = True
+                data = ensemble.load_cache(self._extra_file())
+                if data is not None and data["samples"].shape[1:] == (
+                        self.K, len(self.observables)):
+                    byid = {s.id: s for s in todo}
+                    for fid, xs in zip(data["ids"], data["samples"], strict=True):
+                        if str(fid) in byid:
+                            self._extra[str(fid)] = (byid[str(fid)], xs)
+                    todo = [s for s in todo if s.id not in self._extra]
+                    self._extra_disk = {str(f): x for f, x in
+                                        zip(data["ids"], data["samples"], strict=True)}
             if todo:
                 x, _, _ = self._solve(todo, self.K)
                 for s, xs in zip(todo, x, strict=True):
                     self._extra[s.id] = (s, xs)
+                    self._extra_disk[s.id] = xs
+                keep = list(self._extra_disk.items())[-EXTRA_KEEP:]
+                try:
+                    ensemble.save_cache(self._extra_file(), {
+                        "ids": np.array([k for k, _ in keep]),
+                        "samples": np.stack([v for _, v in keep])})
+                except OSError:
+                    pass  # a read-only cache folder only costs speed
         return np.stack([self._extra[s.id][1] for s in specs]) if specs else \
             np.empty((0, self.K, len(self.observables)))
 

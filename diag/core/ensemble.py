@@ -111,13 +111,18 @@ def draw_hypotheses(circuit, specs, K: int, seed: int) -> dict:
     return out
 
 
-def reference_draws(R: int, M: int, seed: int) -> dict[str, np.ndarray]:
+def reference_draws(R: int, M: int, seed: int, blunders: bool = True
+                    ) -> dict[str, np.ndarray]:
     """Random numbers of the goodness-of-fit reference (infer.fit_pvalue): unit index k
     (R,), standard-normal noise z (R, M), blunder decision b and position w, uniform on
-    [0, 1) (R, M)."""
+    [0, 1) (R, M). Without `blunders` b is 1 everywhere (never below the blunder
+    probability): the reference is readings taken without a slip, so a unit that the
+    best hypothesis explains only with a blunder reads as not fitting."""
     rng = np.random.default_rng([int(seed), 0xF17])
-    return {"ref_k": np.arange(R) % max(R, 1), "ref_z": rng.standard_normal((R, M)),
-            "ref_b": rng.uniform(size=(R, M)), "ref_w": rng.uniform(size=(R, M))}
+    z = rng.standard_normal((R, M))
+    b = rng.uniform(size=(R, M))
+    return {"ref_k": np.arange(R) % max(R, 1), "ref_z": z,
+            "ref_b": b if blunders else np.ones((R, M)), "ref_w": rng.uniform(size=(R, M))}
 
 
 def cache_file(case_hash: str, rules_hash: str, K: int, seed: int, version: str) -> Path:

@@ -92,7 +92,7 @@ def display(values: Any, kind: str, meter: Mapping[str, Any], unit: str,
     The meter error is drawn uniformly within ±accuracy (a specification bound, not a
     Gaussian); the result is rounded to the display resolution of the range the meter
     autoranges to for the shown value. A reading over the top range shows "OL", returned
-    as ±inf (sign of the value); NaN (a variant that did not solve) stays NaN. The random
+    as ±inf (sign of the value); an AC (rms) reading never shows below 0; NaN (a variant that did not solve) stays NaN. The random
     draw is meter display noise only; `rng` is the caller's seeded Generator.
     """
     v = np.asarray(values, dtype=float)
@@ -102,6 +102,8 @@ def display(values: Any, kind: str, meter: Mapping[str, Any], unit: str,
     noisy = np.where(finite, v + u * np.where(finite, bound, 0.0), v)
     q = resolution(noisy, meter, unit)
     shown = np.rint(noisy / q) * q
+    if kind == "ac":            # an rms reading is a magnitude: it never shows below zero
+        shown = np.maximum(shown, 0.0)
     over = (range_index(noisy, meter, unit) < 0) | ~finite
     return np.where(over & ~np.isnan(v), np.copysign(np.inf, v), shown)
 

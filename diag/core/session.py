@@ -16,10 +16,11 @@ import json
 import os
 import re
 import tempfile
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, Iterable, Sequence
+from typing import Any
 
 from diag.core import paths
 from diag.core.engine import Band, Diagnosis, Reading
@@ -30,7 +31,7 @@ FORMAT = 1
 
 def now_iso() -> str:
     """The current UTC time, ISO 8601 to the second."""
-    return datetime.now(timezone.utc).replace(microsecond=0).isoformat()
+    return datetime.now(UTC).replace(microsecond=0).isoformat()
 
 
 # ----------------------------------------------------------------------------- cautions

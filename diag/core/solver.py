@@ -391,8 +391,8 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
     compacted only when fewer than half of it are still iterating (gathers cost more than
     the arithmetic). For accepted variants (LU path) probe[:, q] gets J^-1 · 1 (A/V), the
     floating-node probe. `start` (per device, junction voltages (B,)) is where the devices
-    are evaluated in the first iteration; else at x. Returns the accepted subset of act
-    and iterations per variant."""
+    are evaluated in the first iteration (which accepts nothing); else at x. Returns the
+    accepted subset of act and iterations per variant."""
     B = x.shape[1]
     its = np.zeros(B, dtype=int)
     conv = []
@@ -423,19 +423,19 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
         np.copyto(A, Aw)
         if gextra:
             A[plan.diag] += gextra
+        first = start is not None and it_no == 0    # devices evaluated at `start`
         if dense:
             b = bw * scale
         else:                                   # right-hand sides: b and the 1 A probe
-            first = start is not None and it_no == 0    # (nothing is accepted then)
             rhs = bufR[:, :1, :nw] if first else bufR[:, :, :nw]
             b = rhs[:, 0]
             np.multiply(bw, scale, out=b)
             if not first:
                 rhs[:, 1] = 1.0
-        dev_cur = bufC[:, :nw]
-        dev_cur.fill(0.0)
-        lim = _stamp_devices(plan, DPw, xw, state, A, b, None, currents=dev_cur,
-                             init=start is not None and it_no == 0)
+        dev_cur = None if first else bufC[:, :nw]
+        if dev_cur is not None:
+            dev_cur.fill(0.0)
+        lim = _stamp_devices(plan, DPw, xw, state, A, b, None, currents=dev_cur, init=first)
         gdiag = np.abs(A[plan.diag])        # each node's total conductance, siemens
         if dense:
             xn = plan.solve(A, b, dense=True)
@@ -452,6 +452,8 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
             if it_no >= LOOSE_AFTER:
                 step_ok |= (dx <= LOOSE_REL * ax + LOOSE_ABS).all(axis=0)
             cand = live & fin & step_ok & ~lim
+        if first:                              # devices were not evaluated at xw
+            cand[:] = False
         if cand.any():
             ci = np.flatnonzero(cand)
             if ci.size > 0.3 * W.size:      # cheaper than gathering the columns

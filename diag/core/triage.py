@@ -15,6 +15,7 @@ Values are volts (amperes at supply points); p are posterior probabilities.
 from __future__ import annotations
 
 import csv
+import functools
 import io
 import math
 import os
@@ -207,7 +208,9 @@ class BatchScorer:
         self.n = self.valid.sum(axis=1)
         self.ref = ens.ref
         self._refs: dict[tuple[int, tuple[int, ...]], tuple] = {}
-        self._acc = engine._accuracy_fn()
+        # the meter's accuracy bound for the bench notes, remembered per shown value
+        # (readings repeat across a batch: they are rounded to the display resolution)
+        self._acc = functools.lru_cache(maxsize=1 << 16)(engine._accuracy_fn())
         self._ids = np.array([sp.id for sp in self.specs], dtype=object)
         self._texts = np.array([sp.text for sp in self.specs], dtype=object)
 
@@ -319,13 +322,11 @@ class BatchScorer:
         if pval < self.alpha and d:
             return eng.diagnose(rs, healthy_prior=self.hp)
         specs = self.specs
-        # group numbers in order of first appearance down the ranking (as diagnose does)
+        # groups_batch numbers the groups down this order already, which is the
+        # first-appearance numbering Engine.diagnose gives its suspects
         gs = group[order]
-        uniq, first = np.unique(gs, return_index=True)
-        renum = np.empty(int(uniq.max()) + 1, dtype=int)
-        renum[uniq[np.argsort(first)]] = np.arange(len(uniq))
         suspects = tuple(map(Suspect, self._ids[order].tolist(), post[order].tolist(),
-                             renum[gs].tolist(), self._texts[order].tolist()))
+                             gs.tolist(), self._texts[order].tolist()))
         if d < len(eng.observables):
             nxt = eng._advise(self.U, specs, self.infer.Scored(ll, llk, post), idx, order,
                               group)
@@ -411,9 +412,10 @@ def triage(engine: Engine, units: Mapping[str, Sequence[Reading]],
            rejected: Sequence[str] = (),
            progress: Callable[[float], None] | None = None,
            cancelled: Callable[[], bool] | None = None,
-           healthy_prior: float | None = None) -> TriageResult:
+           healthy_prior: float | None = None, threads: int | None = None) -> TriageResult:
     """Triage a batch: `units` maps unit id -> its readings (insertion order = order of
-    first appearance in the file); `rejected` are the row messages of malformed rows."""
+    first appearance in the file); `rejected` are the row messages of malformed rows;
+    `threads` as in `rank_batch`."""
     names = list(units)
     readings = [tuple(units[n]) for n in names]
     measured = set()
@@ -422,7 +424,7 @@ def triage(engine: Engine, units: Mapping[str, Sequence[Reading]],
     order = [(o.point, o.kind) for o in engine.case.observables if (o.point, o.kind) in
              measured]
     diags = rank_batch(engine, readings, progress=progress, cancelled=cancelled,
-                       healthy_prior=healthy_prior)
+                       healthy_prior=healthy_prior, threads=threads)
     results = []
     for name, rs, d in zip(names, readings, diags, strict=True):
         have = {(r.point, r.kind) for r in rs}

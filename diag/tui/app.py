@@ -12,9 +12,9 @@ safety cautions and leaves a marker in paths.state_dir().
 
 from __future__ import annotations
 
+from collections.abc import Iterable
 from functools import partial
 from pathlib import Path
-from typing import Iterable
 
 from textual.app import App, SystemCommand
 from textual.binding import Binding
@@ -149,7 +149,7 @@ class DiagApp(App[None]):
         # the screen's and the app's own keys first, then those of the focused widget
         ordered = sorted(screen.active_bindings.items(),
                          key=lambda kv: not isinstance(kv[1].node, (Screen, App)))
-        for key, active in ordered:
+        for _key, active in ordered:
             b = active.binding
             if not b.description or (b.action, b.description) in seen:
                 continue
@@ -183,7 +183,7 @@ class DiagApp(App[None]):
         yield SystemCommand("Safety cautions", "Show the bench safety cautions",
                             self.action_cautions)
         seen = {"Quit", "Help"}
-        for key, active in screen.active_bindings.items():
+        for active in screen.active_bindings.values():
             b = active.binding
             if not active.enabled or not b.description or b.description in seen:
                 continue

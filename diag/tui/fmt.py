@@ -31,7 +31,7 @@ def reading(x: float | None, unit: str) -> str:
     if ax >= 1e3:
         scale, prefix = (1e6, "M") if ax >= 1e6 else (1e3, "k")
     elif 0 < ax < 0.1:
-        for scale, prefix in ((1e-3, "m"), (1e-6, "µ"), (1e-9, "n")):
+        for scale, prefix in ((1e-3, "m"), (1e-6, "µ"), (1e-9, "n")):  # noqa: B007
             if ax >= scale:
                 break
     return f"{x / scale:.4g} {prefix}{sym}"

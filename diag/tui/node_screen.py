@@ -53,7 +53,7 @@ class NodeScreen(ModalScreen[None]):
         if self.node is None:
             return
         for part, term in self.case.parts_at(self.node):
-            others = [f"{t} → {n}" for t, n in zip(TERMINALS[part.kind], part.nodes)
+            others = [f"{t} → {n}" for t, n in zip(TERMINALS[part.kind], part.nodes, strict=True)
                       if t != term]
             table.add_row(Text(part.ref, style="bold"), part.kind, term,
                           Text(", ".join(others)), key=f"{part.ref}.{term}")

@@ -126,8 +126,8 @@ class SessionScreen(Screen[None]):
             self.engine.build(progress=lambda f: self.post_message(EnsembleProgressed(f)),
                               cancelled=lambda: worker.is_cancelled)
             healthy = tuple(self.engine.bands("healthy"))
-        except DiagError as exc:
-            self.post_message(EnsembleFailed(str(exc)))
+        except Exception as exc:  # shown on screen; the interface stays usable
+            self.post_message(EnsembleFailed(str(exc) or type(exc).__name__))
             return
         if not worker.is_cancelled:
             self.post_message(EnsembleBuilt(healthy))
@@ -138,8 +138,8 @@ class SessionScreen(Screen[None]):
         worker = get_current_worker()
         try:
             d = self.engine.diagnose(readings)
-        except DiagError as exc:
-            self.post_message(EnsembleFailed(str(exc)))
+        except Exception as exc:  # shown on screen; the readings are kept
+            self.post_message(EnsembleFailed(str(exc) or type(exc).__name__))
             return
         if not worker.is_cancelled:
             self.post_message(RankingUpdated(serial, d))
@@ -181,7 +181,6 @@ class SessionScreen(Screen[None]):
     @on(DataTable.RowHighlighted, "#points")
     def _row_moved(self) -> None:
         self._sync_entry_label()
-        self._sync_bindings()
 
     @on(DataTable.RowSelected, "#points")
     def _row_chosen(self) -> None:
@@ -258,8 +257,9 @@ class SessionScreen(Screen[None]):
         if action == "undo":
             return self.session.can_undo
         if action == "clear_reading":
-            o = self._current()
-            return o is not None and self.session.reading(o.point, o.kind) is not None
+            # shown while any reading is taken (it acts on the highlighted row), so that
+            # moving the cursor does not rebuild the footer
+            return bool(self.session.readings)
         if action in ("detail", "goto_next"):
             if self.diagnosis is None:
                 return False
@@ -294,8 +294,12 @@ class SessionScreen(Screen[None]):
 
     def action_clear_reading(self) -> None:
         o = self._current()
-        if o and self.session.clear_reading(o.point, o.kind):
+        if o is None:
+            return
+        if self.session.clear_reading(o.point, o.kind):
             self._after_change(f"{o.point} {o.kind} cleared")
+        else:
+            self._message(f"no reading at {o.point} {o.kind} to clear")
 
     def action_undo(self) -> None:
         what = self.session.undo()

@@ -129,12 +129,16 @@ class DiodeDevice:
             vd = np.broadcast_to(state[0], vd.shape)
         elif limit:
             vold = state[0]
-            brk = np.isfinite(xbv) & (vd < np.minimum(0.0, -xbv + 10.0 * vte))
             with np.errstate(invalid="ignore"):
-                vr, lr = pnjlim(-(vd + xbv), -(vold + xbv), vte, p["_vcrit"])
-            vf, lf = pnjlim(vd, vold, vte, p["_vcrit"])
-            vd = np.where(brk, -(vr + xbv), vf)
-            limited = np.where(brk, lr, lf) & (p["k"] > 0)   # an open junction carries nothing
+                brk = np.isfinite(xbv) & (vd < np.minimum(0.0, -xbv + 10.0 * vte))
+            vf, limited = pnjlim(vd, vold, vte, p["_vcrit"])
+            if brk.any():                      # in breakdown: limit the reflected voltage
+                with np.errstate(invalid="ignore"):
+                    vr, lr = pnjlim(-(vd + xbv), -(vold + xbv), vte, p["_vcrit"])
+                vf = np.where(brk, -(vr + xbv), vf)
+                limited = np.where(brk, lr, limited)
+            vd = vf
+            limited = limited & (p["k"] > 0)   # an open junction carries nothing
         cd, gd = diode_iv(vd, p["is"], vte, xbv)
         k = p["k"]
         cd = k * (cd + GMIN * vd)
