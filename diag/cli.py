@@ -25,7 +25,12 @@ COMMANDS = {
 }
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(argv: list[str] | None = None) -> argparse.ArgumentParser:
+    """The argument parser. Only the module of the command named in `argv` is imported
+    (start-up time matters at the bench); with `argv` None every command is loaded."""
+    chosen = None
+    if argv is not None:
+        chosen = next((a for a in argv if not a.startswith("-")), "")
     parser = argparse.ArgumentParser(
         prog="diag",
         description="Fault-finding in discrete transistor circuits. "
@@ -35,15 +40,18 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"diag {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name, (modname, help_) in COMMANDS.items():
-        mod = importlib.import_module(f"diag.commands.{modname}")
         p = sub.add_parser(name, help=help_, description=help_[0].upper() + help_[1:] + ".")
-        mod.add_arguments(p)
-        p.set_defaults(_run=mod.run)
+        if chosen is None or chosen == name:
+            mod = importlib.import_module(f"diag.commands.{modname}")
+            mod.add_arguments(p)
+            p.set_defaults(_run=mod.run)
     return parser
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
+    if argv is None:
+        argv = sys.argv[1:]
+    parser = build_parser(argv)
     args = parser.parse_args(argv)
     try:
         if args.command is None:

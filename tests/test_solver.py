@@ -227,3 +227,14 @@ def test_a_variant_that_does_not_converge_is_flagged_never_answered(monkeypatch)
     assert dc.why[1].startswith("did not converge")
     ac = solver.solve_ac(c, {"R2.r": np.array([47e3, 33e3])}, dc)
     assert np.isnan(ac.v[1]).all()
+
+
+def test_a_series_resistance_absent_from_the_model_cannot_be_varied():
+    # the topology is fixed at compile time: RS = 0 means no node behind it
+    c = compiled(part("V1", "supply", ["a", "gnd"], 5.0),
+                 part("R1", "resistor", ["a", "k"], 1e3),
+                 part("D1", "diode", ["k", "gnd"], model={"IS": 1e-14, "N": 1.0}))
+    assert "D1.j" not in c.unknowns
+    with pytest.raises(DiagError, match="D1.rs cannot change"):
+        solver.solve_dc(c, {"D1.rs": np.array([0.0, 1.0])})
+    assert solver.solve_dc(c, {"D1.rs": np.zeros(2)}).ok.all()

@@ -93,8 +93,11 @@ async def test_picker_opens_any_typed_path(diag_home, tmp_path):
     async with app.run_test(size=(120, 40)) as pilot:
         await settle(pilot)
         await pilot.press("slash")
-        assert isinstance(app.screen.focused, Input)
-        await pilot.press(*str(elsewhere), "enter")
+        field = app.screen.focused
+        assert isinstance(field, Input)
+        await pilot.press("full_stop", "backspace")      # typing reaches the field
+        field.value = str(elsewhere)
+        await pilot.press("enter")
         await settle(pilot)
         assert isinstance(app.screen, SessionScreen)
         assert app.screen.case.path == str(elsewhere)
@@ -180,3 +183,15 @@ async def test_palette_offers_every_action_that_applies(diag_home):
         for active in screen.active_bindings.values():
             if active.enabled and active.binding.description:
                 assert active.binding.description in titles, active.binding
+
+
+def test_diag_open_refuses_bad_files_before_the_interface(tmp_path, capsys, diag_home):
+    from diag.cli import main
+
+    assert main(["open", str(tmp_path / "missing.yaml")]) == 1
+    assert "missing.yaml" in capsys.readouterr().err
+    bad = tmp_path / "bad.json"
+    bad.write_text("{}", encoding="utf-8")
+    assert main(["open", str(CASES[0]), "--session", str(bad)]) == 1
+    err = capsys.readouterr().err
+    assert "bad.json" in err and "not a diag session" in err

@@ -164,7 +164,7 @@ def _r(x):
 
 
 # Bumped when the cached arrays change meaning (the cache key also holds both hashes).
-CACHE_VERSION = "e3"
+CACHE_VERSION = "e4"
 # Most on-demand hypotheses (pairs) kept in the extra cache file (14 kB each at K=128).
 EXTRA_KEEP = 2000
 # Reading kinds' model-error keys in faults.yaml `inference.model_error`.
@@ -250,7 +250,8 @@ class Engine:
             if cancelled is not None and cancelled():
                 raise DiagError("ensemble build cancelled")
             block = specs[i:i + chunk]
-            params = ensemble.draw_hypotheses(circ, block, K, self.seed)
+            params = ensemble.draw_hypotheses(circ, block, K, self.seed,
+                                              self.inf.get("ambient"))
             with np.errstate(all="ignore"):  # a failed variant is data (NaN), not an error
                 dc = solver.solve_dc(circ, params)
                 ac = solver.solve_ac(circ, params, dc) if need_ac else None
@@ -413,7 +414,7 @@ class Engine:
 
         spec = self._spec(fault_id)
         circ = self.circuit
-        params = ensemble.draw_unit(circ, spec, 1, rng)
+        params = ensemble.draw_unit(circ, spec, 1, rng, self.inf.get("ambient"))
         need_ac = any(o.kind == "ac" for o in self.observables)
         with np.errstate(all="ignore"):
             dc = solver.solve_dc(circ, params)

@@ -92,16 +92,62 @@ def apply_changes(circuit, params: dict, changes, n: int, rng: np.random.Generat
     return out
 
 
-def draw_unit(circuit, spec, n: int, rng: np.random.Generator) -> dict:
-    """n units (B = n) with one hypothesis's fault: tolerance draws then fault draws."""
+_JUNCTION_N = {"diode": "n", "led": "n", "zener": "n", "npn": "nf", "pnp": "nf"}
+
+
+def apply_ambient(circuit, params: dict, n: int, rng: np.random.Generator,
+                  ambient: dict) -> dict:
+    """A copy of `params` (B = n) with every unit at its own ambient temperature, drawn
+    uniformly in ambient["celsius"] (°C) and shared by all the unit's junctions.
+
+    The solver works at 27 °C (parts.base.T_KELVIN), so a warmer junction is stamped as
+    the same junction with a larger saturation current: at a fixed current its forward
+    voltage moves by ambient["vj_per_k"] (V/K, about -2 mV/K for silicon junctions, the
+    handbook figure), i.e. IS x exp(-vj_per_k dT / (N VT)); the BJT's ISE likewise with
+    NE. BF and BR follow SPICE's temperature law (T / T0)^XTB with XTB ambient["xtb"]."""
+    from diag.core.parts.base import T_KELVIN, VT
+
+    lo, hi = (float(x) for x in ambient["celsius"])
+    dT = rng.uniform(lo, hi, n) + 273.15 - T_KELVIN
+    tc = float(ambient["vj_per_k"])
+    beta = ((T_KELVIN + dT) / T_KELVIN) ** float(ambient["xtb"])
+    out = dict(params)
+    nom = circuit.nominal
+
+    def cur(key):
+        v = out.get(key)
+        return np.full(n, float(nom[key])) if v is None else np.asarray(v, dtype=float)
+
+    for part in circuit.parts:
+        nkey = _JUNCTION_N.get(part.kind)
+        if nkey is None:
+            continue
+        ref = part.ref
+        out[f"{ref}.is"] = cur(f"{ref}.is") * np.exp(-tc * dT / (cur(f"{ref}.{nkey}") * VT))
+        if part.kind in ("npn", "pnp"):
+            out[f"{ref}.ise"] = cur(f"{ref}.ise") * np.exp(-tc * dT / (cur(f"{ref}.ne") * VT))
+            out[f"{ref}.bf"] = cur(f"{ref}.bf") * beta
+            out[f"{ref}.br"] = cur(f"{ref}.br") * beta
+    return out
+
+
+def draw_unit(circuit, spec, n: int, rng: np.random.Generator,
+              ambient: dict | None = None) -> dict:
+    """n units (B = n) with one hypothesis's fault: tolerance draws, the ambient
+    temperature (when `ambient` is given, see `apply_ambient`; else 27 °C), then the
+    fault draws."""
     params = draw_healthy(circuit, n, rng)
+    if ambient:
+        params = apply_ambient(circuit, params, n, rng, ambient)
     return apply_changes(circuit, params, spec.changes, n, rng)
 
 
-def draw_hypotheses(circuit, specs, K: int, seed: int) -> dict:
+def draw_hypotheses(circuit, specs, K: int, seed: int, ambient: dict | None = None
+                    ) -> dict:
     """K units of every hypothesis, stacked hypothesis-major (B = len(specs) * K); every
-    key present for every hypothesis (nominal where one leaves it alone)."""
-    blocks = [draw_unit(circuit, s, K, hypothesis_rng(seed, s.id)) for s in specs]
+    key present for every hypothesis (nominal where one leaves it alone); `ambient` as
+    in `draw_unit`."""
+    blocks = [draw_unit(circuit, s, K, hypothesis_rng(seed, s.id), ambient) for s in specs]
     keys = sorted({k for b in blocks for k in b})
     out = {}
     for k in keys:

@@ -272,8 +272,18 @@ def _batch(circuit: Circuit, params: Mapping[str, object] | None) -> tuple[int, 
                              + ", ".join(list(circuit.nominal)[:3]))
     B = 1
     arrs = {}
+    fixed = circuit.cache.get("fixed")
+    if fixed is None:   # series resistances that are 0 in the model: no internal node exists
+        fixed = circuit.cache["fixed"] = {
+            k for k, v in circuit.nominal.items()
+            if v == 0.0 and k.rsplit(".", 1)[1] in ("rs", "rb", "rc", "re")}
     for k, v in params.items():
         a = np.asarray(v, dtype=float)
+        if k in fixed and np.any(a != 0.0):
+            raise DiagError(f"{k} cannot change: the model has {k.rsplit('.', 1)[1].upper()} "
+                            "= 0, so the circuit has no node behind it",
+                            where=k.split(".")[0], hint="give the series resistance in the "
+                            "part's model to vary it")
         if a.ndim > 1:
             raise DiagError(f"parameter {k!r} must be a scalar or a (B,) array")
         if a.ndim == 1 and a.shape[0] != 1:
@@ -436,7 +446,7 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
         if dev_cur is not None:
             dev_cur.fill(0.0)
         lim = _stamp_devices(plan, DPw, xw, state, A, b, None, currents=dev_cur, init=first)
-        gdiag = np.abs(A[plan.diag])        # each node's total conductance, siemens
+        gdiag = None if first else np.abs(A[plan.diag])    # node conductances, siemens
         if dense:
             xn = plan.solve(A, b, dense=True)
             yp = None
@@ -445,6 +455,11 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
                 y = plan.solve_lu(plan.factor(A), rhs)
             xn, yp = y[:, 0], (y[:, 1] if y.shape[1] > 1 else None)
         its[W[live]] += 1
+        if first:                              # devices were not evaluated at xw
+            fin = np.isfinite(xn).all(axis=0)
+            live &= fin
+            np.copyto(xw[:-1], xn)
+            continue
         with np.errstate(invalid="ignore"):
             fin = np.isfinite(xn).all(axis=0)
             ax, dx = np.abs(xn), np.abs(xn - xw[:-1])
@@ -452,8 +467,6 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
             if it_no >= LOOSE_AFTER:
                 step_ok |= (dx <= LOOSE_REL * ax + LOOSE_ABS).all(axis=0)
             cand = live & fin & step_ok & ~lim
-        if first:                              # devices were not evaluated at xw
-            cand[:] = False
         if cand.any():
             ci = np.flatnonzero(cand)
             if ci.size > 0.3 * W.size:      # cheaper than gathering the columns

@@ -146,9 +146,10 @@ class DiagApp(App[None]):
             return
         keys = []
         seen = set()
-        # the screen's and the app's own keys first, then those of the focused widget
+        # diag's own keys (they carry ids) first, then Textual's and the focused widget's
         ordered = sorted(screen.active_bindings.items(),
-                         key=lambda kv: not isinstance(kv[1].node, (Screen, App)))
+                         key=lambda kv: (kv[1].binding.id is None,
+                                         not isinstance(kv[1].node, (Screen, App))))
         for _key, active in ordered:
             b = active.binding
             if not b.description or (b.action, b.description) in seen:

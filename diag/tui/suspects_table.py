@@ -51,7 +51,8 @@ class SuspectsTable(DataTable):
         if self.row_count == len(rows):
             for r, cells in enumerate(rows):
                 for c, cell in enumerate(cells):
-                    self.update_cell_at(Coordinate(r, c), cell)
+                    # the fault id column grows to fit (pairs have long ids)
+                    self.update_cell_at(Coordinate(r, c), cell, update_width=c == 1)
         else:
             self.clear()
             for r, cells in enumerate(rows):

@@ -26,6 +26,11 @@ ON_CURRENT = 1e-6   # amperes of junction current above which a junction counts 
 SAT_VCE = 0.3       # volts; an on transistor below this collector-emitter voltage is saturated
 
 
+def _is(value, const: float) -> bool:
+    """True when a parameter is the plain number `const` (not a per-variant array)."""
+    return isinstance(value, float) and value == const
+
+
 class BJT(PartKind):
     kinds = ("npn", "pnp")
     names = ("is", "bf", "br", "nf", "nr", "vaf", "ikf", "ise", "ne", "rb", "rc", "re",
@@ -92,40 +97,51 @@ class BJTDevice:
 
     def currents(self, p, vbe, vbc):
         """Intrinsic (ic, ib) flowing into c and b (npn sense) and their derivatives
-        d/dvbe, d/dvbc."""
-        is_ = p["is"]
-        e1, d1 = safe_exp(vbe / p["_vtf"])
-        e2, d2 = safe_exp(vbc / p["_vtr"])
-        cbe, gbe = is_ * (e1 - 1.0), is_ * d1 / p["_vtf"]
-        cbc, gbc = is_ * (e2 - 1.0), is_ * d2 / p["_vtr"]
-        vte = p["ne"] * VT
-        e3, d3 = safe_exp(vbe / vte)
-        cben = p["ise"] * (e3 - 1.0) + GMIN * vbe
-        gben = p["ise"] * d3 / vte + GMIN
-        cbcn = GMIN * vbc
-        gbcn = GMIN
-        inv_vaf = 1.0 / p["vaf"]
-        inv_ikf = 1.0 / p["ikf"]
-        q1 = 1.0 / (1.0 - inv_vaf * vbc)
-        dq1_bc = q1 * q1 * inv_vaf
-        q2 = inv_ikf * cbe
-        sq = np.sqrt(np.maximum(1.0 + 4.0 * q2, 0.0))
-        sq_safe = np.where(sq > 0, sq, 1.0)
-        qb = q1 * (1.0 + sq) / 2.0
-        dqb_be = np.where(sq > 0, q1 * inv_ikf * gbe / sq_safe, 0.0)
-        dqb_bc = dq1_bc * (1.0 + sq) / 2.0
+        d/dvbe, d/dvbc (SPICE Gummel-Poon: qb = q1 (1 + sqrt(1 + 4 q2)) / 2,
+        q1 = 1 / (1 - vbc/VAF), q2 = Ibe1 / IKF)."""
+        is_, vtf, vtr = p["is"], p["_vtf"], p["_vtr"]
+        e1, d1 = safe_exp(vbe / vtf)
+        e2, d2 = safe_exp(vbc / vtr)
+        cbe, gbe = is_ * (e1 - 1.0), (is_ / vtf) * d1
+        cbc, gbc = is_ * (e2 - 1.0), (is_ / vtr) * d2
+        ise = p["ise"]
+        if _is(ise, 0.0):
+            cben, gben = GMIN * vbe, GMIN
+        else:
+            vte = p["ne"] * VT
+            e3, d3 = safe_exp(vbe / vte)
+            cben = ise * (e3 - 1.0) + GMIN * vbe
+            gben = (ise / vte) * d3 + GMIN
+        inv_vaf, inv_ikf = 1.0 / p["vaf"], 1.0 / p["ikf"]
+        if _is(inv_vaf, 0.0):
+            q1, dq1_bc = 1.0, 0.0
+        else:
+            q1 = 1.0 / (1.0 - inv_vaf * vbc)
+            dq1_bc = q1 * q1 * inv_vaf
+        if _is(inv_ikf, 0.0):
+            qb, dqb_be, dqb_bc = q1, 0.0, dq1_bc
+        else:
+            sq = np.sqrt(np.maximum(1.0 + 4.0 * inv_ikf * cbe, 1e-12))
+            qb = 0.5 * q1 * (1.0 + sq)
+            dqb_be = q1 * inv_ikf * gbe / sq
+            dqb_bc = 0.5 * dq1_bc * (1.0 + sq)
+        iqb = 1.0 / qb
+        it = (cbe - cbc) * iqb
+        dit_be = (gbe - it * dqb_be) * iqb
+        dit_bc = (-gbc - it * dqb_bc) * iqb
         kbe, kbc = p["k_be"], p["k_bc"]
-        kt = kbe * kbc
-        it = kt * (cbe - cbc) / qb
-        dit_be = kt * (gbe / qb - (cbe - cbc) * dqb_be / (qb * qb))
-        dit_bc = kt * (-gbc / qb - (cbe - cbc) * dqb_bc / (qb * qb))
-        ibe = kbe * (cbe / p["bf"] + cben)
-        gibe = kbe * (gbe / p["bf"] + gben)
-        ibc = kbc * (cbc / p["br"] + cbcn)
-        gibc = kbc * (gbc / p["br"] + gbcn)
-        ic = it - ibc
-        ib = ibe + ibc
-        return ic, ib, (dit_be, dit_bc - gibc), (gibe, gibc)
+        if not (_is(kbe, 1.0) and _is(kbc, 1.0)):
+            kt = kbe * kbc
+            it, dit_be, dit_bc = kt * it, kt * dit_be, kt * dit_bc
+        ibe = cbe / p["bf"] + cben
+        gibe = gbe / p["bf"] + gben
+        ibc = cbc / p["br"] + GMIN * vbc
+        gibc = gbc / p["br"] + GMIN
+        if not _is(kbe, 1.0):
+            ibe, gibe = kbe * ibe, kbe * gibe
+        if not _is(kbc, 1.0):
+            ibc, gibc = kbc * ibc, kbc * gibc
+        return it - ibc, ibe + ibc, (dit_be, dit_bc - gibc), (gibe, gibc)
 
     def start(self, p, pn, v):
         """(vbe, vbc) to evaluate first, from the nominal solution v (parameters pn):

@@ -42,6 +42,9 @@ def breakdown_knee(bv, ibv, is_, nvt):
     finite = np.isfinite(bv)
     bvf = np.where(finite, bv, 0.0)
     cbv = np.maximum(ibv, is_ * bvf / VT)
+    small = ibv < is_ * bvf / VT
+    if np.all(small | ~finite):
+        return np.where(finite, bvf, np.inf)
     xbv = bvf - nvt * np.log1p(cbv / is_)
     for _ in range(25):                      # ngspice iterates up to 25 times
         new = bvf - nvt * np.log(np.maximum(cbv / is_ + 1.0 - xbv / VT, 1e-300))
@@ -49,7 +52,6 @@ def breakdown_knee(bv, ibv, is_, nvt):
         xbv = new
         if done:
             break
-    small = ibv < is_ * bvf / VT
     xbv = np.where(small, bvf, xbv)
     return np.where(finite, xbv, np.inf)
 
