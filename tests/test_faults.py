@@ -145,3 +145,30 @@ def test_fault_draws_follow_the_rules(two_stage, rules):
     b = ensemble.draw_hypotheses(circ, [faults.healthy_spec(), spec], 8, seed=5)
     for k in a:  # a hypothesis draws the same units whatever is built beside it
         np.testing.assert_array_equal(a[k], b[k][8:])
+
+
+def test_ambient_temperature_shifts_junctions_by_the_handbook_coefficient(two_stage, rules):
+    """A unit at 40 °C stamped on the 27 °C solver: every junction's forward voltage at a
+    fixed current moves -2 mV/K (handbook figure for silicon, rules/faults.yaml
+    `ambient`), i.e. N VT ln(IS_T / IS_27) = 2 mV/K x 13 K; BF x (T/T0)^XTB, SPICE's law."""
+    from diag.core.parts.base import VT
+
+    circ = netlist.compile_case(two_stage, rules)
+    amb = dict(faults.inference(rules)["ambient"], celsius=[40.0, 40.0])
+    base = ensemble.draw_healthy(circ, 6, np.random.default_rng(3))
+    warm = ensemble.apply_ambient(circ, base, 6, np.random.default_rng(4), amb)
+    dT = 40.0 + 273.15 - 300.15
+    for part in circ.parts:
+        if part.kind not in ("npn", "pnp"):
+            continue
+        ref = part.ref
+        is0 = base.get(f"{ref}.is", np.full(6, circ.nominal[f"{ref}.is"]))
+        dv = circ.nominal[f"{ref}.nf"] * VT * np.log(warm[f"{ref}.is"] / is0)
+        np.testing.assert_allclose(dv, 2.0e-3 * dT, rtol=1e-9)
+        bf0 = base.get(f"{ref}.bf", np.full(6, circ.nominal[f"{ref}.bf"]))
+        np.testing.assert_allclose(warm[f"{ref}.bf"] / bf0,
+                                   ((dT + 300.15) / 300.15) ** 1.5, rtol=1e-12)
+    # the fault's own value still rules: low beta sets BF whatever the temperature
+    spec = faults.parse_fault_id(two_stage, rules, "Q1:low-beta")
+    p = ensemble.draw_unit(circ, spec, 200, np.random.default_rng(1), amb)
+    assert p["Q1.bf"].min() >= 5 and p["Q1.bf"].max() <= 30

@@ -133,3 +133,55 @@ def test_noise_transform_round_trip():
     # du/dy = 1/sigma(y): at y = 0 one noise width b is one unit (derivative of asinh)
     d = (nz.u(np.array([1e-6, 1e-12])) - nz.u(np.array([0.0, 0.0]))) / np.array([1e-6, 1e-12])
     np.testing.assert_allclose(d, 1 / nz.b, rtol=1e-3)
+
+
+def test_fit_without_blunders_in_the_reference_flags_one_slipped_reading():
+    """`fits` means explained without a slip (rules/faults.yaml fit_blunders: false): one
+    reading 40 noise widths off a unit of the hypothesis is kept from overturning the
+    ranking by the blunder term, but the blunder-free reference rejects it, while clean
+    readings of the hypothesis still pass about 95 % of the time (calibrated p-value)."""
+    U = cloud(CENTRES, K=128, spread=2.0, seed=3)
+    lo, W = infer.blunder_range(U)
+    rk, rz, _, rw = _ref(256, 4, 11)
+    rb = np.ones((256, 4))  # what ensemble.reference_draws(..., blunders=False) gives
+    rng = np.random.default_rng(8)
+    clean, slipped = [], []
+    for _ in range(100):
+        unit = np.asarray(CENTRES[2], float) + 2.0 * rng.standard_normal(4)
+        truth = unit + rng.standard_normal(4)
+        clean.append(infer.fit_pvalue(U[2], np.arange(4), truth, EPS, lo, W, rk, rz, rb, rw))
+        truth[3] -= 40.0  # where no hypothesis has units
+        slipped.append(infer.fit_pvalue(U[2], np.arange(4), truth, EPS, lo, W, rk, rz, rb,
+                                        rw))
+    # binomial(100, 0.05): mean 5, sd 2.2; allow 2.5 sd above
+    assert np.sum(np.array(clean) < 0.05) <= 10
+    assert np.all(np.array(slipped) < 0.05)
+    post = post_of(U, [0, 1, 2, 3], truth)
+    assert np.argmax(post.posterior) == 2  # the slip does not move the ranking
+
+
+def test_spread_is_the_standard_deviation_of_a_normal_law_and_sees_long_tails():
+    rng = np.random.default_rng(4)
+    x = rng.standard_normal((1, 20000, 1)) * 3.0
+    # IQR = 1.349 sigma and the 10-90 % range = 2.563 sigma for a normal law
+    # (scipy.stats.norm.ppf(0.75) * 2, norm.ppf(0.9) * 2)
+    assert infer.spread(x)[0, 0] == pytest.approx(3.0, rel=0.03)
+    # a fault over decades: 80 % of units at one value, 20 % spread far below it
+    tail = np.concatenate([np.zeros(800), -rng.uniform(5, 100, 200)])[None, :, None]
+    q10, q25, q75, q90 = np.quantile(tail[0, :, 0], [0.1, 0.25, 0.75, 0.9])
+    assert (q75 - q25) / 1.349 < 1.0  # the IQR sees only a sliver of the tail
+    assert infer.spread(tail)[0, 0] == pytest.approx((q90 - q10) / 2.563, rel=1e-9)
+
+
+def test_one_law_is_one_group_however_many_observables():
+    """Two hypotheses drawn from the same law cannot be told apart. With 30 independent
+    observables a box of per-observable 5-95 % bands would hold 0.9^30 = 4 % of a
+    hypothesis's own units (a product of probabilities worked by hand); `apart` widens
+    each box until it holds 90 % of its own units, so the two stay together."""
+    rng = np.random.default_rng(2)
+    U = 20.0 * rng.standard_normal((2, 200, 30))
+    ap = infer.apart(U, 0.05, 1.0, 0.5)
+    assert not ap[0, 1]
+    far = U.copy()
+    far[1] += 200.0  # ten spreads away on every observable
+    assert infer.apart(far, 0.05, 1.0, 0.5)[0, 1]

@@ -164,7 +164,7 @@ def _r(x):
 
 
 # Bumped when the cached arrays change meaning (the cache key also holds both hashes).
-CACHE_VERSION = "e4"
+CACHE_VERSION = "e5"
 # Most on-demand hypotheses (pairs) kept in the extra cache file (14 kB each at K=128).
 EXTRA_KEEP = 2000
 # Reading kinds' model-error keys in faults.yaml `inference.model_error`.

@@ -94,10 +94,15 @@ def nan_quantile(x: np.ndarray, qs, axis: int = 1) -> np.ndarray:
 
 
 def spread(U: np.ndarray) -> np.ndarray:
-    """Robust spread (H, M) of each hypothesis's units: IQR / 1.349, u units."""
-    q25, q75 = nan_quantile(U, [0.25, 0.75], axis=1)
+    """Robust spread (H, M) of each hypothesis's units, u units: the larger of IQR / 1.349
+    and the 10-90 % range / 2.563 (both the standard deviation of a normal law). A fault
+    whose value ranges over decades puts a share of its units in a long tail (a leak
+    that matters only at its low end) which the IQR alone does not see; a kernel that
+    narrow around those few tail units makes the likelihood hinge on where they happened
+    to be drawn."""
+    q10, q25, q75, q90 = nan_quantile(U, [0.10, 0.25, 0.75, 0.90], axis=1)
     with np.errstate(invalid="ignore"):
-        return np.nan_to_num(q75 - q25) / 1.349
+        return np.maximum(np.nan_to_num(q75 - q25) / 1.349, np.nan_to_num(q90 - q10) / 2.563)
 
 
 def bandwidth(U: np.ndarray, d: int, spread_: np.ndarray | None = None) -> np.ndarray:
@@ -208,18 +213,29 @@ def band_q(U: np.ndarray, q: float) -> tuple[np.ndarray, np.ndarray]:
 def apart(U: np.ndarray, q: float, sigmas: float, share: float) -> np.ndarray:
     """(H, H) bool: hypotheses i and j can be told apart by the offered readings.
 
-    j's region is the box of its central q..1-q band at every observable, widened by
-    `sigmas` noise widths each side. i and j are apart when fewer than `share` of i's
+    j's region is the smallest box of central per-observable bands (q'..1-q' with q' <=
+    q) that holds at least 1 - 2q of j's own units at every observable at once (per-
+    observable q..1-q bands alone leave out many more than 2q of the units when there
+    are many observables), widened by `sigmas` noise widths each side. i and j are apart when fewer than `share` of i's
     units fall inside j's region and fewer than `share` of j's inside i's: then the
     offered readings usually tell which it is. When most units of one (say a mild
     R1:high, or a leak whose range lies inside another's) read like the other, no
     reading can be relied on to split them. Failed hypotheses are apart from all."""
-    lo, hi = band_q(U, q)
-    lo, hi = lo - sigmas, hi + sigmas
     H = U.shape[0]
-    inside = np.zeros((H, H))
     ok = np.isfinite(U).all(axis=2)  # (H, K)
     n = ok.sum(axis=1)
+    lo, hi = band_q(U, q)
+    need = 1.0 - 2.0 * q
+    for qq in (q / 2, q / 5, q / 10, 0.0):  # widen each box until it holds its own units
+        own = np.array([((U[h][ok[h]] >= lo[h] - sigmas) & (U[h][ok[h]] <= hi[h] + sigmas)
+                         ).all(axis=1).mean() if n[h] else 1.0 for h in range(H)])
+        short = own < need
+        if not short.any():
+            break
+        lq, hq = band_q(U[short], qq)
+        lo[short], hi[short] = lq, hq
+    lo, hi = lo - sigmas, hi + sigmas
+    inside = np.zeros((H, H))
     for i in range(H):
         ui = U[i][ok[i]]  # (k, M)
         if len(ui) == 0:
