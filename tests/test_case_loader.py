@@ -375,3 +375,14 @@ def test_model_from_rules_of_wrong_shape(tmp_path):
     with pytest.raises(CaseErrors) as info:
         load_case(SPEC_EXAMPLE, load_rules(folder))
     assert "models.yaml" in str(info.value) and info.value.errors[0].where == "Q1"
+
+
+def test_a_bare_name_finds_the_bundled_case(tmp_path, monkeypatch):
+    # `diag check sounder-driver` from any folder names the bundled case (our own rule).
+    from diag.core.case import find_case, load_case
+    from diag.core.paths import cases_dir
+
+    monkeypatch.chdir(tmp_path)
+    assert find_case("sounder-driver") == cases_dir() / "sounder-driver.yaml"
+    assert load_case("sounder-driver").title.startswith("Warning sounder")
+    assert find_case("no-such-case") == Path("no-such-case")

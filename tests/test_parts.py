@@ -7,6 +7,9 @@ so these tests do not depend on the case loader.
 from __future__ import annotations
 
 import math
+import subprocess
+import sys
+from pathlib import Path
 from types import MappingProxyType
 
 import numpy as np
@@ -17,6 +20,7 @@ from scipy import constants
 from diag.core import ensemble, netlist
 from diag.core.case import Case, Part
 from diag.core.parts import REGISTRY, VT, check_models
+from diag.core.parts import base
 from diag.core.parts.base import T_KELVIN, pnjlim
 from diag.core.parts.bjt import BJTDevice
 from diag.core.parts.passive import electrolytic_leak_limit
@@ -71,6 +75,17 @@ def test_thermal_voltage_is_codata_kt_over_q():
     assert T_KELVIN == 300.15
     assert_allclose(VT, constants.k * 300.15 / constants.e, rtol=1e-15)
     assert_allclose(VT, 25.865e-3, atol=0.001e-3)
+    # CODATA via scipy.constants: the written-out k and e are the exact SI values
+    assert base.BOLTZMANN == constants.k and base.ELEMENTARY_CHARGE == constants.e
+
+
+def test_core_import_does_not_load_scipy():
+    """The constants are written out, so a core import pulls in no scipy (start-up time;
+    common practice, no source)."""
+    code = "import sys, diag.core.solver, diag.core.meter; print('scipy' in sys.modules)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True, cwd=str(Path(__file__).resolve().parents[1]))
+    assert out.stdout.strip() == "False"
 
 
 # ----------------------------------------------------------------------------- models.yaml

@@ -6,8 +6,11 @@ mixture of the units' predictions with unit noise in the noise-scaled coordinate
 infer.py). The expected gain is the mutual information I(G; Y_j) of that joint law between
 the reading and the group of the hypothesis (the engine passes the groups formed around
 the leading suspects: telling apart what no offered reading can split earns nothing),
-computed on a histogram of u in half-noise-width bins smoothed by the unit-noise Gaussian.
-An observable every hypothesis predicts alike gains 0 bits.
+computed on a histogram of u in half-noise-width bins, each hypothesis's row smoothed by
+the Gaussian kernel the likelihood will give that reading once taken (unit noise widened
+by the hypothesis's bandwidth, infer.bandwidth with one reading more), so the advice
+expects exactly the update that follows. An observable every hypothesis predicts alike
+gains 0 bits.
 """
 
 from __future__ import annotations
@@ -43,11 +46,24 @@ def _smooth(a: np.ndarray, sigma: float) -> np.ndarray:
     return out
 
 
+def _smooth_rows(a: np.ndarray, sigma: np.ndarray) -> np.ndarray:
+    """Convolve each row i of `a` with a Gaussian of sigma[i] bins (zero outside), by FFT
+    with enough zero padding that nothing wraps round."""
+    n = a.shape[1]
+    pad = int(np.ceil(5.0 * float(np.max(sigma))))
+    m = 1 << int(np.ceil(np.log2(n + 2 * pad)))
+    f = np.fft.rfftfreq(m)
+    spec = np.fft.rfft(np.pad(a, ((0, 0), (pad, m - n - pad))), axis=1)
+    spec *= np.exp(-2.0 * (np.pi * f[None, :] * sigma[:, None]) ** 2)
+    return np.clip(np.fft.irfft(spec, m, axis=1)[:, pad:pad + n], 0.0, None)
+
+
 def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9,
-         labels: np.ndarray | None = None) -> float:
+         labels: np.ndarray | None = None, width: np.ndarray | None = None) -> float:
     """Mutual information (bits) between the hypothesis (or its group, when `labels`
     (H,) gives each hypothesis's group) and a new reading whose units' predictions are
-    u_j (H, K) in u coordinates with weights w (H, K)."""
+    u_j (H, K) in u coordinates with weights w (H, K); `width` (H,) is each hypothesis's
+    kernel width in noise widths (1 when not given: meter and model noise only)."""
     keep = (w > tiny) & np.isfinite(u_j)
     if not keep.any():
         return 0.0
@@ -58,18 +74,24 @@ def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9,
     ww = np.where(keep[hs], w[hs], 0.0)
     lo = np.min(u[keep[hs]]) - 4.0
     hi = np.max(u[keep[hs]]) + 4.0
-    width = max(BIN, (hi - lo) / MAX_BINS)
-    nb = int(np.ceil((hi - lo) / width)) + 1
-    idx = np.clip(((np.where(keep[hs], u, lo) - lo) / width).astype(int), 0, nb - 1)
+    kw = np.ones(len(hs)) if width is None else np.maximum(np.asarray(width, float)[hs], 1.0)
+    lo -= 4.0 * (kw.max() - 1.0)
+    hi += 4.0 * (kw.max() - 1.0)
+    bw = max(BIN, (hi - lo) / MAX_BINS)
+    nb = int(np.ceil((hi - lo) / bw)) + 1
+    idx = np.clip(((np.where(keep[hs], u, lo) - lo) / bw).astype(int), 0, nb - 1)
     rows = np.repeat(np.arange(len(hs)), u.shape[1])
     joint = np.bincount(rows * nb + idx.ravel(), weights=ww.ravel(),
                         minlength=len(hs) * nb).reshape(len(hs), nb)
+    if width is None:
+        joint = _smooth(joint, 1.0 / bw)
+    else:
+        joint = _smooth_rows(joint, kw / bw)
     if labels is not None:  # rows summed per group: gain about the group only
         lab = np.unique(np.asarray(labels)[hs], return_inverse=True)[1]
         summed = np.zeros((lab.max() + 1, nb))
         np.add.at(summed, lab, joint)
         joint = summed
-    joint = _smooth(joint, 1.0 / width)
     total = joint.sum()
     if total <= 0:
         return 0.0
@@ -83,7 +105,9 @@ def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9,
 
 
 def gains(U: np.ndarray, w: np.ndarray, untaken: np.ndarray,
-          labels: np.ndarray | None = None) -> np.ndarray:
+          labels: np.ndarray | None = None, width: np.ndarray | None = None) -> np.ndarray:
     """Expected gain (bits) of each untaken observable index (len(untaken),); about the
-    group when `labels` is given (see `gain`)."""
-    return np.array([gain(U[:, :, j], w, labels=labels) for j in untaken], dtype=float)
+    group when `labels` is given; `width` (H, M) kernel widths (see `gain`)."""
+    return np.array([gain(U[:, :, j], w, labels=labels,
+                          width=None if width is None else width[:, j])
+                     for j in untaken], dtype=float)

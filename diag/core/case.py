@@ -26,6 +26,7 @@ from typing import Any
 import yaml
 
 from diag.core.errors import CaseErrors, DiagError
+from diag.core.paths import cases_dir, user_cases_dir
 from diag.core.rules import Rules, load_rules
 from diag.core.values import SYMBOLS, canonical_unit, format_value, parse_tol, parse_value
 from diag.core.yamlio import LineMap, load_yaml_text
@@ -792,10 +793,26 @@ def _duplicates(text: str, file: str) -> list[DiagError]:
     return out
 
 
+def find_case(name: str | Path) -> Path:
+    """The case file meant by `name`: the path itself when it is a file, else
+    `<name>` or `<name>.yaml` in the user's cases folder, then in the bundled one.
+    Returns `name` unchanged when none exists (the loader then says so)."""
+    p = Path(name)
+    if p.is_file():
+        return p
+    if p.parent == Path("."):
+        for folder in (user_cases_dir(), cases_dir()):
+            for cand in (folder / p.name, folder / f"{p.name}.yaml"):
+                if cand.is_file():
+                    return cand
+    return p
+
+
 def load_case(path: str | Path, rules: Rules | None = None) -> Case:
     """Read, validate and freeze one case file (SPEC section 1). Raises CaseErrors listing
-    every problem found (file, line, part/node/point, hint)."""
-    file = str(path)
+    every problem found (file, line, part/node/point, hint). A bare name such as
+    `sounder-driver` that is not a file here names a bundled or user case."""
+    file = str(find_case(path))
     data, text = _read(file)
     try:
         doc = load_yaml_text(text, file=file)

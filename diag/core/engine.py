@@ -631,7 +631,11 @@ class Engine:
                            dtype=int)
         if len(untaken) == 0:
             return []
-        bits = advise.gains(U, w, untaken, labels=group)
+        from diag.core import infer
+
+        sp = self._spread if U.shape[0] == self._spread.shape[0] else None
+        width = np.sqrt(1.0 + infer.bandwidth(U, len(idx) + 1, sp) ** 2)  # once taken
+        bits = advise.gains(U, w, untaken, labels=group, width=width)
         out = []
         samples = [self.ensemble.samples]
         if U.shape[0] > self.ensemble.samples.shape[0]:

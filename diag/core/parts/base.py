@@ -18,10 +18,13 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import constants
-
+# Boltzmann constant and elementary charge: exact by definition in the SI since 2019
+# (CODATA 2018); written out so importing the core does not import scipy (about 0.4 s).
+# tests/test_parts.py checks them against scipy.constants.
+BOLTZMANN = 1.380649e-23                            # joules per kelvin
+ELEMENTARY_CHARGE = 1.602176634e-19                 # coulombs
 T_KELVIN = 300.15                                   # 27 °C, the SPICE default temperature
-VT = constants.k * T_KELVIN / constants.e           # thermal voltage, volts (about 25.86 mV)
+VT = BOLTZMANN * T_KELVIN / ELEMENTARY_CHARGE       # thermal voltage, volts (about 25.86 mV)
 GMIN = 1e-12                                        # siemens across every junction (SPICE gmin)
 EXP_LIMIT = 100.0                                   # exp() argument above which it is linear
 
