@@ -224,6 +224,10 @@ def test_a_reading_that_does_not_fit_is_named(eng):
     assert "TP4 dc does not fit" in d.fit_text
     clean = eng.diagnose(eng.simulate("K1:open", np.random.default_rng(5)))
     assert clean.extra["odd_readings"] == []
+    # `fits` means explained without a slip (faults.yaml fit_blunders: false), and a slip
+    # is likelier than a second fault matching the odd reading: no pairs are tried
+    assert not d.fits and clean.fits
+    assert not d.extra["pairs_tried"]
 
 
 def test_pair_ensembles_are_cached_on_disk(tmp_path, monkeypatch):

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from conftest import CASES_DIR
 
 from diag.core import ensemble, meter, solver, spice
 from diag.core.case import load_case
@@ -150,41 +151,80 @@ def test_ac_magnitudes_match_ngspice(case_path, ngspice, runs):
     assert not bad, "\n".join(bad)
 
 
+def _meter_check(circuit, variants, ngspice):
+    """meter.observe at every point of `circuit` for each (label, overrides) variant,
+    against ngspice with the meter actually connected: one copy of the circuit per
+    (variant, reading), with r_in (and c_in for an ac reading) across the point, or, at a
+    supply point, the ammeter's burden added to that supply's source resistance (in
+    series with it). Returns the disagreements beyond max(1 mV, 0.2 %) (1 % for ac;
+    max(1 µA, 0.2 %) for currents)."""
+    case = circuit.case
+    pts = list(case.observables)
+    P, V = len(pts), len(variants)
+    m = case.meter
+    keys = {k for _, o in variants for k in o}
+    for ob in pts:
+        sup = case.point(ob.point).supply
+        if sup is not None:
+            keys.add(f"{sup}.r")
+    ours_p = {k: np.array([o.get(k, circuit.nominal[k]) for _, o in variants], float)
+              for k in keys}
+    dc = solver.solve_dc(circuit, ours_p)
+    ac = solver.solve_ac(circuit, ours_p, dc) if case.signal is not None else None
+    ours = meter.observe(circuit, ours_p, dc, ac, pts, m)
+    bad = []
+    for v, (label, _) in enumerate(variants):
+        if not dc.ok[v]:
+            bad.append(f"{label}: diag did not converge")
+            continue
+        for k, ob in enumerate(pts):   # one deck per reading: ngspice's .op of a deck of
+            pt = case.point(ob.point)  # copies can fail where each copy alone solves
+            theirs_p = {key: float(col[v]) for key, col in ours_p.items()}
+            extra = []
+            if pt.supply is not None:
+                theirs_p[f"{pt.supply}.r"] += float(m["a_burden"])
+            else:
+                a = spice.node_name(case, pt.node)
+                n = spice.node_name(case, pt.minus or case.ground)
+                extra.append(f"R_meter {a} {n} {float(m['r_in']):.12g}")
+                if ob.kind == "ac":
+                    extra.append(f"C_meter {a} {n} {float(m['c_in']):.12g}")
+            ref = ngspice.run_ngspice(spice.netlist(circuit, theirs_p, extra=extra))
+            if pt.supply is not None:
+                got = -ref.i(spice.source_name(pt.supply))  # ngspice, burden in series
+                tol = max(I_ATOL, I_RTOL * abs(got))
+            elif ob.kind == "dc":
+                got = ref.v(a) - ref.v(n)  # ngspice with the meter resistance attached
+                tol = max(V_ATOL, V_RTOL * abs(got))
+            else:
+                got = abs(ref.vac(a) - ref.vac(n))  # ngspice AC, r_in ∥ c_in attached
+                tol = max(AC_ATOL, AC_RTOL * got)
+            if not abs(ours[v, k] - got) <= tol:
+                bad.append(f"{label}: {ob.point} {ob.kind} diag {ours[v, k]:.6g}, "
+                           f"ngspice {got:.6g}")
+    return bad
+
+
 @pytest.mark.ngspice
 def test_meter_loading_matches_ngspice(case_path, ngspice):
-    """Each voltage point read by the case's meter: diag's divider formula on
-    solver.thevenin against ngspice with r_in (and c_in for ac) attached there."""
+    """Each point read by the case's meter, nominal and the fault variants above:
+    meter.observe against ngspice with the meter in the netlist."""
     case = load_case(str(case_path))
     circuit = compile_case(case, load_rules())
-    pts = [o for o in case.observables if o.unit == "V"]
-    B = len(pts)
-    dc = solver.solve_dc(circuit, {})
-    ac = solver.solve_ac(circuit, {}, dc) if case.signal is not None else None
-    ours = meter.observe(circuit, {}, dc, ac, pts, case.meter)[0]
-    # B copies of the nominal circuit, copy b with the meter across point b.
-    extra = []
-    for b, ob in enumerate(pts):
-        pt = case.point(ob.point)
-        a = spice.node_name(case, pt.node, b)
-        m = spice.node_name(case, pt.minus or case.ground, b)
-        extra.append(f"R_meter__v{b} {a} {m} {float(case.meter['r_in']):.12g}")
-        if ob.kind == "ac":
-            extra.append(f"C_meter__v{b} {a} {m} {float(case.meter['c_in']):.12g}")
-    text = spice.netlist(circuit, copies=B, extra=extra)
-    ref = ngspice.run_ngspice(text)
-    bad = []
-    for b, ob in enumerate(pts):
-        pt = case.point(ob.point)
-        a = spice.node_name(case, pt.node, b)
-        m = spice.node_name(case, pt.minus or case.ground, b)
-        if ob.kind == "dc":
-            theirs = ref.v(a) - ref.v(m)  # ngspice with the meter resistance attached
-            tol = max(V_ATOL, V_RTOL * abs(theirs))
-        else:
-            theirs = abs(ref.vac(a) - ref.vac(m))
-            tol = max(AC_ATOL, AC_RTOL * theirs)
-        if abs(ours[b] - theirs) > tol:
-            bad.append(f"{ob.point} {ob.kind}: diag {ours[b]:.6g}, ngspice {theirs:.6g}")
+    bad = _meter_check(circuit, _variants(circuit), ngspice)
+    assert not bad, "\n".join(bad)
+
+
+@pytest.mark.ngspice
+def test_meter_loading_through_nearly_off_junctions(ngspice):
+    """The push-pull stage with R6 open: Q3's base is fed only through the bias diodes,
+    nearly off, so the 10 MΩ meter's own microamp moves the operating point (the
+    linearised divider read 2.6 V there). diag re-solves with the meter connected;
+    ngspice, the reference simulator, has the meter resistor in the netlist."""
+    case = load_case(str(CASES_DIR / "pushpull-output.yaml"))
+    circuit = compile_case(case, load_rules())
+    bad = _meter_check(circuit, [("R6 open", {"R6.r": 1e9}), ("R7 open", {"R7.r": 1e9}),
+                                 ("D1 open", {"D1.k": 0.0})], ngspice)
     assert not bad, "\n".join(bad)
 
 

@@ -89,7 +89,8 @@ def draw_unit(engine: Engine, fault_id: str, rng: np.random.Generator) -> Unit:
 
     circ = engine.circuit
     obs = engine.case.observables
-    params = ensemble.draw_unit(circ, _spec(engine, fault_id), 1, rng)
+    params = ensemble.draw_unit(circ, _spec(engine, fault_id), 1, rng,
+                                engine.inf.get("ambient"))
     dc = solver.solve_dc(circ, params)
     ac = solver.solve_ac(circ, params, dc) if any(o.kind == "ac" for o in obs) else None
     x = np.asarray(meter.observe(circ, params, dc, ac, obs, engine.case.meter)[0], float)

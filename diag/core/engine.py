@@ -198,6 +198,7 @@ class Engine:
         self._extra_loaded = False
         self._extra_disk: dict[str, np.ndarray] = {}  # what the extra cache file holds
         self._limits = None
+        self._ref_slip = None
 
     # -- building ------------------------------------------------------------------------
 
@@ -466,19 +467,32 @@ class Engine:
         sp = self._spread if U.shape[0] == self._spread.shape[0] else None
         return infer.score(U, idx, u_read, lp, float(self.inf["blunder"]), W, sp), pri
 
-    def _fit(self, U, sc, idx, u_read) -> float:
+    def _fit(self, U, sc, idx, u_read, ref: dict | None = None) -> float:
+        """Goodness of fit of the leading hypotheses against `ref` (default the
+        ensemble's reference, see faults.yaml `fit_blunders`)."""
         from diag.core import infer
 
         ens = self.ensemble
+        ref = ens.ref if ref is None else ref
         lo, W = self._blunder
         best = 0.0
         sp = self._spread if U.shape[0] == self._spread.shape[0] else None
         for h in np.argsort(-sc.posterior)[:int(self.inf["fit_test_top"])]:
             p = infer.fit_pvalue(U[h], idx, u_read, float(self.inf["blunder"]), lo, W,
-                                 ens.ref["ref_k"], ens.ref["ref_z"], ens.ref["ref_b"],
-                                 ens.ref["ref_w"], None if sp is None else sp[h])
+                                 ref["ref_k"], ref["ref_z"], ref["ref_b"],
+                                 ref["ref_w"], None if sp is None else sp[h])
             best = max(best, p)
         return best
+
+    def _slip_ref(self) -> dict:
+        """The fit reference with blunders at the modelled rate: readings a single fault
+        explains with one slip of the probe pass it."""
+        from diag.core import ensemble
+
+        if self._ref_slip is None:
+            R = len(self.ensemble.ref["ref_k"])
+            self._ref_slip = ensemble.reference_draws(R, len(self.observables), self.seed)
+        return self._ref_slip
 
     def diagnose(self, readings: Sequence[Reading],
                  healthy_prior: float | None = None) -> Diagnosis:
@@ -499,7 +513,11 @@ class Engine:
         pval = self._fit(U, sc, idx, u_read)
         alpha = float(self.inf["fit_alpha"])
         pairs_tried = False
-        if pval < alpha and len(idx):
+        # pairs only when no single fault explains the readings even with one slip: a
+        # slip is likelier than a second fault that happens to match one odd reading
+        if pval < alpha and len(idx) and (
+                self.inf["fit_blunders"] or self._fit(U, sc, idx, u_read,
+                                                      self._slip_ref()) < alpha):
             pairs = self._pair_candidates(U, specs, sc, idx, u_read)
             if pairs:
                 pairs_tried = True

@@ -227,8 +227,9 @@ def apart(U: np.ndarray, q: float, sigmas: float, share: float) -> np.ndarray:
     lo, hi = band_q(U, q)
     need = 1.0 - 2.0 * q
     for qq in (q / 2, q / 5, q / 10, 0.0):  # widen each box until it holds its own units
-        own = np.array([((U[h][ok[h]] >= lo[h] - sigmas) & (U[h][ok[h]] <= hi[h] + sigmas)
-                         ).all(axis=1).mean() if n[h] else 1.0 for h in range(H)])
+        with np.errstate(invalid="ignore"):
+            box = ((U >= lo[:, None, :] - sigmas) & (U <= hi[:, None, :] + sigmas)).all(axis=2)
+        own = np.where(n > 0, (box & ok).sum(axis=1) / np.maximum(n, 1), 1.0)
         short = own < need
         if not short.any():
             break

@@ -83,9 +83,11 @@ class ACResult:
 class _Plan:
     """Everything fixed by the topology: sparsity pattern, elimination steps, devices."""
 
-    def __init__(self, circuit: Circuit):
+    def __init__(self, circuit: Circuit, extra: frozenset = frozenset()):
         self.n = n = len(circuit.unknowns)
         pairs: set[tuple[int, int]] = {(i, i) for i in range(n)}
+        for i, j in extra:                     # branches of `load` between two unknowns
+            pairs |= {(i, j), (j, i)}
         self.devices = []   # (part index, device, node index array (ground -> n))
         parts = zip(circuit.parts, circuit.kinds, circuit.terms, strict=True)
         for pi, (part, kind, t) in enumerate(parts):
@@ -244,11 +246,40 @@ class _Plan:
         return np.moveaxis(out.reshape((D.shape[0],) + b.shape[:-1]), 0, -1)
 
 
-def _plan(circuit: Circuit) -> _Plan:
+def _plan(circuit: Circuit, load_idx: Sequence[tuple[int, int, object]] = ()) -> _Plan:
+    """The circuit's plan; with `load` branches between two non-ground unknowns that the
+    parts do not already join, a plan whose pattern holds them too (cached per pair set)."""
     p = circuit.cache.get("plan")
     if p is None:
         p = circuit.cache["plan"] = _Plan(circuit)
+    extra = frozenset((min(i, j), max(i, j)) for i, j, _ in load_idx
+                      if i >= 0 and j >= 0 and (i, j) not in p.slot)
+    if extra:
+        key = ("plan", extra)
+        q = circuit.cache.get(key)
+        if q is None:
+            q = circuit.cache[key] = _Plan(circuit, extra)
+        p = q
     return p
+
+
+def _load_index(circuit: Circuit, load) -> list[tuple[int, int, object]]:
+    """`load` [(node_a, node_b, y)] as [(unknown a, unknown b, y)]; ground = -1."""
+    return [(circuit.index(a), circuit.index(b), y) for a, b, y in (load or ())]
+
+
+def _stamp_load(plan: _Plan, A: np.ndarray, load_idx) -> None:
+    """Add each extra branch y (siemens, scalar or (B,)) between unknowns i and j to A."""
+    slot = plan.slot
+    for i, j, y in load_idx:
+        y = np.asarray(y)
+        if i >= 0:
+            A[slot[(i, i)]] += y
+        if j >= 0:
+            A[slot[(j, j)]] += y
+        if i >= 0 and j >= 0:
+            A[slot[(i, j)]] -= y
+            A[slot[(j, i)]] -= y
 
 
 # ----------------------------------------------------------------------------- params
@@ -274,9 +305,10 @@ def _batch(circuit: Circuit, params: Mapping[str, object] | None) -> tuple[int, 
     arrs = {}
     fixed = circuit.cache.get("fixed")
     if fixed is None:   # series resistances that are 0 in the model: no internal node exists
+                        # (a transistor's collector and emitter always have one)
         fixed = circuit.cache["fixed"] = {
             k for k, v in circuit.nominal.items()
-            if v == 0.0 and k.rsplit(".", 1)[1] in ("rs", "rb", "rc", "re")}
+            if v == 0.0 and k.rsplit(".", 1)[1] in ("rs", "rb")}
     for k, v in params.items():
         a = np.asarray(v, dtype=float)
         if k in fixed and np.any(a != 0.0):
@@ -543,18 +575,42 @@ def _robust(plan, DP, A_lin, b_lin, x, act, x_start, probe, start=None):
 
 # ----------------------------------------------------------------------------- DC
 
-def solve_dc(circuit: Circuit, params: Mapping[str, object] | None = None) -> DCResult:
+def solve_dc(circuit: Circuit, params: Mapping[str, object] | None = None, *,
+             load: Sequence[tuple[str, str, object]] | None = None,
+             x_start: np.ndarray | None = None) -> DCResult:
     """DC operating point of every variant (see DCResult). Starts from the nominal
-    solution; never raises for a variant that fails (ok False, why says so)."""
-    plan = _plan(circuit)
+    solution; never raises for a variant that fails (ok False, why says so).
+
+    `load` adds branches that are not parts: [(node_a, node_b, g)] with g siemens, a
+    scalar or (B,) per variant, between two case nodes (either may be the ground), e.g. a
+    meter's input. i_supply does not count the current of such a branch. `x_start`
+    (B, n_unknowns) volts, e.g. the unloaded solution (DCResult.x), is where Newton
+    starts instead of the nominal point (non-finite columns start from the nominal)."""
+    load_idx = _load_index(circuit, load)
+    plan = _plan(circuit, load_idx)
     x0 = _nominal_x(circuit, plan)
     B, P = _batch(circuit, params)
+    if x_start is not None:
+        B = max(B, np.shape(x_start)[0])
+    for _, _, g in load_idx:
+        if np.ndim(g):
+            B = max(B, np.shape(g)[0])
     DP = _prepared(plan, P)
     A_lin, b_lin = _linear(circuit, plan, P, B, None)
+    _stamp_load(plan, A_lin, load_idx)
     x = np.repeat(x0[:, None], B, axis=1)
     probe = np.full((plan.n, B), np.nan)
-    DPn = _nominal_dp(circuit, plan)
-    start = [dev.start(DP[q], DPn[q], x[idx]) for q, (_, dev, idx) in enumerate(plan.devices)]
+    if x_start is None:
+        DPn = _nominal_dp(circuit, plan)
+        start = [dev.start(DP[q], DPn[q], x[idx])
+                 for q, (_, dev, idx) in enumerate(plan.devices)]
+    else:
+        xs0 = np.asarray(x_start, dtype=float).T
+        if xs0.shape != (plan.n, B):
+            raise DiagError(f"solve_dc: x_start must be (B, {plan.n}) volts")
+        fin = np.isfinite(xs0).all(axis=0)
+        x[:-1, fin] = xs0[:, fin]
+        start = None
     ok, its = _robust(plan, DP, A_lin, b_lin, x, np.arange(B), x0[:, None], probe, start)
     why: list = [None] * B
     for q in np.flatnonzero(~ok):
@@ -661,9 +717,10 @@ def _floating(circuit, plan, DP, A_lin, x, act, probe) -> dict[int, list[str]]:
 
 # ----------------------------------------------------------------------------- AC
 
-def _ac_matrix(circuit, plan, P, DP, dc, B, act):
+def _ac_matrix(circuit, plan, P, DP, dc, B, act, load_idx=()):
     omega = 2.0 * np.pi * circuit.hz
     A, b = _linear(circuit, plan, P, B, omega)
+    _stamp_load(plan, A, load_idx)
     xp = np.vstack([dc.x.T, np.zeros((1, B))])
     Ad = A[:, act]
     bz = np.zeros((plan.n, act.size), dtype=complex)
@@ -671,10 +728,15 @@ def _ac_matrix(circuit, plan, P, DP, dc, B, act):
     return Ad, b[:, act]
 
 
-def solve_ac(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult) -> ACResult:
+def solve_ac(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult, *,
+             load: Sequence[tuple[str, str, object]] | None = None) -> ACResult:
     """Small-signal node phasors (volts rms) at circuit.hz about each variant's DC
-    operating point, the signal source driving with its vac behind r."""
-    plan = _plan(circuit)
+    operating point, the signal source driving with its vac behind r. `load` adds
+    branches [(node_a, node_b, y)] of y complex siemens at circuit.hz (scalar or (B,)),
+    e.g. a meter's r_in ∥ c_in; `dc` should then be solved with the same branch's DC
+    conductance (solve_dc's `load`)."""
+    load_idx = _load_index(circuit, load)
+    plan = _plan(circuit, load_idx)
     B, P = _batch(circuit, params)
     B = max(B, dc.v.shape[0])
     if dc.v.shape[0] != B:
@@ -683,7 +745,7 @@ def solve_ac(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult
     act = np.flatnonzero(dc.ok)
     x = np.full((B, plan.n), np.nan + 0j)
     if act.size:
-        A, b = _ac_matrix(circuit, plan, P, DP, dc, B, act)
+        A, b = _ac_matrix(circuit, plan, P, DP, dc, B, act, load_idx)
         x[act] = plan.solve(A, b).T
     return ACResult(v=x[:, :circuit.n_nodes], x=x, hz=circuit.hz)
 

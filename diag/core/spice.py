@@ -28,12 +28,14 @@ How each part and fault hook maps (element names are <letter>_<ref>[_<role>]):
 - diode, led, zener: ngspice diode with IS N RS BV IBV. `k = 0` (open) opens the anode
   lead with a 1e12 ohm resistor; `g_sh` > 0 adds a resistor 1/g_sh across the terminals.
 - npn, pnp: ngspice Gummel-Poon with IS BF BR NF NR VAF IKF ISE NE RB RC RE (VAF, IKF
-  infinite or 0 = left out, SPICE's "infinite"). `k_be = 0` opens the emitter lead,
-  `k_bc = 0` the collector lead, each with a 1e12 ohm resistor; `g_be`, `g_bc`, `g_ce` > 0
-  add resistors 1/g between the external terminals (outside the opened leads). (A lifted
-  collector lead is what ngspice then solves; diag's k_bc = 0 also removes the transport
-  current, so the two differ by tens of mV at the base: tests/test_ngspice.py keeps that
-  as a strict xfail. rc = 1e12 on the model's inner collector agrees.)
+  infinite or 0 = left out, SPICE's "infinite"). diag's k_be / k_bc scale the emitter /
+  collector lead conductance (parts/bjt.py): with k = 1 the model's own RE / RC is that
+  lead; otherwise the lead is written out as a resistor max(R, 1 µΩ) / k to an inner
+  node (`R_<ref>_elead`, `R_<ref>_clead`) with RE / RC = 0 in the model, and for k = 0
+  (a lifted lead) there is no lead and the inner node gets diag's GSHUNT to ground
+  (`R_<ref>_eopen`, `R_<ref>_copen`), as in diag. `g_be`, `g_bc`, `g_ce` > 0 add
+  resistors 1/g between the external terminals (outside the leads). (A model with RC or
+  RE = 0 has a 1 µΩ lead in diag and none in ngspice.)
 
 diag's solver also holds every node to ground with solver.GSHUNT siemens; the netlist adds
 that as a resistor at every case node (node_shunts=True), so both solve the same network.
@@ -262,21 +264,34 @@ def _part_lines(case, part, val, nominal_of, var) -> list[str]:
             out.append(res(el("R", "sh"), an, ca, 1.0 / g))
         out.append(f".model {model} D({_model_fields(ref, _DIODE_PARAMS, val)})")
     elif k in ("npn", "pnp"):
+        from diag.core.parts.bjt import LEAD_MIN_OHMS
+        from diag.core.solver import GSHUNT
+
         c, b, e = (n(x) for x in nodes)
         model = f"qm_{tag}{sfx}"
-        c_eff, e_eff = c, e
-        if val(f"{ref}.k_bc", 1.0) == 0:
-            c_eff = inner("c")
-            out.append(res(el("R", "copen"), c, c_eff, OPEN_LEAD_OHMS))
-        if val(f"{ref}.k_be", 1.0) == 0:
-            e_eff = inner("e")
-            out.append(res(el("R", "eopen"), e, e_eff, OPEN_LEAD_OHMS))
-        out.append(f"{el('Q')} {c_eff} {b} {e_eff} {model}")
+        eff = {"c": c, "e": e}
+        own = set()            # leads written out here (the model then has 0 for them)
+        for x, hook in (("c", "k_bc"), ("e", "k_be")):
+            kk = val(f"{ref}.{hook}", 1.0)
+            if kk == 1:
+                continue       # the model's own RC / RE: the same lead
+            own.add(f"r{x}")
+            eff[x] = inner(x)
+            if kk > 0:
+                r = max(val(f"{ref}.r{x}"), LEAD_MIN_OHMS) / kk
+                out.append(res(el("R", f"{x}lead"), n(nodes[0 if x == "c" else 2]), eff[x], r))
+            else:              # lifted: no lead; diag's node shunt holds the inner node
+                out.append(res(el("R", f"{x}open"), eff[x], "0", 1.0 / GSHUNT))
+        out.append(f"{el('Q')} {eff['c']} {b} {eff['e']} {model}")
         for name, x, y in (("g_be", b, e), ("g_bc", b, c), ("g_ce", c, e)):
             g = val(f"{ref}.{name}", 0.0)
             if g > 0:
                 out.append(res(el("R", name[2:]), x, y, 1.0 / g))
-        out.append(f".model {model} {k.upper()}({_model_fields(ref, _BJT_PARAMS, val)})")
+
+        def mval(key: str) -> float:
+            return 0.0 if key.rsplit(".", 1)[1] in own else val(key)
+
+        out.append(f".model {model} {k.upper()}({_model_fields(ref, _BJT_PARAMS, mval)})")
     else:
         raise ValueError(f"{ref}: kind {k!r} has no ngspice mapping in diag.core.spice")
     return out

@@ -3,9 +3,15 @@ junction capacitances, no ISC/VAR/IKR), SPICE meaning of every parameter, so the
 in ngspice gives the same operating point. With VAF, IKF infinite and ISE 0 it is the
 Ebers-Moll transport model.
 
-Fault hooks: k_be, k_bc (1 healthy, 0 = that junction open: its diode current and the
-transport current, which scales with k_be·k_bc, vanish) and shunts g_be, g_bc, g_ce
-(siemens) between the external leads.
+Internal nodes: the collector and emitter always have one (ci, ei) behind the lead
+resistance RC / RE, taken as max(R, 1 µΩ) when the model has 0 (so a fault can always
+lift those leads); the base has bi only when RB > 0.
+
+Fault hooks: k_be, k_bc (1 healthy, 0 = open) scale the conductance of the EMITTER /
+COLLECTOR LEAD (k / max(RE, 1 µΩ) between e and ei, k / max(RC, 1 µΩ) between c and
+ci), as a lifted lead: the junction equations are untouched, so with the collector
+lifted the die saturates inside with Ic = 0 and the base-emitter path carries the base
+current. Shunts g_be, g_bc, g_ce (siemens) sit between the external leads.
 """
 
 from __future__ import annotations
@@ -23,6 +29,7 @@ SPICE_DEFAULTS = {"IS": 1e-16, "BF": 100.0, "BR": 1.0, "NF": 1.0, "NR": 1.0,
                   "RB": 0.0, "RC": 0.0, "RE": 0.0}
 MODEL_NAMES = tuple(SPICE_DEFAULTS)
 ON_CURRENT = 1e-6   # amperes of junction current above which a junction counts as on
+LEAD_MIN_OHMS = 1e-6   # ohms, the lead resistance used where the model has RC / RE = 0
 SAT_VCE = 0.3       # volts; an on transistor below this collector-emitter voltage is saturated
 
 
@@ -37,7 +44,7 @@ class BJT(PartKind):
              "k_be", "k_bc", "g_be", "g_bc", "g_ce")
 
     def internal(self, part, nominal):
-        return tuple(f"{x}i" for x in ("c", "b", "e") if nominal[f"r{x}"] > 0)
+        return tuple(f"{x}i" for x in ("c", "b", "e") if x != "b" or nominal["rb"] > 0)
 
     def nominal(self, part, ctx):
         _, m = model_of(part, ctx, DEFAULT_MODEL[part.kind])
@@ -66,9 +73,9 @@ class BJT(PartKind):
     def dc_stamps(self, part, p, t):
         g = [(t["b"], t["e"], p["g_be"]), (t["b"], t["c"], p["g_bc"]),
              (t["c"], t["e"], p["g_ce"])]
-        for x in ("c", "b", "e"):
+        for x, k in (("c", p["k_bc"]), ("b", 1.0), ("e", p["k_be"])):
             if f"{x}i" in t:
-                g.append((t[x], t[f"{x}i"], 1.0 / np.maximum(p[f"r{x}"], 1e-6)))
+                g.append((t[x], t[f"{x}i"], k / np.maximum(p[f"r{x}"], LEAD_MIN_OHMS)))
         return g, []
 
     def device(self, part, t):
@@ -129,18 +136,10 @@ class BJTDevice:
         it = (cbe - cbc) * iqb
         dit_be = (gbe - it * dqb_be) * iqb
         dit_bc = (-gbc - it * dqb_bc) * iqb
-        kbe, kbc = p["k_be"], p["k_bc"]
-        if not (_is(kbe, 1.0) and _is(kbc, 1.0)):
-            kt = kbe * kbc
-            it, dit_be, dit_bc = kt * it, kt * dit_be, kt * dit_bc
         ibe = cbe / p["bf"] + cben
         gibe = gbe / p["bf"] + gben
         ibc = cbc / p["br"] + GMIN * vbc
         gibc = gbc / p["br"] + GMIN
-        if not _is(kbe, 1.0):
-            ibe, gibe = kbe * ibe, kbe * gibe
-        if not _is(kbc, 1.0):
-            ibc, gibc = kbc * ibc, kbc * gibc
         return it - ibc, ibe + ibc, (dit_be, dit_bc - gibc), (gibe, gibc)
 
     def start(self, p, pn, v):
@@ -166,8 +165,7 @@ class BJTDevice:
         elif limit:
             vbe, l1 = pnjlim(vbe, state[0], p["_vtf"], p["_vcf"])
             vbc, l2 = pnjlim(vbc, state[1], p["_vtr"], p["_vcr"])
-            # an open junction carries nothing: its limiting does not hold convergence
-            limited = (l1 & (p["k_be"] > 0)) | (l2 & (p["k_bc"] > 0))
+            limited = l1 | l2
         ic, ib, (gc_be, gc_bc), (gb_be, gb_bc) = self.currents(p, vbe, vbc)
         s = self.pol
         # terminal currents into the device (leaving the node): c, b, e
@@ -190,8 +188,8 @@ class BJTDevice:
         """Operating region per variant: 'off', 'active', 'saturated' or 'reverse'."""
         vbe, vbc = self.junctions(v)
         is_ = p["is"]
-        be_on = p["k_be"] * is_ * np.expm1(np.minimum(vbe / p["_vtf"], 700)) > ON_CURRENT
-        bc_on = p["k_bc"] * is_ * np.expm1(np.minimum(vbc / p["_vtr"], 700)) > ON_CURRENT
+        be_on = is_ * np.expm1(np.minimum(vbe / p["_vtf"], 700)) > ON_CURRENT
+        bc_on = is_ * np.expm1(np.minimum(vbc / p["_vtr"], 700)) > ON_CURRENT
         vce = vbe - vbc
         return np.where(~be_on & ~bc_on, "off",
                         np.where(be_on & (vce >= SAT_VCE), "active",
