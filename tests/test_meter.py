@@ -131,6 +131,8 @@ def test_observe_applies_divider_loading(tmp_path):
           TP3: {supply: V1, where: "ammeter"}
         """)
     r = _readings(case)
+    # (Rth is 5 % of r_in, so observe re-solves with the meter connected: in a linear
+    # network that must give the divider formula exactly.)
     # Handbook divider by hand: open 10 V · 1M / (2M + 1) behind 1M ∥ (1M + 1) on 10 MΩ
     # (about 5 · 10 / 10.5 = 4.762 V, 4.8 % low).
     # rtol 1e-5: the solver's 1e-12 S node shunts (solver.GSHUNT) move this by ~3 ppm.
@@ -140,6 +142,22 @@ def test_observe_applies_divider_loading(tmp_path):
     assert_allclose(r[0, 1], v_open * 10e6 / (10e6 + r_th), rtol=1e-5)
     # Supply current without the meter: 10 V / (2 MΩ + 1 Ω) (Ohm's law).
     assert_allclose(r[0, 2], 10 / (2e6 + 1), rtol=1e-6)
+
+
+def test_supply_point_reads_with_the_ammeter_burden_in_series(tmp_path):
+    case = _tmp_case(tmp_path, """\
+        case: 1
+        title: burden check
+        about: a 1 V supply into 1 Ω, read through the ammeter
+        parts:
+          V1: {kind: supply, plus: vcc, minus: gnd, volts: 1, r_source: 0.05}
+          R1: {kind: resistor, nodes: [vcc, gnd], ohms: 1}
+        points:
+          TP1: {supply: V1, where: "ammeter"}
+        """)
+    r = _readings(case)
+    # Ohm's law by hand: 1 V over 0.05 Ω source + 0.1 Ω burden (meters.yaml) + 1 Ω load
+    assert_allclose(r[0, 0], 1.0 / (0.05 + 0.1 + 1.0), rtol=1e-6)
 
 
 def test_observe_ac_loading_uses_r_parallel_c(tmp_path):

@@ -229,15 +229,12 @@ def test_meter_loading_through_nearly_off_junctions(ngspice):
 
 
 @pytest.mark.ngspice
-@pytest.mark.xfail(strict=True, reason="known gap: diag's k_bc = 0 is not a lifted collector "
-                   "lead (Vbe 70-95 mV apart); see the docstring")
 def test_open_collector_hook_matches_a_lifted_lead(case_path, ngspice):
-    """Known model gap, reported to the solver and fault engineers: diag's k_bc = 0
-    removes the transport current with the BC diode, while a lifted collector lead
-    (ngspice, 1e12 ohm in the lead) leaves the die saturated inside with Ic = 0, so the
-    base-emitter path conducts about BF/(1+BR) times more and Vbe reads 70-95 mV lower.
-    rc = 1e12 on the model's own inner collector agrees with ngspice (the 'collector lead
-    lifted' variant above). Strict: passing means the gap is closed; drop the marker."""
+    """diag's k_bc = 0 lifts the collector lead (the junctions stay): the die saturates
+    inside with Ic = 0 and the base-emitter path carries the base current. ngspice, the
+    reference simulator, with the collector lead left out of the netlist (and rc = 1e12
+    on the inner collector, the 'collector lead lifted' variant above) agrees; the old
+    transport-scaling hook put the base 70-95 mV off."""
     case = load_case(str(case_path))
     circuit = compile_case(case, load_rules())
     q = _first(case, ("npn", "pnp"))
@@ -299,7 +296,7 @@ def test_other_kinds_match_ngspice(tmp_path, ngspice):
 
 def test_writer_maps_fault_hooks_and_names_variants(case_path):
     """The netlist text itself (no simulator): every case node appears in every copy,
-    and the hooks map as the spice module says (1e12 ohm leads, 1/g shunts)."""
+    and the hooks map as the spice module says (lifted leads, 1/g shunts)."""
     case = load_case(str(case_path))
     circuit = compile_case(case, load_rules())
     q = _first(case, ("npn", "pnp"))
@@ -310,7 +307,9 @@ def test_writer_maps_fault_hooks_and_names_variants(case_path):
     for b in (0, 1):
         for n in case.nodes:
             assert f" {spice.node_name(case, n, b)} " in text
+    # a lifted emitter: the inner node's shunt only, no lead (see diag.core.spice)
     assert f"R_{tag}_eopen__v1 " in text and f"R_{tag}_eopen__v0 " not in text
+    assert f"R_{tag}_elead__v1 " not in text
     assert f"R_{tag}_ce__v1 " in text and text.split(f"R_{tag}_ce__v1 ")[1].split()[2] == "0.25"
     assert text.count(".model ") == 2 * sum(p.kind in ("npn", "pnp", "diode", "led", "zener")
                                             for p in case.parts)
@@ -323,3 +322,43 @@ def test_writer_refuses_unusable_values(case_path):
         spice.netlist(case, {f"{r.ref}.r": 0.0})
     with pytest.raises(ValueError, match="disagree"):
         spice.netlist(case, {f"{r.ref}.r": np.ones(2), f"{r.ref}.r_x": np.ones(3)})
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("extra", [{"IRB": 1e-3, "RBM": 5.0}, {"RBM": 2.0}],
+                         ids=["irb-rbm", "rbm-only"])
+def test_base_resistance_modulation_matches_ngspice(ngspice, extra):
+    """Optional IRB / RBM (SPICE meaning) in a transistor switch whose base is driven
+    from a few ohms to a few hundred ohms (up to tens of mA of base current, where the
+    modulation matters): every node against ngspice, the reference simulator, with the
+    same card."""
+    from test_parts import MODELS, compiled, part
+
+    card = {**MODELS["npn-small"]["params"], "RB": 50.0, **extra}
+    circuit = compiled(part("V1", "supply", ["vcc", "gnd"], 12.0, r_source=0.2),
+                       part("V2", "supply", ["logic", "gnd"], 5.0, r_source=50.0),
+                       part("R1", "resistor", ["logic", "base"], 2.2e3),
+                       part("R2", "resistor", ["base", "gnd"], 10e3),
+                       part("Q1", "npn", ["coil", "base", "gnd"], model=card),
+                       part("K1", "resistor", ["vcc", "coil"], 390.0))
+    labels = ["nominal", "R1 shorted", "R1 100 ohm", "load 39 ohm"]
+    params = {"R1.r": np.array([2.2e3, 1e-3, 100.0, 2.2e3]),
+              "K1.r": np.array([390.0, 390.0, 390.0, 39.0])}
+    dc = solver.solve_dc(circuit, params)
+    ref = ngspice.run_ngspice(spice.netlist(circuit, params))
+    case = circuit.case
+    bad = []
+    for b, label in enumerate(labels):
+        assert dc.ok[b], (label, dc.why[b])
+        for n in case.nodes:
+            ours, theirs = dc.v[b, circuit.node_index[n]], ref.v(spice.node_name(case, n, b))
+            if abs(ours - theirs) > max(V_ATOL, V_RTOL * abs(theirs)):
+                bad.append(f"{label}: {n} diag {ours:.6g} V, ngspice {theirs:.6g} V")
+    assert not bad, "\n".join(bad)
+    # and the modulation is not idle here: with RB constant the base reads differently
+    plain = solver.solve_dc(compiled(*[p for p in circuit.parts if p.ref != "Q1"],
+                                     part("Q1", "npn", ["coil", "base", "gnd"],
+                                          model={**MODELS["npn-small"]["params"],
+                                                 "RB": 50.0})), params)
+    k = circuit.node_index["base"]
+    assert abs(plain.v[1, k] - dc.v[1, k]) > 10 * V_ATOL   # R1 shorted: tens of mA

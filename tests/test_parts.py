@@ -17,7 +17,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import constants
 
-from diag.core import ensemble, netlist
+from diag.core import ensemble, netlist, solver
 from diag.core.case import Case, Part
 from diag.core.parts import REGISTRY, VT, check_models
 from diag.core.parts import base
@@ -264,13 +264,35 @@ def test_bjt_jacobian_matches_finite_differences(kind):
         assert_allclose(J[:, u, 0], fd[:, 0], rtol=1e-4, atol=1e-12)
 
 
-def test_bjt_open_base_emitter_junction_gives_zero_emitter_current():
-    # fault hook (DEVELOPERS.md): k_be = 0 opens the BE junction; the BC diode still
-    # conducts (worked by hand from the transport model: it and ibe scale with k_be)
-    c = compiled(part("Q1", "npn", ["c", "b", "gnd"]))
+def test_bjt_open_hooks_lift_the_leads_and_leave_the_junctions():
+    # fault hooks (DEVELOPERS.md): k_be / k_bc scale the emitter / collector lead
+    # conductance, as a lifted lead; the junction equations are untouched (worked by
+    # hand: a lead of max(R, 1 µΩ) times k)
+    c = compiled(part("Q1", "npn", ["c", "b", "gnd"], model={"IS": 1e-15, "RE": 0.0}))
+    assert {"Q1.ci", "Q1.ei"} <= set(c.unknowns)          # always, even with RE = 0
     p = c.part_nominal("Q1")
-    p.update(k_be=0.0)
+    t = c.terms[0]
+    kind = c.kinds[0]
+    leads = {(i, j): g for i, j, g in kind.dc_stamps(c.parts[0], p, t)[0] if j in
+             (t["ci"], t["ei"])}
+    assert leads[(t["e"], t["ei"])] == pytest.approx(1e6)  # 1 / 1 µΩ
+    p.update(k_be=0.0, k_bc=0.5)
+    leads = {(i, j): g for i, j, g in kind.dc_stamps(c.parts[0], p, t)[0] if j in
+             (t["ci"], t["ei"])}
+    assert leads[(t["e"], t["ei"])] == 0.0
+    assert leads[(t["c"], t["ci"])] == pytest.approx(0.5 / p["rc"] if p["rc"] else 0.5e6)
     p.update(BJTDevice.prepare(p))
-    ic, ib, _, _ = BJTDevice((0, 1, 2), 1.0).currents(p, np.array(0.7), np.array(0.6))
-    assert abs(ic + ib) < 1e-15            # emitter current (ie = -(ic + ib))
-    assert ib > 1e-6                       # BC junction forward: base current flows
+    q = c.part_nominal("Q1")
+    q.update(BJTDevice.prepare(q))
+    dev = BJTDevice((0, 1, 2), 1.0)
+    got = dev.currents(p, np.array(0.7), np.array(0.6))[:2]
+    want = dev.currents(q, np.array(0.7), np.array(0.6))[:2]
+    assert_allclose(got, want, rtol=1e-15)
+    # and in a solve the lifted emitter carries nothing (Kirchhoff: Ie = 0)
+    c2 = compiled(part("V1", "supply", ["vcc", "gnd"], 5.0),
+                  part("R1", "resistor", ["vcc", "b"], 100e3),
+                  part("R2", "resistor", ["vcc", "c"], 1e3),
+                  part("R3", "resistor", ["e", "gnd"], 1e3),
+                  part("Q1", "npn", ["c", "b", "e"]))
+    dc = solver.solve_dc(c2, {"Q1.k_be": 0.0})
+    assert abs(dc.v[0, c2.node_index["e"]]) < 1e-9         # no current through R3

@@ -238,3 +238,35 @@ def test_a_series_resistance_absent_from_the_model_cannot_be_varied():
     with pytest.raises(DiagError, match="D1.rs cannot change"):
         solver.solve_dc(c, {"D1.rs": np.array([0.0, 1.0])})
     assert solver.solve_dc(c, {"D1.rs": np.zeros(2)}).ok.all()
+
+
+def test_load_branch_is_the_same_as_a_resistor_part():
+    """solve_dc / solve_ac `load`: a conductance (DC) or admittance (AC) between two
+    nodes per variant stamps exactly as a resistor (and capacitor) part there would
+    (modified nodal analysis, worked by hand: the same matrix entries)."""
+    base = [part("V1", "supply", ["vcc", "gnd"], 12.0, r_source=0.5),
+            part("V2", "signal", ["in", "gnd"], 0.1),
+            part("C0", "capacitor", ["in", "b"], 1e-6),
+            part("R1", "resistor", ["vcc", "b"], 470e3),
+            part("R2", "resistor", ["b", "gnd"], 100e3),
+            part("Q1", "npn", ["c", "b", "e"]),
+            part("RC", "resistor", ["vcc", "c"], 4.7e3),
+            part("RE", "resistor", ["e", "gnd"], 1e3)]
+    c = compiled(*base)
+    with_r = compiled(*base, part("RM", "resistor", ["b", "e"], 1e6),
+                      part("CM", "capacitor", ["b", "e"], 100e-12))
+    g = np.array([1e-6, 0.0])                       # variant 1: no load at all
+    # (agreement to 1e-6: each solve stops within the Newton tolerance, solver.RELTOL)
+    dc = solver.solve_dc(c, load=[("b", "e", g)])
+    ref = solver.solve_dc(with_r, {"CM.leak": 1e30})
+    bare = solver.solve_dc(c)
+    assert_allclose(dc.v[0], ref.v[0], rtol=1e-6, atol=1e-9)
+    assert_allclose(dc.v[1], bare.v[0], rtol=1e-6, atol=1e-9)
+    # starting Newton from the loaded answer itself changes nothing
+    again = solver.solve_dc(c, load=[("b", "e", g)], x_start=dc.x)
+    assert_allclose(again.v, dc.v, rtol=1e-6, atol=1e-9)
+    y = g + 1j * 2 * np.pi * c.hz * 100e-12 * (g > 0)
+    ac = solver.solve_ac(c, {}, dc, load=[("b", "e", y)])
+    ac_ref = solver.solve_ac(with_r, {"CM.leak": 1e30}, ref)
+    assert_allclose(ac.v[0], ac_ref.v[0], rtol=1e-6, atol=1e-12)
+    assert_allclose(ac.v[1], solver.solve_ac(c, {}, bare).v[0], rtol=1e-6, atol=1e-12)

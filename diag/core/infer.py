@@ -213,14 +213,15 @@ def band_q(U: np.ndarray, q: float) -> tuple[np.ndarray, np.ndarray]:
 def apart(U: np.ndarray, q: float, sigmas: float, share: float) -> np.ndarray:
     """(H, H) bool: hypotheses i and j can be told apart by the offered readings.
 
-    j's region is the smallest box of central per-observable bands (q'..1-q' with q' <=
-    q) that holds at least 1 - 2q of j's own units at every observable at once (per-
-    observable q..1-q bands alone leave out many more than 2q of the units when there
-    are many observables), widened by `sigmas` noise widths each side. i and j are apart when fewer than `share` of i's
-    units fall inside j's region and fewer than `share` of j's inside i's: then the
-    offered readings usually tell which it is. When most units of one (say a mild
-    R1:high, or a leak whose range lies inside another's) read like the other, no
-    reading can be relied on to split them. Failed hypotheses are apart from all."""
+    j's region is a box of central per-observable bands q'..1-q', q' the first of q,
+    q/2, q/5, q/10, 0 whose box (widened by `sigmas` noise widths each side) holds at
+    least 1 - 2q of j's own units at every observable at once: q..1-q bands alone leave
+    out many more than 2q of the units when there are many observables. i and j are
+    apart when fewer than `share` of i's units fall inside j's region and fewer than
+    `share` of j's inside i's: then the offered readings usually tell which it is.
+    When most units of one (say a mild R1:high, or a leak whose range lies inside
+    another's) read like the other, no reading can be relied on to split them. Failed
+    hypotheses are apart from all."""
     H = U.shape[0]
     ok = np.isfinite(U).all(axis=2)  # (H, K)
     n = ok.sum(axis=1)

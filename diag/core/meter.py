@@ -131,6 +131,11 @@ LOAD_EXACT = 1e-3   # divider correction (Rth / (Rth + r_in), or the burden's sh
                     # agreement target (common practice, no source)
 
 
+LINEAR_START = 0.05  # up to this divider correction Newton starts from the linearised
+                     # loaded state, beyond it from the unloaded one (far from linear, the
+                     # extrapolation overshoots and junction limiting crawls back)
+
+
 def _rows(params: Mapping[str, Any], idx: np.ndarray, B: int) -> dict[str, Any]:
     """params restricted to variants idx (scalars and 1-element arrays stay as they are)."""
     out = {}
@@ -190,7 +195,7 @@ def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     r_in = float(input_impedance(meter))
     pairs = list(volt_cols)
     if pairs:
-        rth = np.asarray(solver.thevenin(circuit, params, dc, pairs), dtype=float)
+        rth, resp = solver.thevenin(circuit, params, dc, pairs, columns=True)
         ac_pairs = [p for p in pairs if any(k == "ac" for _, k in volt_cols[p])]
         zth = (np.asarray(solver.thevenin(circuit, params, dc, ac_pairs, ac=ac))
                if ac_pairs else None)
@@ -208,9 +213,18 @@ def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
                 frac = np.abs(rth[:, j]) / (np.abs(rth[:, j]) + r_in)
             idx = np.flatnonzero(ok & ~(frac <= LOAD_EXACT))
             if idx.size:
-                again.append((pair, idx))
+                # Newton starts from the linearised loaded state (the unloaded solution
+                # moved by the meter's current, divider reading / r_in, times the
+                # transfer resistances; exact where the circuit is linear), or from the
+                # unloaded solution where the correction is large
+                v_open = (volts(dc.v, a) - volts(dc.v, b))[idx]
+                i_m = loaded(v_open, rth[idx, j], r_in) / r_in
+                x0 = dc.x[idx] - i_m[:, None] * resp[idx, j]
+                far = frac[idx] > LINEAR_START
+                x0[far] = dc.x[idx][far]
+                again.append((pair, idx, x0))
         if again:
-            _reload(circuit, params, dc, B, again, volt_cols, r_in, zin, out)
+            _reload(circuit, params, B, again, volt_cols, r_in, zin, out)
     burden = float(meter.get("a_burden", 0.0) or 0.0)
     if supply_cols and burden > 0.0:
         for ref, cols in supply_cols.items():
@@ -219,22 +233,24 @@ def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     return out
 
 
-def _reload(circuit, params, dc, B, again, volt_cols, r_in, zin, out) -> None:
-    """Readings at each (pair, variants idx) of `again` from solves with the meter
-    connected there: one batched solve for all of them (variant rows stacked, each row's
-    meter branch at its own pair, the other pairs' branches 0 S)."""
+def _reload(circuit, params, B, again, volt_cols, r_in, zin, out) -> None:
+    """Readings at each (pair, variants idx, starting state) of `again` from solves with
+    the meter connected there: one batched solve for all of them (variant rows stacked,
+    each row's meter branch at its own pair, the other pairs' branches 0 S)."""
     from diag.core import solver
 
-    rows = np.concatenate([idx for _, idx in again])
-    seg = np.repeat(np.arange(len(again)), [idx.size for _, idx in again])
+    rows = np.concatenate([idx for _, idx, _ in again])
+    seg = np.repeat(np.arange(len(again)), [idx.size for _, idx, _ in again])
     sub = _rows(params, rows, B)
     load = [(a, b, np.where(seg == j, 1.0 / r_in, 0.0))
-            for j, ((a, b), _) in enumerate(again)]
-    dcl = solver.solve_dc(circuit, sub, load=load, x_start=dc.x[rows])
+            for j, ((a, b), _, _) in enumerate(again)]
+    x0 = np.concatenate([x for _, _, x in again])
+    dcl = solver.solve_dc(circuit, sub, load=load, x_start=x0)
     good = np.asarray(dcl.ok, bool)        # where the loaded solve fails, keep the divider
     acl = None
-    if any(k == "ac" for pair, _ in again for _, k in volt_cols[pair]):
-        yac = [(a, b, np.where(seg == j, 1.0 / zin, 0.0)) for j, ((a, b), _) in enumerate(again)]
+    if any(k == "ac" for pair, _, _ in again for _, k in volt_cols[pair]):
+        yac = [(a, b, np.where(seg == j, 1.0 / zin, 0.0))
+               for j, ((a, b), _, _) in enumerate(again)]
         acl = solver.solve_ac(circuit, sub, dcl, load=yac)
 
     def diff(v, a, b):
@@ -242,7 +258,7 @@ def _reload(circuit, params, dc, B, again, volt_cols, r_in, zin, out) -> None:
         vb = v[:, circuit.node_index[b]] if b != circuit.ground else 0.0
         return va - vb
 
-    for j, (pair, idx) in enumerate(again):
+    for j, (pair, idx, _) in enumerate(again):
         mine = (seg == j) & good
         for m, kind in volt_cols[pair]:
             got = diff(dcl.v, *pair) if kind == "dc" else np.abs(diff(acl.v, *pair))

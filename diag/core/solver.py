@@ -753,10 +753,14 @@ def solve_ac(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult
 # ----------------------------------------------------------------------------- Thevenin
 
 def thevenin(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult,
-             pairs: Sequence[tuple[str, str]], ac: ACResult | None = None) -> np.ndarray:
+             pairs: Sequence[tuple[str, str]], ac: ACResult | None = None, *,
+             columns: bool = False):
     """Impedance seen between each (node_plus, node_minus) pair at each variant's
     operating point: (B, P) ohms from the DC Jacobian, or complex ohms at circuit.hz when
-    `ac` is given. Either node may be the ground. NaN where the DC point is not ok."""
+    `ac` is given. Either node may be the ground. NaN where the DC point is not ok.
+    With `columns`, returns (impedances, transfer) where transfer (B, P, n_unknowns) is
+    the change of every unknown per ampere driven into node_plus and out of node_minus
+    (volts per ampere, the linearised response)."""
     plan = _plan(circuit)
     B, P = _batch(circuit, params)
     B = max(B, dc.v.shape[0])
@@ -765,8 +769,9 @@ def thevenin(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult
     idx = [(circuit.index(a), circuit.index(b)) for a, b in pairs]
     dtype = complex if ac is not None else float
     out = np.full((B, len(idx)), np.nan, dtype=dtype)
+    cols = np.full((B, len(idx), plan.n), np.nan, dtype=dtype) if columns else None
     if act.size == 0 or not idx:
-        return out
+        return (out, cols) if columns else out
     if ac is None:
         A_lin, _ = _linear(circuit, plan, P, B, None)
         xp = np.vstack([dc.x.T, np.zeros((1, B))])
@@ -784,6 +789,9 @@ def thevenin(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult
         zi = y[i, k] if i >= 0 else 0.0
         zj = y[j, k] if j >= 0 else 0.0
         out[act, k] = zi - zj
+    if columns:
+        cols[act] = y.transpose(2, 1, 0)
+        return out, cols
     return out
 
 

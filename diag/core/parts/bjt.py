@@ -1,7 +1,16 @@
-"""Bipolar transistors: a Gummel-Poon subset (IS BF BR NF NR VAF IKF ISE NE RB RC RE; no
-junction capacitances, no ISC/VAR/IKR), SPICE meaning of every parameter, so the same card
-in ngspice gives the same operating point. With VAF, IKF infinite and ISE 0 it is the
-Ebers-Moll transport model.
+"""Bipolar transistors: a Gummel-Poon subset (IS BF BR NF NR VAF IKF ISE NE RB RC RE, and
+optionally IRB RBM; no junction capacitances, no ISC/VAR/IKR), SPICE meaning of every
+parameter, so the same card in ngspice gives the same operating point. With VAF, IKF
+infinite and ISE 0 it is the Ebers-Moll transport model.
+
+Base-resistance modulation (SPICE): the base resistance is RBM + (RB - RBM) / qb, or,
+with IRB given, RBM + 3 (RB - RBM) (tan z - z) / (z tan² z) with
+z = (-1 + sqrt(1 + 144 ib / (π² IRB))) / (24 / π² · sqrt(ib / IRB)), ib the intrinsic
+base current. RBM defaults to RB and IRB to infinite (0 = not given), as in SPICE, so
+the generic models keep a constant RB. Only a model that gives IRB or an RBM below RB
+gets the modulated resistance, evaluated as SPICE does (a conductance updated every
+Newton iteration, its dependence on ib left out of the Jacobian, so the small-signal
+Thevenin resistance at the base leaves that dependence out too).
 
 Internal nodes: the collector and emitter always have one (ci, ei) behind the lead
 resistance RC / RE, taken as max(R, 1 µΩ) when the model has 0 (so a fault can always
@@ -26,7 +35,8 @@ from diag.core.parts.diode import model_of, model_spread
 DEFAULT_MODEL = {"npn": "npn-small", "pnp": "pnp-small"}
 SPICE_DEFAULTS = {"IS": 1e-16, "BF": 100.0, "BR": 1.0, "NF": 1.0, "NR": 1.0,
                   "VAF": math.inf, "IKF": math.inf, "ISE": 0.0, "NE": 1.5,
-                  "RB": 0.0, "RC": 0.0, "RE": 0.0}
+                  "RB": 0.0, "RC": 0.0, "RE": 0.0,
+                  "IRB": math.inf, "RBM": 0.0}     # RBM: when not given, RB (below)
 MODEL_NAMES = tuple(SPICE_DEFAULTS)
 ON_CURRENT = 1e-6   # amperes of junction current above which a junction counts as on
 LEAD_MIN_OHMS = 1e-6   # ohms, the lead resistance used where the model has RC / RE = 0
@@ -41,7 +51,7 @@ def _is(value, const: float) -> bool:
 class BJT(PartKind):
     kinds = ("npn", "pnp")
     names = ("is", "bf", "br", "nf", "nr", "vaf", "ikf", "ise", "ne", "rb", "rc", "re",
-             "k_be", "k_bc", "g_be", "g_bc", "g_ce")
+             "irb", "rbm", "k_be", "k_bc", "g_be", "g_bc", "g_ce")
 
     def internal(self, part, nominal):
         return tuple(f"{x}i" for x in ("c", "b", "e") if x != "b" or nominal["rb"] > 0)
@@ -49,8 +59,10 @@ class BJT(PartKind):
     def nominal(self, part, ctx):
         _, m = model_of(part, ctx, DEFAULT_MODEL[part.kind])
         q = {**SPICE_DEFAULTS, **{k.upper(): v for k, v in m.items()}}
+        if "RBM" not in {k.upper() for k in m}:
+            q["RBM"] = q["RB"]
         out = {k.lower(): float(q[k]) for k in MODEL_NAMES}
-        for k in ("vaf", "ikf"):       # SPICE: 0 means infinite
+        for k in ("vaf", "ikf", "irb"):       # SPICE: 0 means infinite
             if out[k] == 0.0:
                 out[k] = math.inf
         hfe = part.fields.get("hfe")
@@ -74,21 +86,63 @@ class BJT(PartKind):
         g = [(t["b"], t["e"], p["g_be"]), (t["b"], t["c"], p["g_bc"]),
              (t["c"], t["e"], p["g_ce"])]
         for x, k in (("c", p["k_bc"]), ("b", 1.0), ("e", p["k_be"])):
+            if x == "b" and modulated(part):
+                continue                       # the device carries the base resistance
             if f"{x}i" in t:
                 g.append((t[x], t[f"{x}i"], k / np.maximum(p[f"r{x}"], LEAD_MIN_OHMS)))
         return g, []
 
     def device(self, part, t):
-        return BJTDevice(tuple(t.get(f"{x}i", t[x]) for x in ("c", "b", "e")),
-                         1.0 if part.kind == "npn" else -1.0)
+        nodes = tuple(t.get(f"{x}i", t[x]) for x in ("c", "b", "e"))
+        if modulated(part):
+            nodes += (t["b"],)
+        return BJTDevice(nodes, 1.0 if part.kind == "npn" else -1.0)
+
+
+def modulated(part) -> bool:
+    """True when the part's model gives base-resistance modulation (RB > 0 and IRB given
+    or RBM below RB); decided from the model at compile time."""
+    m = {k.upper(): v for k, v in (part.model or {}).items() if k != "name"}
+    rb = float(m.get("RB", 0.0) or 0.0)
+    irb = float(m.get("IRB", 0.0) or 0.0)
+    rbm = float(m.get("RBM", rb))
+    return rb > 0 and (0 < irb < math.inf or rbm < rb)
 
 
 class BJTDevice:
-    """The intrinsic transistor between (c', b', e') unknowns."""
+    """The intrinsic transistor between (c', b', e') unknowns; with a fourth node (the
+    external base b) it also carries the modulated base resistance between b and b'."""
 
     def __init__(self, nodes, polarity):
         self.nodes = tuple(nodes)
         self.pol = polarity
+        self.rbb = len(self.nodes) == 4
+
+    @staticmethod
+    def base_resistance(p, ib, qb):
+        """SPICE's modulated base resistance (ohms) at intrinsic base current ib (A,
+        npn sense) and base charge qb."""
+        rb, rbm = p["rb"], p["rbm"]
+        irb = p["irb"]
+        if _is(irb, math.inf):
+            return rbm + (rb - rbm) / qb
+        arg1 = np.maximum(ib / irb, 1e-9)
+        z = (-1.0 + np.sqrt(1.0 + 14.59025 * arg1)) / 2.4317 / np.sqrt(arg1)
+        tz = np.tan(z)
+        rbb = rbm + 3.0 * (rb - rbm) * (tz - z) / z / tz / tz
+        if isinstance(irb, np.ndarray):   # a variant without IRB: the qb form
+            rbb = np.where(np.isfinite(irb), rbb, rbm + (rb - rbm) / qb)
+        return rbb
+
+    @staticmethod
+    def qb(p, vbe, vbc):
+        """Normalised base charge qb (SPICE Gummel-Poon), as in `currents`."""
+        inv_vaf, inv_ikf = 1.0 / p["vaf"], 1.0 / p["ikf"]
+        q1 = 1.0 if _is(inv_vaf, 0.0) else 1.0 / (1.0 - inv_vaf * vbc)
+        if _is(inv_ikf, 0.0):
+            return q1 * np.ones(np.shape(vbe))
+        cbe = p["is"] * (safe_exp(vbe / p["_vtf"])[0] - 1.0)
+        return 0.5 * q1 * (1.0 + np.sqrt(np.maximum(1.0 + 4.0 * inv_ikf * cbe, 1e-12)))
 
     @staticmethod
     def prepare(p):
@@ -182,6 +236,14 @@ class BJTDevice:
         ieq = (Ic - (jc[0] * vc_ + jc[1] * vb_),
                Ib - (jb[0] * vc_ + jb[1] * vb_),
                Ie - (je[0] * vc_ + je[1] * vb_))
+        if self.rbb:   # gx between b (index 3) and b' (index 1), SPICE's update
+            gx = 1.0 / self.base_resistance(p, ib, self.qb(p, vbe, vbc))
+            z = np.zeros(np.shape(gx))
+            J = ((jc[0], jc[1], jc[2], z),
+                 (jb[0], jb[1] + gx, jb[2], -gx),
+                 (je[0], je[1], je[2], z),
+                 (z, -gx, z, gx))
+            ieq = ieq + (z,)
         return J, ieq, (vbe, vbc), limited
 
     def region(self, p, v):
