@@ -160,7 +160,6 @@ def _meter_check(circuit, variants, ngspice):
     max(1 µA, 0.2 %) for currents)."""
     case = circuit.case
     pts = list(case.observables)
-    P, V = len(pts), len(variants)
     m = case.meter
     keys = {k for _, o in variants for k in o}
     for ob in pts:

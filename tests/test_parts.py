@@ -19,8 +19,7 @@ from scipy import constants
 
 from diag.core import ensemble, netlist, solver
 from diag.core.case import Case, Part
-from diag.core.parts import REGISTRY, VT, check_models
-from diag.core.parts import base
+from diag.core.parts import REGISTRY, VT, base, check_models
 from diag.core.parts.base import T_KELVIN, pnjlim
 from diag.core.parts.bjt import BJTDevice
 from diag.core.parts.passive import electrolytic_leak_limit

@@ -207,7 +207,8 @@ DEFAULT_MODEL: Mapping[str, str] = MappingProxyType({
     "npn": "npn-small", "pnp": "pnp-small", "diode": "si-diode", "led": "led-red",
     "zener": "zener",
 })
-BIPOLAR_PARAMS = ("IS", "BF", "BR", "NF", "NR", "VAF", "IKF", "ISE", "NE", "RB", "RC", "RE")
+BIPOLAR_PARAMS = ("IS", "BF", "BR", "NF", "NR", "VAF", "IKF", "ISE", "NE", "RB", "RC", "RE",
+                  "IRB", "RBM")
 DIODE_PARAMS = ("IS", "N", "RS", "BV", "IBV")
 # Model parameters that must be strictly positive (the others may be 0).
 _POSITIVE_PARAMS = frozenset({"IS", "BF", "NF", "NR", "N", "NE"})

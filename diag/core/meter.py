@@ -92,7 +92,8 @@ def display(values: Any, kind: str, meter: Mapping[str, Any], unit: str,
     The meter error is drawn uniformly within ±accuracy (a specification bound, not a
     Gaussian); the result is rounded to the display resolution of the range the meter
     autoranges to for the shown value. A reading over the top range shows "OL", returned
-    as ±inf (sign of the value); an AC (rms) reading never shows below 0; NaN (a variant that did not solve) stays NaN. The random
+    as ±inf (sign of the value); an AC (rms) reading never shows below 0; NaN (a variant
+    that did not solve) stays NaN. The random
     draw is meter display noise only; `rng` is the caller's seeded Generator.
     """
     v = np.asarray(values, dtype=float)
@@ -258,7 +259,7 @@ def _reload(circuit, params, B, again, volt_cols, r_in, zin, out) -> None:
         vb = v[:, circuit.node_index[b]] if b != circuit.ground else 0.0
         return va - vb
 
-    for j, (pair, idx, _) in enumerate(again):
+    for j, (pair, _, _) in enumerate(again):
         mine = (seg == j) & good
         for m, kind in volt_cols[pair]:
             got = diff(dcl.v, *pair) if kind == "dc" else np.abs(diff(acl.v, *pair))

@@ -18,6 +18,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+
 # Boltzmann constant and elementary charge: exact by definition in the SI since 2019
 # (CODATA 2018); written out so importing the core does not import scipy (about 0.4 s).
 # tests/test_parts.py checks them against scipy.constants.
