@@ -72,3 +72,24 @@ def test_gain_uses_each_hypothesis_kernel_width():
     mi = 0.5 * np.sum(p0 * np.log2(p0 / m)) + 0.5 * np.sum(p1 * np.log2(p1 / m))
     assert sharp > 0.9
     assert wide == pytest.approx(mi, abs=0.02)
+
+
+def test_gain_counts_the_blunder_term_of_the_likelihood():
+    """Two equally likely hypotheses 200 noise widths apart. Without blunders the reading
+    splits them (1 bit); when any reading may be a blunder with probability eps, spread
+    uniformly over a range W, a reading far from both predictions is uninformative and
+    the gain is the mutual information of the two laws (1 - eps) N(mu_h, 1) + eps / W on
+    that range (numerical integration worked here with numpy, no histogram)."""
+    u = np.repeat(np.array([0.0, 200.0])[:, None], 16, axis=1)
+    w = np.full((2, 16), 1 / 32)
+    eps, W, lo = 0.1, 1000.0, -400.0
+    g = advise.gain(u, w, eps=eps, W=W)
+    y = np.linspace(lo, lo + W, 400001)
+    dy = y[1] - y[0]
+    p0 = (1 - eps) * np.exp(-0.5 * y ** 2) / np.sqrt(2 * np.pi) + eps / W
+    p1 = (1 - eps) * np.exp(-0.5 * (y - 200.0) ** 2) / np.sqrt(2 * np.pi) + eps / W
+    m = 0.5 * (p0 + p1)
+    mi = 0.5 * np.sum(p0 * np.log2(p0 / m)) * dy + 0.5 * np.sum(p1 * np.log2(p1 / m)) * dy
+    assert advise.gain(u, w) == pytest.approx(1.0, abs=1e-3)  # H(1/2, 1/2) = 1 bit
+    assert mi < 0.95
+    assert g == pytest.approx(mi, abs=0.01)

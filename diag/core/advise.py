@@ -8,9 +8,11 @@ the reading and the group of the hypothesis (the engine passes the groups formed
 the leading suspects: telling apart what no offered reading can split earns nothing),
 computed on a histogram of u in half-noise-width bins, each hypothesis's row smoothed by
 the Gaussian kernel the likelihood will give that reading once taken (unit noise widened
-by the hypothesis's bandwidth, infer.bandwidth with one reading more), so the advice
-expects exactly the update that follows. An observable every hypothesis predicts alike
-gains 0 bits.
+by the hypothesis's bandwidth, infer.bandwidth with one reading more) and mixed with the
+likelihood's blunder term (probability eps spread over the observable's blunder range W,
+in one more bin for the part of W outside the histogram), so the advice expects exactly
+the update that follows: a split the blunder term would blur earns less. An observable
+every hypothesis predicts alike gains 0 bits.
 """
 
 from __future__ import annotations
@@ -59,11 +61,14 @@ def _smooth_rows(a: np.ndarray, sigma: np.ndarray) -> np.ndarray:
 
 
 def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9,
-         labels: np.ndarray | None = None, width: np.ndarray | None = None) -> float:
+         labels: np.ndarray | None = None, width: np.ndarray | None = None,
+         eps: float = 0.0, W: float | None = None) -> float:
     """Mutual information (bits) between the hypothesis (or its group, when `labels`
     (H,) gives each hypothesis's group) and a new reading whose units' predictions are
     u_j (H, K) in u coordinates with weights w (H, K); `width` (H,) is each hypothesis's
-    kernel width in noise widths (1 when not given: meter and model noise only)."""
+    kernel width in noise widths (1 when not given: meter and model noise only); `eps`
+    the blunder probability spread uniformly over a range of width W (u units; none
+    when eps is 0 or W not given)."""
     keep = (w > tiny) & np.isfinite(u_j)
     if not keep.any():
         return 0.0
@@ -92,6 +97,11 @@ def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9,
         summed = np.zeros((lab.max() + 1, nb))
         np.add.at(summed, lab, joint)
         joint = summed
+    if eps > 0 and W is not None and W > 0:  # the likelihood's blunder term, per row
+        mass = joint.sum(axis=1, keepdims=True)
+        inside = min(1.0, nb * bw / float(W))
+        joint = np.hstack([(1.0 - eps) * joint + eps * mass * (bw / float(W)),
+                           eps * mass * (1.0 - inside)])
     total = joint.sum()
     if total <= 0:
         return 0.0
@@ -105,9 +115,12 @@ def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9,
 
 
 def gains(U: np.ndarray, w: np.ndarray, untaken: np.ndarray,
-          labels: np.ndarray | None = None, width: np.ndarray | None = None) -> np.ndarray:
+          labels: np.ndarray | None = None, width: np.ndarray | None = None,
+          eps: float = 0.0, W: np.ndarray | None = None) -> np.ndarray:
     """Expected gain (bits) of each untaken observable index (len(untaken),); about the
-    group when `labels` is given; `width` (H, M) kernel widths (see `gain`)."""
+    group when `labels` is given; `width` (H, M) kernel widths, `eps` and W (M,) the
+    blunder term (see `gain`)."""
     return np.array([gain(U[:, :, j], w, labels=labels,
-                          width=None if width is None else width[:, j])
+                          width=None if width is None else width[:, j],
+                          eps=eps, W=None if W is None else float(W[j]))
                      for j in untaken], dtype=float)

@@ -653,7 +653,8 @@ class Engine:
 
         sp = self._spread if U.shape[0] == self._spread.shape[0] else None
         width = np.sqrt(1.0 + infer.bandwidth(U, len(idx) + 1, sp) ** 2)  # once taken
-        bits = advise.gains(U, w, untaken, labels=group, width=width)
+        bits = advise.gains(U, w, untaken, labels=group, width=width,
+                            eps=float(self.inf["blunder"]), W=self._blunder[1])
         out = []
         samples = [self.ensemble.samples]
         if U.shape[0] > self.ensemble.samples.shape[0]:
