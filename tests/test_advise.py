@@ -93,3 +93,13 @@ def test_gain_counts_the_blunder_term_of_the_likelihood():
     assert advise.gain(u, w) == pytest.approx(1.0, abs=1e-3)  # H(1/2, 1/2) = 1 bit
     assert mi < 0.95
     assert g == pytest.approx(mi, abs=0.01)
+
+
+def test_group_sum_is_the_sum_np_add_at_forms():
+    rng = np.random.default_rng(3)
+    joint = rng.uniform(size=(40, 300)) * (rng.uniform(size=(40, 1)) < 0.8)
+    lab = np.concatenate([np.arange(12), rng.integers(0, 12, 28)])
+    rng.shuffle(lab)
+    want = np.zeros((12, 300))
+    np.add.at(want, lab, joint)  # numpy's unbuffered in-place sum, the former path
+    np.testing.assert_allclose(advise._group_sum(joint, lab), want, rtol=1e-13, atol=0)

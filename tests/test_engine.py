@@ -242,3 +242,28 @@ def test_pair_ensembles_are_cached_on_disk(tmp_path, monkeypatch):
 
     monkeypatch.setattr(e2, "_solve", no_solve)
     assert e2.bands("K1:open+R1:open") == first
+
+
+def test_kept_fit_references_and_extended_groups_give_the_direct_answer(monkeypatch):
+    """The engine keeps goodness-of-fit references per (hypothesis, readings taken) and
+    extends the built `apart` matrix by the pairs' rows only; an engine that computes
+    both afresh every time (the former path) gives the same diagnosis, pairs included."""
+    from diag.core import infer
+
+    fast = Engine(load_case(RELAY), K=K, seed=0)
+    units = [fast.simulate(f, np.random.default_rng(s)) for f, s in
+             (("R1:open+V1:low", 11), ("K1:open", 5), ("healthy", 2))]
+    units.append(units[0][:2])
+    got = [fast.diagnose(u) for u in units + units]  # the second round from the caches
+
+    slow = Engine(load_case(RELAY), K=K, seed=0)
+    plain_fit = Engine._fit
+    monkeypatch.setattr(Engine, "_fit", lambda self, U, sc, idx, u, ref=None, specs=None:
+                        plain_fit(self, U, sc, idx, u, ref, None))
+    monkeypatch.setattr(infer, "apart_extend", lambda U, ap, lo, hi, q, sig, share:
+                        infer.apart(U, q, sig, share))
+    want = [slow.diagnose(u) for u in units + units]
+    assert any(d.extra["pairs_tried"] for d in want)
+    for a, b in zip(got, want, strict=True):
+        assert a.to_json("c") == b.to_json("c")
+        assert a.extra["p_value"] == b.extra["p_value"]

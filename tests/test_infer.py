@@ -185,3 +185,53 @@ def test_one_law_is_one_group_however_many_observables():
     far = U.copy()
     far[1] += 200.0  # ten spreads away on every observable
     assert infer.apart(far, 0.05, 1.0, 0.5)[0, 1]
+
+
+def _fit_pvalue_direct(U_h, taken, u_read, lo, W, rk, rz, rb, rw):
+    """The predictive p-value as its definition reads (infer.py docstring), computed in
+    one go: the reference statistics compared with the observed one by `<=`."""
+    U = U_h[np.all(np.isfinite(U_h), axis=1)][:, taken]
+    K = U.shape[0]
+    s = np.sqrt(1.0 + infer.bandwidth(U_h[np.all(np.isfinite(U_h), axis=1)][None],
+                                      len(taken))[0, taken] ** 2)
+    obs = infer._logmeanexp(infer._log_kernel(U, u_read, s, EPS, W[taken]), np.array(K))
+    k = rk % K
+    sim = np.where(rb[:, taken] < EPS, lo[taken] + rw[:, taken] * W[taken],
+                   U[k] + rz[:, taken])
+    llk = infer._log_kernel(U[None], sim, s[None], EPS, W[taken])
+    llk[np.arange(len(k)), k] = -np.inf
+    ref = infer._logmeanexp(llk, np.array(K - 1))
+    return (np.sum(ref <= obs) + 1) / (len(ref) + 1)
+
+
+def test_kept_fit_reference_gives_the_direct_p_value():
+    """fit_reference once per taken set, then fit_pvalue_from per reading set: the same
+    p-value as the direct computation, for readings that fit, miss and slip."""
+    U = cloud(CENTRES, K=64, spread=1.5, seed=5)
+    U[1, :3, 2] = np.nan  # failed units are left out of both
+    lo, W = infer.blunder_range(U)
+    rk, rz, rb, rw = _ref(256, 4, 2)
+    rng = np.random.default_rng(9)
+    for h in range(5):
+        for taken in (np.array([0, 2]), np.arange(4)):
+            fr = infer.fit_reference(U[h], taken, EPS, lo, W, rk, rz, rb, rw)
+            for _ in range(5):
+                u = np.asarray(CENTRES[h], float)[taken] + 3.0 * rng.standard_normal(
+                    len(taken))
+                assert infer.fit_pvalue_from(fr, u) == _fit_pvalue_direct(
+                    U[h], taken, u, lo, W, rk, rz, rb, rw)
+
+
+def test_apart_extended_by_added_rows_is_apart_of_the_whole_set():
+    """apart_extend (the built set's matrix and boxes reused, pairs added) gives exactly
+    apart() of the whole set, failed hypotheses included."""
+    U = cloud(CENTRES + [[5, 5, 0, 0], [0, 0, 10, 1], [10, 0, 0, 0]], K=64, spread=2.0,
+              seed=4)
+    U[2, :40, 1] = np.nan   # a hypothesis with many failed units
+    U[6] = np.nan           # one that never solved
+    q, sig, share = 0.05, 2.0, 0.5  # the defaults' order of size (faults.yaml)
+    full = infer.apart(U, q, sig, share)
+    H0 = 5
+    ext = infer.apart_extend(U, infer.apart(U[:H0], q, sig, share),
+                             *infer.boxes(U[:H0], q, sig), q, sig, share)
+    np.testing.assert_array_equal(ext, full)

@@ -270,3 +270,38 @@ def test_load_branch_is_the_same_as_a_resistor_part():
     ac_ref = solver.solve_ac(with_r, {"CM.leak": 1e30}, ref)
     assert_allclose(ac.v[0], ac_ref.v[0], rtol=1e-6, atol=1e-12)
     assert_allclose(ac.v[1], solver.solve_ac(c, {}, bare).v[0], rtol=1e-6, atol=1e-12)
+
+
+def test_reused_work_buffers_carry_nothing_between_solves_or_threads():
+    """solve_dc keeps its Newton work arrays between calls (per thread): a solve after a
+    larger and a smaller one, and solves running in two threads at once, give exactly the
+    answers of the first solve (the same arithmetic on the same inputs; no outside value
+    needed, the solver is compared with itself)."""
+    import threading
+
+    c = follower()
+    rng = np.random.default_rng(5)
+    params = ensemble.draw_healthy(c, 300, rng)
+    params["Q1.k_be"] = np.r_[np.ones(299), 0.0]          # one lifted emitter lead
+    first = solver.solve_dc(c, params)
+    solver.solve_dc(c, ensemble.draw_healthy(c, 700, rng))
+    solver.solve_dc(c, ensemble.draw_healthy(c, 3, rng))
+    again = solver.solve_dc(c, params)
+    assert np.array_equal(first.x, again.x) and np.array_equal(first.ok, again.ok)
+    assert first.why == again.why and np.array_equal(first.iterations, again.iterations)
+    other = ensemble.draw_healthy(c, 500, rng)
+    alone = solver.solve_dc(c, other)
+    got = {}
+
+    def run(tag, p):
+        for _ in range(5):
+            got.setdefault(tag, []).append(solver.solve_dc(c, p).x)
+
+    threads = [threading.Thread(target=run, args=("a", params)),
+               threading.Thread(target=run, args=("b", other))]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert all(np.array_equal(x, first.x, equal_nan=True) for x in got["a"])
+    assert all(np.array_equal(x, alone.x) for x in got["b"])

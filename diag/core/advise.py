@@ -50,7 +50,8 @@ def _smooth(a: np.ndarray, sigma: float) -> np.ndarray:
 
 def _smooth_rows(a: np.ndarray, sigma: np.ndarray) -> np.ndarray:
     """Convolve each row i of `a` with a Gaussian of sigma[i] bins (zero outside), by FFT
-    with enough zero padding that nothing wraps round."""
+    with enough zero padding that nothing wraps round. (The power-of-two length is part
+    of the result: a shorter fast length moves the gain by up to about 1e-10 bits.)"""
     n = a.shape[1]
     pad = int(np.ceil(5.0 * float(np.max(sigma))))
     m = 1 << int(np.ceil(np.log2(n + 2 * pad)))
@@ -58,6 +59,15 @@ def _smooth_rows(a: np.ndarray, sigma: np.ndarray) -> np.ndarray:
     spec = np.fft.rfft(np.pad(a, ((0, 0), (pad, m - n - pad))), axis=1)
     spec *= np.exp(-2.0 * (np.pi * f[None, :] * sigma[:, None]) ** 2)
     return np.clip(np.fft.irfft(spec, m, axis=1)[:, pad:pad + n], 0.0, None)
+
+
+def _group_sum(joint: np.ndarray, lab: np.ndarray) -> np.ndarray:
+    """Rows of `joint` (H, n) summed per label lab (H,) in 0..G-1, each present: (G, n),
+    in row order within a label (the sums np.add.at forms, to rounding), by one
+    np.add.reduceat over the rows sorted by label."""
+    order = np.argsort(lab, kind="stable")
+    starts = np.searchsorted(lab[order], np.arange(int(lab.max()) + 1))
+    return np.add.reduceat(joint[order], starts, axis=0)
 
 
 def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9,
@@ -94,9 +104,7 @@ def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9,
         joint = _smooth_rows(joint, kw / bw)
     if labels is not None:  # rows summed per group: gain about the group only
         lab = np.unique(np.asarray(labels)[hs], return_inverse=True)[1]
-        summed = np.zeros((lab.max() + 1, nb))
-        np.add.at(summed, lab, joint)
-        joint = summed
+        joint = _group_sum(joint, lab)
     if eps > 0 and W is not None and W > 0:  # the likelihood's blunder term, per row
         mass = joint.sum(axis=1, keepdims=True)
         inside = min(1.0, nb * bw / float(W))
@@ -110,7 +118,8 @@ def gain(u_j: np.ndarray, w: np.ndarray, tiny: float = 1e-9,
     py = joint.sum(axis=0, keepdims=True)
     denom = ph * py
     nz = (joint > 0) & (denom > 0)
-    mi = float(np.sum(joint[nz] * np.log2(joint[nz] / denom[nz])))
+    jn = joint[nz]
+    mi = float(np.sum(jn * np.log2(jn / denom[nz])))
     return max(mi, 0.0) if mi > 1e-9 else 0.0
 
 

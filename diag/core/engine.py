@@ -167,6 +167,8 @@ def _r(x):
 CACHE_VERSION = "e5"
 # Most on-demand hypotheses (pairs) kept in the extra cache file (14 kB each at K=128).
 EXTRA_KEEP = 2000
+# Most goodness-of-fit references kept in memory (Engine._fit; about R + K*d floats each).
+FIT_REF_KEEP = 4096
 # Reading kinds' model-error keys in faults.yaml `inference.model_error`.
 _MODEL_ERR = {("dc", "V"): ("dc_v", "dc_rel"), ("ac", "V"): ("ac_v", "ac_rel"),
               ("dc", "A"): ("a_abs", "a_rel")}
@@ -199,6 +201,9 @@ class Engine:
         self._extra_disk: dict[str, np.ndarray] = {}  # what the extra cache file holds
         self._limits = None
         self._ref_slip = None
+        self._boxes = None  # infer.boxes of the built hypotheses (groups with pairs)
+        self._lead_text: dict[tuple[str, int], str] = {}  # (fault id, j) -> "id: value"
+        self._fit_refs: dict[tuple, Any] = {}  # (fault id, taken, ref, own spread) -> ref
 
     # -- building ------------------------------------------------------------------------
 
@@ -467,9 +472,11 @@ class Engine:
         sp = self._spread if U.shape[0] == self._spread.shape[0] else None
         return infer.score(U, idx, u_read, lp, float(self.inf["blunder"]), W, sp), pri
 
-    def _fit(self, U, sc, idx, u_read, ref: dict | None = None) -> float:
+    def _fit(self, U, sc, idx, u_read, ref: dict | None = None, specs=None) -> float:
         """Goodness of fit of the leading hypotheses against `ref` (default the
-        ensemble's reference, see faults.yaml `fit_blunders`)."""
+        ensemble's reference, see faults.yaml `fit_blunders`). `specs` (the hypotheses
+        of U's rows) lets the readings-independent reference be kept per (hypothesis,
+        readings taken, reference) in `_fit_refs`; the p-value is the same."""
         from diag.core import infer
 
         ens = self.ensemble
@@ -477,11 +484,25 @@ class Engine:
         lo, W = self._blunder
         best = 0.0
         sp = self._spread if U.shape[0] == self._spread.shape[0] else None
+        eps = float(self.inf["blunder"])
+        if len(idx) == 0:
+            return 1.0 if int(self.inf["fit_test_top"]) > 0 else best
+        taken = tuple(int(j) for j in idx)
+        which = "main" if ref is ens.ref else "slip" if ref is self._ref_slip else None
+        if which is None:
+            specs = None  # a reference of the caller's own: not kept
         for h in np.argsort(-sc.posterior)[:int(self.inf["fit_test_top"])]:
-            p = infer.fit_pvalue(U[h], idx, u_read, float(self.inf["blunder"]), lo, W,
-                                 ref["ref_k"], ref["ref_z"], ref["ref_b"],
-                                 ref["ref_w"], None if sp is None else sp[h])
-            best = max(best, p)
+            key = None if specs is None else (specs[h].id, taken, which, sp is None)
+            fr = self._fit_refs.get(key, False) if key is not None else False
+            if fr is False:
+                fr = infer.fit_reference(U[h], idx, eps, lo, W, ref["ref_k"], ref["ref_z"],
+                                         ref["ref_b"], ref["ref_w"],
+                                         None if sp is None else sp[h])
+                if key is not None:
+                    if len(self._fit_refs) >= FIT_REF_KEEP:
+                        self._fit_refs.clear()
+                    self._fit_refs[key] = fr
+            best = max(best, infer.fit_pvalue_from(fr, u_read))
         return best
 
     def _slip_ref(self) -> dict:
@@ -510,14 +531,14 @@ class Engine:
         specs = list(self.specs)
         U = self._U
         sc, pri = self._score(U, specs, idx, u_read, hp)
-        pval = self._fit(U, sc, idx, u_read)
+        pval = self._fit(U, sc, idx, u_read, specs=specs)
         alpha = float(self.inf["fit_alpha"])
         pairs_tried = False
         # pairs only when no single fault explains the readings even with one slip: a
         # slip is likelier than a second fault that happens to match one odd reading
         if pval < alpha and len(idx) and (
                 self.inf["fit_blunders"] or self._fit(U, sc, idx, u_read,
-                                                      self._slip_ref()) < alpha):
+                                                      self._slip_ref(), specs) < alpha):
             pairs = self._pair_candidates(U, specs, sc, idx, u_read)
             if pairs:
                 pairs_tried = True
@@ -525,7 +546,7 @@ class Engine:
                 U = np.concatenate([U, Up])
                 specs = specs + pairs
                 sc, pri = self._score(U, specs, idx, u_read, hp)
-                pval = self._fit(U, sc, idx, u_read)
+                pval = self._fit(U, sc, idx, u_read, specs=specs)
         fits = pval >= alpha
         post = sc.posterior
         order = np.argsort(-post, kind="stable")
@@ -554,13 +575,22 @@ class Engine:
     def groups_for(self, order: np.ndarray, U: np.ndarray | None = None) -> np.ndarray:
         """Group number per hypothesis (H,), formed around the leading suspects: greedy
         in `order` (hypothesis indices by falling posterior), numbered in that order.
-        `U` is needed only for a hypothesis set beyond the built one (pairs)."""
+        `U` is needed only for a hypothesis set beyond the built one (pairs; when its
+        first rows are the built set's, only the added rows' separations are computed)."""
         from diag.core import infer
 
         ap = self._apart
         if U is not None and U.shape[0] != ap.shape[0]:
-            ap = infer.apart(U, float(self.inf["group_quantile"]),
-                             float(self.inf["group_sigmas"]), float(self.inf["group_share"]))
+            q, sig = float(self.inf["group_quantile"]), float(self.inf["group_sigmas"])
+            share = float(self.inf["group_share"])
+            H0 = ap.shape[0]
+            if U.shape[0] > H0 and np.array_equal(U[:H0], self._U, equal_nan=True):
+                # the built hypotheses first, then pairs: only the pairs' rows are new
+                if self._boxes is None:
+                    self._boxes = infer.boxes(self._U, q, sig)
+                ap = infer.apart_extend(U, ap, *self._boxes, q, sig, share)
+            else:
+                ap = infer.apart(U, q, sig, share)
         return infer.groups_from(ap, order)
 
     def _odd_readings(self, U, specs, best: int, idx, u_read) -> list[str]:
@@ -673,10 +703,16 @@ class Engine:
             o = self.observables[j]
             parts = []
             for h in lead:
-                xs = X[h, :, j]
-                xs = xs[np.isfinite(xs)]
-                if len(xs):
-                    parts.append(f"{specs[h].id}: {self._shown(float(np.median(xs)), o)}")
+                key = (specs[h].id, int(j))  # the median of a hypothesis's units is fixed
+                text = self._lead_text.get(key)
+                if text is None:
+                    xs = X[h, :, j]
+                    xs = xs[np.isfinite(xs)]
+                    text = f"{specs[h].id}: {self._shown(float(np.median(xs)), o)}" \
+                        if len(xs) else ""
+                    self._lead_text[key] = text
+                if text:
+                    parts.append(text)
             out.append((b / o.cost, NextReading(o.point, o.kind, float(b), "; ".join(parts))))
         out.sort(key=lambda t: -t[0])
         return [n for _, n in out]

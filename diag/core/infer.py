@@ -182,18 +182,44 @@ def fit_pvalue(U_h: np.ndarray, taken: np.ndarray, u_read: np.ndarray, eps: floa
     Reference readings r use unit ref_k[r] plus standard-normal noise ref_z[r], and a
     blunder (uniform over W, position ref_w[r]) where ref_b[r] < eps; each is scored
     against the other units (leave one out). ref_* (R, M) are drawn by ensemble.py;
-    W_lo, W the blunder range (see `blunder_range`); spread_h (M,) optional `spread`."""
+    W_lo, W the blunder range (see `blunder_range`); spread_h (M,) optional `spread`.
+    The same as `fit_pvalue_from(fit_reference(...), u_read)`."""
     if len(taken) == 0:
         return 1.0
+    return fit_pvalue_from(fit_reference(U_h, taken, eps, W_lo, W, ref_k, ref_z, ref_b,
+                                         ref_w, spread_h), u_read)
+
+
+@dataclass(frozen=True)
+class FitReference:
+    """What `fit_pvalue` needs besides the readings, for one hypothesis and one set of
+    taken readings: the sorted reference statistics (NaN dropped) out of R, and the
+    kernel (valid units U (K, d), widths s (d,), blunder density eps / W_S) that scores
+    the observed readings. None from `fit_reference` means p = 0 (under 3 units)."""
+
+    sorted_ref: np.ndarray
+    R: int
+    U: np.ndarray
+    s: np.ndarray
+    eps: float
+    W_S: np.ndarray
+
+
+def fit_reference(U_h: np.ndarray, taken: np.ndarray, eps: float, W_lo: np.ndarray,
+                  W: np.ndarray, ref_k: np.ndarray, ref_z: np.ndarray, ref_b: np.ndarray,
+                  ref_w: np.ndarray, spread_h: np.ndarray | None = None
+                  ) -> FitReference | None:
+    """The readings-independent part of `fit_pvalue` (same arguments less u_read; taken
+    not empty): it depends on the hypothesis and the set of readings taken only, so a
+    caller may keep it across readings."""
     valid = np.all(np.isfinite(U_h), axis=1)
     if valid.sum() < 3:
-        return 0.0
+        return None
     U = U_h[valid][:, taken]
     K = U.shape[0]
     sp = None if spread_h is None else spread_h[None]
     s = np.sqrt(1.0 + bandwidth(U_h[valid][None], len(taken), sp)[0, taken] ** 2)
     W_S = W[taken]
-    obs = _logmeanexp(_log_kernel(U, u_read, s, eps, W_S), np.array(K))
     k = ref_k % K
     sim = U[k] + ref_z[:, taken]
     blunder = W_lo[taken] + ref_w[:, taken] * W_S
@@ -201,7 +227,18 @@ def fit_pvalue(U_h: np.ndarray, taken: np.ndarray, u_read: np.ndarray, eps: floa
     llk = _log_kernel(U[None, :, :], sim, s[None, :], eps, W_S)  # (R, K)
     llk[np.arange(len(k)), k] = -np.inf  # leave the simulating unit out
     ref = _logmeanexp(llk, np.array(K - 1))
-    return float((np.sum(ref <= obs) + 1) / (len(ref) + 1))
+    return FitReference(np.sort(ref[~np.isnan(ref)]), len(ref), U, s, float(eps), W_S)
+
+
+def fit_pvalue_from(fr: FitReference | None, u_read: np.ndarray) -> float:
+    """`fit_pvalue` of readings u_read (d,) from a `fit_reference` of the same taken
+    set: (number of reference statistics <= the observed one + 1) / (R + 1)."""
+    if fr is None:
+        return 0.0
+    obs = _logmeanexp(_log_kernel(fr.U, u_read, fr.s, fr.eps, fr.W_S),
+                      np.array(fr.U.shape[0]))
+    n = 0 if np.isnan(obs) else int(np.searchsorted(fr.sorted_ref, obs, side="right"))
+    return float((n + 1) / (fr.R + 1))
 
 
 def band_q(U: np.ndarray, q: float) -> tuple[np.ndarray, np.ndarray]:
@@ -222,7 +259,13 @@ def apart(U: np.ndarray, q: float, sigmas: float, share: float) -> np.ndarray:
     When most units of one (say a mild R1:high, or a leak whose range lies inside
     another's) read like the other, no reading can be relied on to split them. Failed
     hypotheses are apart from all."""
-    H = U.shape[0]
+    lo, hi = boxes(U, q, sigmas)
+    return _apart_from(_inside(U, lo, hi), np.isfinite(U).all(axis=2).sum(axis=1), share)
+
+
+def boxes(U: np.ndarray, q: float, sigmas: float) -> tuple[np.ndarray, np.ndarray]:
+    """Each hypothesis's region of `apart`: lower and upper edges (H, M), u units,
+    widened by `sigmas`. A hypothesis's box depends on its own units only."""
     ok = np.isfinite(U).all(axis=2)  # (H, K)
     n = ok.sum(axis=1)
     lo, hi = band_q(U, q)
@@ -236,19 +279,45 @@ def apart(U: np.ndarray, q: float, sigmas: float, share: float) -> np.ndarray:
             break
         lq, hq = band_q(U[short], qq)
         lo[short], hi[short] = lq, hq
-    lo, hi = lo - sigmas, hi + sigmas
-    inside = np.zeros((H, H))
-    for i in range(H):
+    return lo - sigmas, hi + sigmas
+
+
+def _inside(U: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """(H, J): share of hypothesis i's valid units inside box j (edges (J, M))."""
+    ok = np.isfinite(U).all(axis=2)
+    inside = np.zeros((U.shape[0], lo.shape[0]))
+    for i in range(U.shape[0]):
         ui = U[i][ok[i]]  # (k, M)
         if len(ui) == 0:
             continue
-        within = (ui[None] >= lo[:, None, :]) & (ui[None] <= hi[:, None, :])  # (H, k, M)
+        within = (ui[None] >= lo[:, None, :]) & (ui[None] <= hi[:, None, :])  # (J, k, M)
         inside[i] = within.all(axis=2).mean(axis=1)
+    return inside
+
+
+def _apart_from(inside: np.ndarray, n: np.ndarray, share: float) -> np.ndarray:
     bad = n == 0
     out = (inside < share) & (inside.T < share)
     out[bad, :] = True
     out[:, bad] = True
     np.fill_diagonal(out, False)
+    return out
+
+
+def apart_extend(U: np.ndarray, ap0: np.ndarray, lo0: np.ndarray, hi0: np.ndarray,
+                 q: float, sigmas: float, share: float) -> np.ndarray:
+    """`apart(U, ...)` when its first H0 rows are a set whose `apart` matrix ap0 and
+    `boxes` lo0, hi0 are known (the built hypotheses, U's later rows pairs): only the
+    new rows' boxes and the shares involving them are computed. The same matrix."""
+    H0 = ap0.shape[0]
+    lo1, hi1 = boxes(U[H0:], q, sigmas)
+    lo, hi = np.concatenate([lo0, lo1]), np.concatenate([hi0, hi1])
+    inside = np.zeros((U.shape[0], U.shape[0]))
+    inside[:, H0:] = _inside(U, lo1, hi1)
+    inside[H0:, :H0] = _inside(U[H0:], lo0, hi0)
+    n = np.isfinite(U).all(axis=2).sum(axis=1)
+    out = _apart_from(inside, n, share)
+    out[:H0, :H0] = ap0
     return out
 
 

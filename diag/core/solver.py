@@ -9,9 +9,11 @@ Only this module assembles and factors matrices. The part kinds stamp (parts/). 
 are Norton sources, so the unknowns are node voltages only (internal nodes behind series
 resistances included). Linear solves use a straight-line LU generated for the circuit's
 fixed sparsity pattern (minimum-degree order, no pivoting, each entry a (B,) vector
-operation). Newton-Raphson starts every variant from the nominal solution, with its
-junctions first evaluated where they carry the nominal currents (parts' `start`), SPICE
-pnjlim limiting after that, and iterates only the variants not yet accepted. A step is
+operation; the Newton work arrays are reused between solves, one set per thread, since
+first-touching fresh memory cost a quarter of the time). Newton-Raphson starts every
+variant from the nominal solution, with its junctions first evaluated where they carry
+the nominal currents (parts' `start`), SPICE pnjlim limiting after that, and iterates
+only the variants not yet accepted. A step is
 accepted when it is small, no junction was limited, and the KCL residual at every node
 is what such a Newton step answers; so a garbled no-pivot solve cannot pass. Variants
 that fail are retried with gmin stepping and then source stepping on a pivoting dense
@@ -21,6 +23,7 @@ without a DC path to ground (an open part) is named in `why` (the variant stays 
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
@@ -45,6 +48,9 @@ RES_ABS = 1e-14           # amperes, accepted KCL residual floor
 FLOAT_OHMS = 3e8          # a node whose resistance to ground exceeds this floats (opens: >=1e9)
 GMIN_STEPS = (1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10)   # siemens, then 0
 SOURCE_STEPS = tuple(np.linspace(0.0, 1.0, 21)[1:-1])              # then the full sources
+KEEP_BUFFER = 1 << 22     # elements (32 MiB of float64) up to which a work buffer is kept
+                          # between solves (first touch of fresh memory costs page faults)
+_WORK = threading.local()  # the kept work buffers, one set per thread (_Plan.buffer)
 
 
 @dataclass(frozen=True)
@@ -199,9 +205,26 @@ class _Plan:
         self._factor, self._forward, self._backward = ns["factor"], ns["forward"], ns["backward"]
         self._matvec = ns["matvec"]
 
-    def matvec(self, M, x):
-        """A x for unfactored pattern values M (nz, B) and x (n(+1), B): (n, B)."""
-        y = np.empty((self.n, M.shape[1]), dtype=np.result_type(M, x))
+    @staticmethod
+    def buffer(name: str, shape: tuple, dtype=float) -> np.ndarray:
+        """An uninitialised work array of `shape`, reused between calls in this thread
+        by every plan (kept up to KEEP_BUFFER elements, so the memory held is that of the
+        largest solve). Callers must not hold it past their return nor use one name twice
+        at once."""
+        size = int(np.prod(shape))
+        store = _WORK.__dict__
+        key = (name, np.dtype(dtype).str)
+        a = store.get(key)
+        if a is None or a.size < size:
+            a = np.empty(size, dtype=dtype)
+            if size <= KEEP_BUFFER:
+                store[key] = a
+        return a[:size].reshape(shape)
+
+    def matvec(self, M, x, out=None):
+        """A x for unfactored pattern values M (nz, B) and x (n(+1), B): (n, B), written
+        into `out` when given."""
+        y = np.empty((self.n, M.shape[1]), dtype=np.result_type(M, x)) if out is None else out
         self._matvec(list(M), list(x), list(y))
         return y
 
@@ -362,11 +385,19 @@ def _prepared(plan: _Plan, P: list[dict]) -> list[dict]:
 
 # ----------------------------------------------------------------------------- assembly
 
-def _linear(circuit: Circuit, plan: _Plan, P: list[dict], B: int, omega: float | None):
-    """Pattern values (nz, B) and injections (n, B) of the linear parts (DC or AC)."""
+def _linear(circuit: Circuit, plan: _Plan, P: list[dict], B: int, omega: float | None,
+            reuse: bool = False):
+    """Pattern values (nz, B) and injections (n, B) of the linear parts (DC or AC). With
+    `reuse` they are the plan's work buffers (valid until the next such call)."""
     dtype = float if omega is None else complex
-    A = np.zeros((plan.nz, B), dtype=dtype)
-    b = np.zeros((plan.n, B), dtype=dtype)
+    if reuse:
+        A = plan.buffer("A_lin", (plan.nz, B), dtype)
+        b = plan.buffer("b_lin", (plan.n, B), dtype)
+        A.fill(0.0)
+        b.fill(0.0)
+    else:
+        A = np.zeros((plan.nz, B), dtype=dtype)
+        b = np.zeros((plan.n, B), dtype=dtype)
     slot = plan.slot
     for pi, (part, kind) in enumerate(zip(circuit.parts, circuit.kinds, strict=True)):
         t = circuit.terms[pi]
@@ -409,7 +440,10 @@ def _stamp_devices(plan, DP, x, state, A, b, act, limit=True, currents=None, ini
         if currents is not None:
             for a, i in enumerate(idx):
                 if i < plan.n:
-                    currents[i] += ieq[a] + sum(J[a][u] * v[u] for u in range(len(idx)))
+                    jv = J[a][0] * v[0]
+                    for u in range(1, len(idx)):
+                        jv += J[a][u] * v[u]
+                    currents[i] += ieq[a] + jv
         if state is not None:
             for s_full, s_new in zip(state[q], new, strict=True):
                 if act is None:
@@ -442,15 +476,25 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
     live = np.ones(W.size, dtype=bool)         # still iterating, per working column
     full = W.size == B
     Aw, bw = (A_lin, b_lin) if full else (A_lin[:, W], b_lin[:, W])
-    xw = x.copy() if full else x[:, W]
+    if full:
+        xw = plan.buffer("xw", x.shape)
+        np.copyto(xw, x)
+    else:
+        xw = x[:, W]
     DPw = DP if full else [_sub(d, W) for d in DP]
     if start is None:
         state = _junction_state(plan, xw)
     else:
         state = [[np.array(np.broadcast_to(j, (B,)))[W] for j in st] for st in start]
-    bufA = np.empty((plan.nz, W.size))          # reused buffers (no page faults per step)
-    bufC = np.empty((plan.n, W.size))
-    bufR = np.empty((plan.n, 2, W.size))
+    bufA = plan.buffer("A", (plan.nz, W.size))    # reused buffers (no page faults per step)
+    bufC = plan.buffer("C", (plan.n, W.size))
+    bufR = plan.buffer("R", (plan.n, 2, W.size))
+    bufD = plan.buffer("D", (plan.n, W.size))     # |step|
+    bufT = plan.buffer("T", (plan.n, W.size))     # step tolerance
+    bufF = plan.buffer("F", (plan.n, W.size))     # A x of the candidates
+    bufK = plan.buffer("K", (plan.n, W.size), bool)
+    bufG = plan.buffer("G", (plan.n, W.size))
+    bufS = plan.buffer("S", (plan.n, W.size))     # source and device currents
     for it_no in range(maxit):
         if not live.any():
             break
@@ -478,7 +522,10 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
         if dev_cur is not None:
             dev_cur.fill(0.0)
         lim = _stamp_devices(plan, DPw, xw, state, A, b, None, currents=dev_cur, init=first)
-        gdiag = None if first else np.abs(A[plan.diag])    # node conductances, siemens
+        gdiag = None                            # node conductances, siemens
+        if not first:
+            gdiag = np.take(A, plan.diag, axis=0, out=bufG[:, :nw])
+            np.abs(gdiag, out=gdiag)
         if dense:
             xn = plan.solve(A, b, dense=True)
             yp = None
@@ -494,26 +541,35 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
             continue
         with np.errstate(invalid="ignore"):
             fin = np.isfinite(xn).all(axis=0)
-            ax, dx = np.abs(xn), np.abs(xn - xw[:-1])
-            step_ok = (dx <= RELTOL * ax + VNTOL).all(axis=0)
+            dx, tol, cmp = bufD[:, :nw], bufT[:, :nw], bufK[:, :nw]
+            np.subtract(xn, xw[:-1], out=dx)
+            np.abs(dx, out=dx)
+            np.abs(xn, out=tol)
+            if it_no >= LOOSE_AFTER:
+                ax = tol.copy()
+            tol *= RELTOL
+            tol += VNTOL
+            step_ok = np.less_equal(dx, tol, out=cmp).all(axis=0)
             if it_no >= LOOSE_AFTER:
                 step_ok |= (dx <= LOOSE_REL * ax + LOOSE_ABS).all(axis=0)
             cand = live & fin & step_ok & ~lim
         if cand.any():
             ci = np.flatnonzero(cand)
-            if ci.size > 0.3 * W.size:      # cheaper than gathering the columns
-                F = plan.matvec(Aw, xw)[:, ci]
-            else:
-                F = plan.matvec(Aw[:, ci], xw[:, ci])
-            src = np.abs(bw[:, ci]) * scale + np.abs(dev_cur[:, ci])
-            F += dev_cur[:, ci] - bw[:, ci] * scale
-            if gextra:
-                F += gextra * xw[:-1, ci]
             # a Newton step dx answers a residual of about J dx: allow that (the step is
             # accepted only when small), so a garbled linear solve still shows up here
-            newton = 2.0 * dx[:, ci].max(axis=0) + VNTOL
-            with np.errstate(invalid="ignore"):
-                good = (np.abs(F) <= newton * gdiag[:, ci] + RES_REL * src + RES_ABS).all(axis=0)
+            if ci.size > 0.3 * W.size:      # cheaper than gathering the columns: in place
+                good = _residual_ok(plan, Aw, bw, xw, dev_cur, dx, gdiag, scale, gextra,
+                                    bufF[:, :nw], bufS[:, :nw], tol, cmp)[ci]
+            else:
+                F = plan.matvec(Aw[:, ci], xw[:, ci])
+                src = np.abs(bw[:, ci]) * scale + np.abs(dev_cur[:, ci])
+                F += dev_cur[:, ci] - bw[:, ci] * scale
+                if gextra:
+                    F += gextra * xw[:-1, ci]
+                newton = 2.0 * dx[:, ci].max(axis=0) + VNTOL
+                with np.errstate(invalid="ignore"):
+                    good = (np.abs(F) <= newton * gdiag[:, ci] + RES_REL * src
+                            + RES_ABS).all(axis=0)
             cand[ci[~good]] = False
             acc = ci[good]
             x[:-1, W[acc]] = xn[:, acc]
@@ -523,6 +579,29 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
         live = live & fin & ~cand
         np.copyto(xw[:-1], xn)         # the accepted and the dropped are not read again
     return (np.concatenate(conv) if conv else np.zeros(0, dtype=int)), its
+
+
+def _residual_ok(plan, A, b, x, dev_cur, dx, gdiag, scale, gextra, F, S, T, cmp):
+    """(Bw,) bool: the KCL residual test of _newton on every working column, the same
+    arithmetic as its gathered form, in the given (n, Bw) work arrays F, S, T, cmp."""
+    with np.errstate(all="ignore"):
+        plan.matvec(A, x, out=F)
+        np.abs(b, out=S)                   # src = |b| scale + |device currents|
+        S *= scale
+        np.abs(dev_cur, out=T)
+        S += T
+        np.multiply(b, scale, out=T)       # F += device currents - b scale
+        np.subtract(dev_cur, T, out=T)
+        F += T
+        if gextra:
+            F += gextra * x[:-1]
+        newton = 2.0 * dx.max(axis=0) + VNTOL
+        np.multiply(newton, gdiag, out=T)  # newton gdiag + RES_REL src + RES_ABS
+        S *= RES_REL
+        T += S
+        T += RES_ABS
+        np.abs(F, out=F)
+        return np.less_equal(F, T, out=cmp).all(axis=0)
 
 
 def _nominal_x(circuit: Circuit, plan: _Plan) -> np.ndarray:
@@ -596,7 +675,7 @@ def solve_dc(circuit: Circuit, params: Mapping[str, object] | None = None, *,
         if np.ndim(g):
             B = max(B, np.shape(g)[0])
     DP = _prepared(plan, P)
-    A_lin, b_lin = _linear(circuit, plan, P, B, None)
+    A_lin, b_lin = _linear(circuit, plan, P, B, None, reuse=True)   # used only in here
     _stamp_load(plan, A_lin, load_idx)
     x = np.repeat(x0[:, None], B, axis=1)
     probe = np.full((plan.n, B), np.nan)

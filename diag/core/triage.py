@@ -448,6 +448,7 @@ def summarise(res: TriageResult) -> dict[str, Any]:
     by_part: Counter = Counter()
     exp_fault: Counter = Counter()
     exp_part: Counter = Counter()
+    parts: dict[str, tuple[str, ...]] = {}  # fault id -> its parts, looked up once each
     for u in res.units:
         if u.status != "fault":
             continue
@@ -456,11 +457,15 @@ def summarise(res: TriageResult) -> dict[str, Any]:
         for ref in _parts(hyps, top):
             by_part[ref] += 1
         for s in u.diagnosis.suspects:
-            if s.fault == "healthy" or s.p <= 0:
+            f, p = s.fault, s.p
+            if p <= 0 or f == "healthy":
                 continue
-            exp_fault[s.fault] += s.p
-            for ref in _parts(hyps, s.fault):
-                exp_part[ref] += s.p
+            exp_fault[f] += p
+            refs = parts.get(f)
+            if refs is None:
+                refs = parts[f] = _parts(hyps, f)
+            for ref in refs:
+                exp_part[ref] += p
 
     def table(counts: Counter, expected: Counter, key: str) -> list[dict]:
         rows = [{key: k, "units": n, "expected": round(float(expected[k]), 3)}

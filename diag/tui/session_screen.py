@@ -373,10 +373,10 @@ class SessionScreen(Screen[None]):
         table.focus()
 
     def _after_change(self, what: str) -> None:
+        self.request_ranking()  # first: the diagnosis runs while the table is redrawn
         self._show_readings()
         self._autosave()
         self._message(what)
-        self.request_ranking()
         self._sync_bindings()
 
     def _sync_bindings(self) -> None:
