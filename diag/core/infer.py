@@ -311,7 +311,6 @@ def apart_extend(U: np.ndarray, ap0: np.ndarray, lo0: np.ndarray, hi0: np.ndarra
     new rows' boxes and the shares involving them are computed. The same matrix."""
     H0 = ap0.shape[0]
     lo1, hi1 = boxes(U[H0:], q, sigmas)
-    lo, hi = np.concatenate([lo0, lo1]), np.concatenate([hi0, hi1])
     inside = np.zeros((U.shape[0], U.shape[0]))
     inside[:, H0:] = _inside(U, lo1, hi1)
     inside[H0:, :H0] = _inside(U[H0:], lo0, hi0)
@@ -326,15 +325,14 @@ def groups_from(ap: np.ndarray, order: np.ndarray) -> np.ndarray:
     the first group none of whose members it can be told from; numbers follow `order`."""
     H = ap.shape[0]
     g = np.full(H, -1, dtype=int)
-    blocked = np.zeros((0, H), dtype=bool)  # per group: apart from some member
+    blocked = np.zeros((H, H), dtype=bool)  # per group (row): apart from some member
+    count = 0  # groups formed so far
     for h in order:
-        free = np.nonzero(~blocked[:, h])[0]
-        if len(free):
-            gi = int(free[0])
-            blocked[gi] |= ap[h]
-        else:
-            gi = blocked.shape[0]
-            blocked = np.vstack([blocked, ap[h][None]])
+        free = np.flatnonzero(~blocked[:count, h])
+        gi = int(free[0]) if len(free) else count
+        if gi == count:
+            count += 1
+        blocked[gi] |= ap[h]
         g[h] = gi
     return g
 
