@@ -6,7 +6,8 @@ to the updated ranking. Prints a table; never part of the test run.
 Targets: open < 2 s with a warm ensemble cache (whole process, in a real terminal under
 tmux, until the ranking and the next reading are on screen); reading -> ranking < 100 ms
 (in process: from the submitted value to the ranking table redrawn with the new
-diagnosis). DIAG_HOME is a temporary folder; the first open of each case warms its cache.
+diagnosis; the next-reading advice follows it in a second message, and the last column
+times the whole core diagnosis, advice included). DIAG_HOME is a temporary folder; the first open of each case warms its cache.
 """
 
 from __future__ import annotations
@@ -132,7 +133,7 @@ def main() -> int:
                      "yes" if ok_open else "NO", fmt(ui), fmt(core),
                      "yes" if ok_read else "NO"))
     head = ("case", "diag open -> ranked (warm)", "in process", "< 2 s",
-            "reading -> ranking", "of which diagnose", "< 100 ms")
+            "reading -> ranking", "diagnose + advice", "< 100 ms")
     widths = [max(len(str(r[i])) for r in rows + [head]) for i in range(len(head))]
     print(f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} CPUs "
           "(wall times grow with the load)")

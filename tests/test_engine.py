@@ -267,3 +267,22 @@ def test_kept_fit_references_and_extended_groups_give_the_direct_answer(monkeypa
     for a, b in zip(got, want, strict=True):
         assert a.to_json("c") == b.to_json("c")
         assert a.extra["p_value"] == b.extra["p_value"]
+
+
+def test_ranking_without_advice_is_the_same_ranking():
+    # The interface shows the ranking before the advice: both calls must rank alike
+    # (an independent path: the same engine asked twice).
+    from diag.core.case import load_case
+    from diag.core.engine import Engine
+
+    eng = Engine(load_case("sounder-driver"))
+    readings = eng.simulate("R2:open", np.random.default_rng(2))[:3]
+    full = eng.diagnose(readings)
+    bare = eng.diagnose(readings, advise=False)
+    assert bare.next == ()
+    assert full.next
+    assert [(s.fault, s.group) for s in bare.suspects] == [(s.fault, s.group)
+                                                           for s in full.suspects]
+    np.testing.assert_allclose([s.p for s in bare.suspects], [s.p for s in full.suspects],
+                               rtol=0, atol=0)
+    assert bare.fits == full.fits

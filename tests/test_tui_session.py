@@ -339,3 +339,25 @@ async def test_cold_build_reports_progress(tmp_path, monkeypatch):
         assert any(isinstance(m, EnsembleBuilt) for m in seen)
         assert screen.query_one("#build-row").display is False
     assert any(paths.cache_dir().iterdir())               # and left in the cache
+
+
+@sync
+async def test_ranking_shows_first_then_its_advice(diag_home):
+    # The ranking is posted before the slower next-reading advice; the advice then fills
+    # in the same ranking (our own interface rule: ranking first, within 100 ms).
+    seen = []
+    app = DiagApp(case_path=CASE)
+    async with app.run_test(size=(120, 40), message_hook=seen.append) as pilot:
+        screen = await _open(pilot)
+        _, _, unit = _unit(screen)
+        r = unit[0]
+        seen.clear()
+        await type_reading(pilot, r.point, r.kind, value_text(r.value))
+        await settle(pilot)
+        ranked = list({id(m): m for m in seen if isinstance(m, RankingUpdated)}.values())
+        assert [m.advised for m in ranked] == [False, True]
+        bare, full = ranked[0].diagnosis, ranked[1].diagnosis
+        assert bare.next == () and full.next
+        assert [s.fault for s in bare.suspects] == [s.fault for s in full.suspects]
+        assert screen.diagnosis is full and not screen._awaiting_advice
+        assert screen.shown_serial == screen.serial

@@ -516,8 +516,10 @@ class Engine:
         return self._ref_slip
 
     def diagnose(self, readings: Sequence[Reading],
-                 healthy_prior: float | None = None) -> Diagnosis:
-        """Rank every hypothesis for these readings, test the fit, advise the next."""
+                 healthy_prior: float | None = None, advise: bool = True) -> Diagnosis:
+        """Rank every hypothesis for these readings, test the fit, advise the next.
+        With `advise` False the next readings are left out (empty `next`): the ranking
+        alone, for an interface that shows it before the advice is worked out."""
         from diag.core import notes
 
         self.build()
@@ -556,7 +558,7 @@ class Engine:
         for h in order:
             g = renum.setdefault(int(group[h]), len(renum))
             suspects.append(Suspect(specs[h].id, float(post[h]), g, specs[h].text))
-        nxt = self._advise(U, specs, sc, idx, order, group)
+        nxt = self._advise(U, specs, sc, idx, order, group) if advise else []
         acc = self._accuracy_fn()
         nts = tuple(notes.bench_notes(self.case, self.rules, [
             Reading(self.observables[j].point, self.observables[j].kind, v)

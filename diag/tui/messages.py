@@ -51,10 +51,12 @@ class EnsembleFailed(Message):
 
 @dataclass
 class RankingUpdated(Message):
-    """A new diagnosis for the readings of update number `serial`."""
+    """A new diagnosis for the readings of update number `serial`. `advised` is False
+    for the ranking alone (its next readings follow in a second message)."""
 
     serial: int
     diagnosis: Diagnosis
+    advised: bool = True
 
 
 @dataclass

@@ -80,6 +80,7 @@ class SessionScreen(Screen[None]):
         self.ready = False
         self.serial = 0
         self.shown_serial = -1
+        self._awaiting_advice = False  # the ranking on screen still waits for its advice
         self.last_error = ""
         self._typing = False
         self._binding_state: tuple = ()
@@ -134,9 +135,14 @@ class SessionScreen(Screen[None]):
 
     @work(thread=True, exclusive=True, group="ranking", exit_on_error=False)
     def rank(self, serial: int, readings: tuple[Reading, ...]) -> None:
-        """Diagnose one reading set; the result carries its serial so stale ones drop."""
+        """Diagnose one reading set; the result carries its serial so stale ones drop.
+        The ranking goes up first, the next-reading advice (the slower part) after it."""
         worker = get_current_worker()
         try:
+            d = self.engine.diagnose(readings, advise=False)
+            if worker.is_cancelled:
+                return
+            self.post_message(RankingUpdated(serial, d, advised=False))
             d = self.engine.diagnose(readings)
         except Exception as exc:  # shown on screen; the readings are kept
             self.post_message(EnsembleFailed(str(exc) or type(exc).__name__))
@@ -170,10 +176,22 @@ class SessionScreen(Screen[None]):
     def on_ranking_updated(self, msg: RankingUpdated) -> None:
         if msg.serial < self.shown_serial or msg.serial != self.serial:
             return
+        if msg.advised and msg.serial == self.shown_serial and self._awaiting_advice:
+            # the same ranking as on screen, now with its next readings
+            self._awaiting_advice = False
+            self.diagnosis = msg.diagnosis
+            self.query_one(NextReadingPanel).show(msg.diagnosis)
+            self._sync_bindings()
+            return
         self.shown_serial = msg.serial
         self.diagnosis = msg.diagnosis
+        self._awaiting_advice = not msg.advised
         self.query_one(SuspectsTable).show(msg.diagnosis)
-        self.query_one(NextReadingPanel).show(msg.diagnosis)
+        panel = self.query_one(NextReadingPanel)
+        if msg.advised:
+            panel.show(msg.diagnosis)
+        else:
+            panel.update("[dim]next reading: working it out…[/dim]")
         self.query_one(BenchNotesPanel).show(msg.diagnosis)
         self.query_one(FitBanner).show(msg.diagnosis)
         self._sync_bindings()
