@@ -7,7 +7,8 @@ Targets: open < 2 s with a warm ensemble cache (whole process, in a real termina
 tmux, until the ranking and the next reading are on screen); reading -> ranking < 100 ms
 (in process: from the submitted value to the ranking table redrawn with the new
 diagnosis; the next-reading advice follows it in a second message, and the last column
-times the whole core diagnosis, advice included). DIAG_HOME is a temporary folder; the first open of each case warms its cache.
+times the whole core diagnosis, advice included). DIAG_HOME is a temporary folder; the
+first open of each case warms its cache.
 """
 
 from __future__ import annotations
