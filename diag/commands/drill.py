@@ -47,17 +47,16 @@ def build_drill(args: argparse.Namespace):
     """The Drill the arguments describe, with its engines built (progress on stderr)."""
     from pathlib import Path
 
-    from diag.core.case import load_case
-    from diag.core.drill import Drill, Exercise, _resolve_case, load_exercises
+    from diag.core.case import find_case, load_case
+    from diag.core.drill import Drill, Exercise, load_exercises
     from diag.core.engine import Engine
-    from diag.core.paths import cases_dir
     from diag.core.rules import load_rules
 
     if args.exercises:
-        default = (_resolve_case(args.case, Path.cwd(), cases_dir()) if args.case else None)
+        default = (str(find_case(args.case)) if args.case else None)
         exercises = load_exercises(args.exercises, default_case=default)
     else:
-        path = _resolve_case(args.case, Path.cwd(), cases_dir())
+        path = str(find_case(args.case))
         exercises = (Exercise(case=path, fault=args.fault, seed=args.seed,
                               name=Path(path).stem),)
     rules = load_rules()

@@ -458,7 +458,6 @@ def load_exercises(path: str, default_case: str | None = None) -> tuple[Exercise
     without `.yaml`); it may be left out when `default_case` is given. Raises DiagError
     naming the file and line of a bad entry.
     """
-    from diag.core.paths import cases_dir
     from diag.core.yamlio import load_yaml_file
 
     data = load_yaml_file(path)
@@ -492,17 +491,19 @@ def load_exercises(path: str, default_case: str | None = None) -> tuple[Exercise
                             where=f"exercise {i + 1}", hint="e.g. R2:open, or leave it out")
         if fault in ("random", "any"):
             fault = None
-        out.append(Exercise(case=_resolve_case(str(case), base, cases_dir()),
+        out.append(Exercise(case=_resolve_case(str(case), base),
                             fault=fault.strip() if fault else None, seed=seed,
                             name=str(item.get("name") or f"exercise {i + 1}")))
     return tuple(out)
 
 
-def _resolve_case(case: str, base: Path, bundled: Path) -> str:
-    for cand in (base / case, Path(case), bundled / case, bundled / f"{case}.yaml"):
-        if cand.is_file():
-            return str(cand)
-    return case  # the loader names the missing file
+def _resolve_case(case: str, base: Path) -> str:
+    """A case named in an exercise file: relative to that file's folder first, then as
+    case.find_case resolves it (a path, or a user or bundled case name)."""
+    from diag.core.case import find_case
+
+    rel = base / case
+    return str(rel if rel.is_file() else find_case(case))
 
 
 # ---- class summary -----------------------------------------------------------------

@@ -291,11 +291,11 @@ def _load_index(circuit: Circuit, load) -> list[tuple[int, int, object]]:
     return [(circuit.index(a), circuit.index(b), y) for a, b, y in (load or ())]
 
 
-def _stamp_load(plan: _Plan, A: np.ndarray, load_idx) -> None:
-    """Add each extra branch y (siemens, scalar or (B,)) between unknowns i and j to A."""
+def _stamp_branches(plan: _Plan, A: np.ndarray, branches) -> None:
+    """Add each branch y (siemens, scalar or (B,)) between unknowns i and j to A
+    (ground = -1): the two-terminal admittance stamp of modified nodal analysis."""
     slot = plan.slot
-    for i, j, y in load_idx:
-        y = np.asarray(y)
+    for i, j, y in branches:
         if i >= 0:
             A[slot[(i, i)]] += y
         if j >= 0:
@@ -303,6 +303,11 @@ def _stamp_load(plan: _Plan, A: np.ndarray, load_idx) -> None:
         if i >= 0 and j >= 0:
             A[slot[(i, j)]] -= y
             A[slot[(j, i)]] -= y
+
+
+def _stamp_load(plan: _Plan, A: np.ndarray, load_idx) -> None:
+    """Add each extra branch y (siemens, scalar or (B,)) between unknowns i and j to A."""
+    _stamp_branches(plan, A, ((i, j, np.asarray(y)) for i, j, y in load_idx))
 
 
 # ----------------------------------------------------------------------------- params
@@ -398,21 +403,13 @@ def _linear(circuit: Circuit, plan: _Plan, P: list[dict], B: int, omega: float |
     else:
         A = np.zeros((plan.nz, B), dtype=dtype)
         b = np.zeros((plan.n, B), dtype=dtype)
-    slot = plan.slot
     for pi, (part, kind) in enumerate(zip(circuit.parts, circuit.kinds, strict=True)):
         t = circuit.terms[pi]
         if omega is None:
             g_list, inj = kind.dc_stamps(part, P[pi], t)
         else:
             g_list, inj = kind.ac_stamps(part, P[pi], t, omega)
-        for i, j, g in g_list:
-            if i >= 0:
-                A[slot[(i, i)]] += g
-            if j >= 0:
-                A[slot[(j, j)]] += g
-            if i >= 0 and j >= 0:
-                A[slot[(i, j)]] -= g
-                A[slot[(j, i)]] -= g
+        _stamp_branches(plan, A, g_list)
         for i, c in inj:
             if i >= 0:
                 b[i] += c
