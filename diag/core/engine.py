@@ -164,7 +164,7 @@ def _r(x):
 
 
 # Bumped when the cached arrays change meaning (the cache key also holds both hashes).
-CACHE_VERSION = "e5"
+CACHE_VERSION = "e6"
 # Most on-demand hypotheses (pairs) kept in the extra cache file (14 kB each at K=128).
 EXTRA_KEEP = 2000
 # Most goodness-of-fit references kept in memory (Engine._fit; about R + K*d floats each).
@@ -202,6 +202,7 @@ class Engine:
         self._limits = None
         self._ref_slip = None
         self._boxes = None  # infer.boxes of the built hypotheses (groups with pairs)
+        self._extra_spread: dict = {}  # kernel spreads of sets with pairs (_spread_for)
         self._lead_text: dict[tuple[str, int], str] = {}  # (fault id, j) -> "id: value"
         self._fit_refs: dict[tuple, Any] = {}  # (fault id, taken, ref, own spread) -> ref
 
@@ -311,10 +312,6 @@ class Engine:
             data = {"ids": ids, "samples": samples, "hidden_band": band,
                     "hidden_names": np.array(names), "apart": ap,
                     "failed": np.sum(~np.all(np.isfinite(samples), axis=2), axis=1)}
-            try:
-                ensemble.save_cache(path, data)
-            except OSError:
-                pass  # a read-only cache folder only costs speed
         elif progress:
             progress(1.0)
         U = noise.u(data["samples"])
@@ -333,8 +330,43 @@ class Engine:
         self._noise_obj = noise
         self._U = U
         self._blunder = infer.blunder_range(U)
-        self._spread = infer.spread(U)
+        self._scott = infer.spread(U)
+        if from_cache and "kernel_spread" in data:
+            self._spread = data["kernel_spread"]
+        else:  # saved with the rest: it depends on the units and the rules only
+            self._spread = self._kernel_spread(U)
+            data["kernel_spread"] = self._spread
+            try:
+                ensemble.save_cache(path, data)
+            except OSError:
+                pass  # a read-only cache folder only costs speed
         return self._ens
+
+    def _kernel_spread(self, U: np.ndarray) -> np.ndarray:
+        """infer.kernel_spread of hypotheses' units U (n, K, M), u units (n, M)."""
+        from diag.core import infer
+
+        return infer.kernel_spread(U, self._ens.ref["ref_z"], self._blunder[1],
+                                   float(self.inf["blunder"]),
+                                   np.array(self.inf["kernel_factors"], dtype=float))
+
+    def _spread_for(self, U: np.ndarray) -> np.ndarray:
+        """Kernel spread (H, M) of a hypothesis set U (H, K, M): the built one's, and for
+        rows beyond it (pairs) their own, worked out once per set and kept."""
+        H0 = self._spread.shape[0]
+        if U.shape[0] == H0:
+            return self._spread
+        key = U.shape[0], hash(U[H0:].tobytes())
+        got = self._extra_spread.get(key)
+        if got is None:
+            if U.shape[0] > H0 and np.array_equal(U[:H0], self._U, equal_nan=True):
+                got = np.concatenate([self._spread, self._kernel_spread(U[H0:])])
+            else:
+                got = self._kernel_spread(U)
+            if len(self._extra_spread) >= FIT_REF_KEEP:
+                self._extra_spread.clear()
+            self._extra_spread[key] = got
+        return got
 
     # -- hypotheses ------------------------------------------------------------------------
 
@@ -469,41 +501,50 @@ class Engine:
         with np.errstate(divide="ignore"):
             lp = np.log(pri)
         lo, W = self._blunder
-        sp = self._spread if U.shape[0] == self._spread.shape[0] else None
+        sp = self._spread_for(U)
         return infer.score(U, idx, u_read, lp, float(self.inf["blunder"]), W, sp), pri
 
     def _fit(self, U, sc, idx, u_read, ref: dict | None = None, specs=None) -> float:
         """Goodness of fit of the leading hypotheses against `ref` (default the
-        ensemble's reference, see faults.yaml `fit_blunders`). `specs` (the hypotheses
-        of U's rows) lets the readings-independent reference be kept per (hypothesis,
-        readings taken, reference) in `_fit_refs`; the p-value is the same."""
+        ensemble's reference, see faults.yaml `fit_blunders`): the best of their
+        `fit_p` values."""
+        if len(idx) == 0:
+            return 1.0 if int(self.inf["fit_test_top"]) > 0 else 0.0
+        lead = np.argsort(-sc.posterior)[:int(self.inf["fit_test_top"])]
+        return max((self.fit_p(U, int(h), idx, u_read, ref, specs) for h in lead),
+                   default=0.0)
+
+    def fit_p(self, U, h: int, idx, u_read, ref: dict | None = None, specs=None) -> float:
+        """Predictive p-value (infer.fit_pvalue) of readings u_read at observables idx
+        under hypothesis h of U's rows. `specs` (the hypotheses of U's rows) lets the
+        readings-independent reference be kept per (hypothesis, readings taken,
+        reference) in `_fit_refs`; the p-value is the same. The statistic uses Scott's
+        kernel width (infer.spread), smoother than the ranking's: it is calibrated by its
+        own reference either way, and the smoother one tells a misfit more surely."""
         from diag.core import infer
 
+        if len(idx) == 0:
+            return 1.0
         ens = self.ensemble
         ref = ens.ref if ref is None else ref
         lo, W = self._blunder
-        best = 0.0
-        sp = self._spread if U.shape[0] == self._spread.shape[0] else None
+        sp = self._scott if U.shape[0] == self._scott.shape[0] else None
         eps = float(self.inf["blunder"])
-        if len(idx) == 0:
-            return 1.0 if int(self.inf["fit_test_top"]) > 0 else best
         taken = tuple(int(j) for j in idx)
         which = "main" if ref is ens.ref else "slip" if ref is self._ref_slip else None
         if which is None:
             specs = None  # a reference of the caller's own: not kept
-        for h in np.argsort(-sc.posterior)[:int(self.inf["fit_test_top"])]:
-            key = None if specs is None else (specs[h].id, taken, which, sp is None)
-            fr = self._fit_refs.get(key, False) if key is not None else False
-            if fr is False:
-                fr = infer.fit_reference(U[h], idx, eps, lo, W, ref["ref_k"], ref["ref_z"],
-                                         ref["ref_b"], ref["ref_w"],
-                                         None if sp is None else sp[h])
-                if key is not None:
-                    if len(self._fit_refs) >= FIT_REF_KEEP:
-                        self._fit_refs.clear()
-                    self._fit_refs[key] = fr
-            best = max(best, infer.fit_pvalue_from(fr, u_read))
-        return best
+        key = None if specs is None else (specs[h].id, taken, which, sp is None)
+        fr = self._fit_refs.get(key, False) if key is not None else False
+        if fr is False:
+            fr = infer.fit_reference(U[h], idx, eps, lo, W, ref["ref_k"], ref["ref_z"],
+                                     ref["ref_b"], ref["ref_w"],
+                                     None if sp is None else sp[h])
+            if key is not None:
+                if len(self._fit_refs) >= FIT_REF_KEEP:
+                    self._fit_refs.clear()
+                self._fit_refs[key] = fr
+        return infer.fit_pvalue_from(fr, u_read)
 
     def _slip_ref(self) -> dict:
         """The fit reference with blunders at the modelled rate: readings a single fault
@@ -603,7 +644,7 @@ class Engine:
             return []
         eps = float(self.inf["blunder"])
         lo, W = self._blunder
-        sp = self._spread[best:best + 1] if best < self._spread.shape[0] else None
+        sp = self._spread_for(U)[best:best + 1]
         per = infer.per_reading(U[best:best + 1], idx, u_read, eps, W, sp)[0]
         floor = np.log(eps / W[idx]) + 1.0
         return [f"{self.observables[j].point} {self.observables[j].kind}"
@@ -621,7 +662,7 @@ class Engine:
                                   self._pair_scale)
         eps = float(self.inf["blunder"])
         lo, W = self._blunder
-        per = infer.per_reading(U, idx, u_read, eps, W, self._spread)  # (H, d)
+        per = infer.per_reading(U, idx, u_read, eps, W, self._spread_for(U))  # (H, d)
         floor = np.log(eps / W[idx]) + 1.0  # within e of the blunder floor: missed
         singles = np.array([s.origin == "single" for s in specs])
         for a in order[:3]:
@@ -683,7 +724,7 @@ class Engine:
             return []
         from diag.core import infer
 
-        sp = self._spread if U.shape[0] == self._spread.shape[0] else None
+        sp = self._spread_for(U)
         width = np.sqrt(1.0 + infer.bandwidth(U, len(idx) + 1, sp) ** 2)  # once taken
         bits = advise.gains(U, w, untaken, labels=group, width=width,
                             eps=float(self.inf["blunder"]), W=self._blunder[1])

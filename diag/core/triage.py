@@ -202,6 +202,7 @@ class BatchScorer:
         self.top = int(inf["fit_test_top"])
         self.lo, self.W = engine._blunder
         self.spread = engine._spread
+        self.scott = engine._scott  # the fit test's kernel (Engine._fit)
         with np.errstate(divide="ignore"):
             self.log_prior = np.log(engine._priors(hp, self.specs))
         self.valid = np.all(np.isfinite(self.U), axis=2)
@@ -258,7 +259,7 @@ class BatchScorer:
         Uv = self.U[h][valid][:, idx]
         Kv = Uv.shape[0]
         s = np.sqrt(1.0 + inf.bandwidth(self.U[h][valid][None], len(idx),
-                                        self.spread[h][None])[0, idx] ** 2)
+                                        self.scott[h][None])[0, idx] ** 2)
         r = self.ref
         k = r["ref_k"] % Kv
         sim = Uv[k] + r["ref_z"][:, idx]
