@@ -286,3 +286,24 @@ def test_ranking_without_advice_is_the_same_ranking():
     np.testing.assert_allclose([s.p for s in bare.suspects], [s.p for s in full.suspects],
                                rtol=0, atol=0)
     assert bare.fits == full.fits
+
+
+def test_cache_keeps_only_the_newest_ensembles(tmp_path):
+    """Every case or rules edit writes a new ensemble file; older ones (with their pair
+    companions) go once more than CACHE_KEEP are there, newest kept."""
+    import os
+
+    from diag.core import ensemble
+
+    names = [f"ens-c{i:02d}-r-K16-s0-v.npz" for i in range(ensemble.CACHE_KEEP + 3)]
+    for i, n in enumerate(names):
+        for p in (tmp_path / n, tmp_path / n.replace(".npz", "-extra.npz")):
+            p.write_bytes(b"x")
+            os.utime(p, (1000 + i, 1000 + i))
+    (tmp_path / "session.json").write_text("{}")  # not an ensemble: never touched
+    gone = ensemble.prune_cache(tmp_path)
+    assert sorted(p.name for p in gone) == sorted(
+        [n for n in names[:3]] + [n.replace(".npz", "-extra.npz") for n in names[:3]])
+    left = sorted(p.name for p in tmp_path.glob("ens-*.npz") if "extra" not in p.name)
+    assert left == names[3:]
+    assert (tmp_path / "session.json").exists()

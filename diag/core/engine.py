@@ -338,6 +338,7 @@ class Engine:
             data["kernel_spread"] = self._spread
             try:
                 ensemble.save_cache(path, data)
+                ensemble.prune_cache(path.parent)
             except OSError:
                 pass  # a read-only cache folder only costs speed
         return self._ens

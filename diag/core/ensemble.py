@@ -186,6 +186,34 @@ def save_cache(path: Path, arrays: dict) -> None:
     os.replace(tmp, path)
 
 
+# Ensemble cache files kept (the newest by modification time); every edit of a case or
+# of rules/ makes a new one, so older ones are removed when a new one is written.
+CACHE_KEEP = 24
+
+
+def prune_cache(folder: Path, keep: int = CACHE_KEEP) -> list[Path]:
+    """Remove all but the `keep` newest ensemble files (ens-*.npz) in `folder`, each with
+    its -extra.npz companion (pair ensembles); return what was removed. Files that
+    vanish or resist removal meanwhile (another process) are left alone."""
+    def mtime(p: Path) -> float:
+        try:
+            return p.stat().st_mtime
+        except OSError:
+            return 0.0
+
+    main = [p for p in folder.glob("ens-*.npz") if not p.name.endswith("-extra.npz")]
+    main.sort(key=mtime, reverse=True)
+    gone = []
+    for p in main[keep:]:
+        for q in (p, p.with_name(p.stem + "-extra.npz")):
+            try:
+                q.unlink()
+                gone.append(q)
+            except OSError:
+                pass
+    return gone
+
+
 def load_cache(path: Path) -> dict | None:
     """Arrays of a cache file, or None when it is missing or unreadable."""
     try:
