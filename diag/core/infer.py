@@ -134,35 +134,36 @@ def kernel_spread(U: np.ndarray, z: np.ndarray, W: np.ndarray, eps: float,
     H, K, M = U.shape
     sp = spread(U)
     grid = np.asarray(grid, dtype=float)
+    C = len(grid)
     ok = np.all(np.isfinite(U), axis=2)                               # (H, K)
     n = ok.sum(axis=1)
     bw = sp * np.maximum(n, 1)[:, None] ** (-1.0 / (M + 4))           # (H, M)
     floor = float(np.sum(np.log(eps / W)))
     S = min(sims, K)
     fac = np.ones(H)
+    diag = np.arange(S)
     for a in range(0, H, chunk):
         b = min(H, a + chunk)
         Uc = np.where(ok[a:b, :, None], U[a:b], 0.0)                  # (h, K, M)
         sim = Uc[:, :S] + z[None, :S]                                 # (h, S, M)
-        d2 = np.square(sim[:, :, None, :] - Uc[:, None, :, :])        # (h, S, K, M)
-        s2 = 1.0 + (grid[None, None, :] * bw[a:b, :, None]) ** 2      # (h, M, C)
-        q = np.matmul(d2.reshape(b - a, S * K, M), 0.5 / s2)          # (h, S*K, C)
-        q = q.reshape(b - a, S, K, len(grid))
-        lk = -0.5 * np.sum(np.log(2.0 * math.pi * s2), axis=1)        # (h, C)
-        llk = lk[:, None, None, :] - q
-        llk[~np.broadcast_to(ok[a:b, None, :, None], llk.shape)] = -np.inf
-        diag = np.arange(S)
-        llk[:, diag, diag, :] = -np.inf                               # leave one out
-        m = np.max(llk, axis=2, keepdims=True)
+        s2 = 1.0 + (grid[None, :, None] * bw[a:b, None, :]) ** 2      # (h, C, M)
+        w = 0.5 / s2
+        # q = sum_m w (sim - U)^2, expanded so that no (S, K, M) array is formed
+        cross = np.matmul(sim[:, None] * w[:, :, None, :],
+                          np.swapaxes(Uc, 1, 2)[:, None])             # (h, C, S, K)
+        q = (np.einsum("hsm,hcm->hcs", sim * sim, w)[..., None]
+             + np.einsum("hkm,hcm->hck", Uc * Uc, w)[:, :, None, :] - 2.0 * cross)
+        llk = (-0.5 * np.sum(np.log(2.0 * math.pi * s2), axis=2))[:, :, None, None] - q
+        llk[np.broadcast_to(~ok[a:b, None, None, :], llk.shape)] = -np.inf
+        llk[:, :, diag, diag] = -np.inf                               # leave one out
+        m = np.max(llk, axis=3, keepdims=True)
         m = np.where(np.isfinite(m), m, 0.0)
         with np.errstate(divide="ignore"):
-            loo = (np.log(np.sum(np.exp(llk - m), axis=2)) + m[:, :, 0, :]
-                   - np.log(np.maximum(n[a:b] - 1, 1))[:, None, None])  # (h, S, C)
+            loo = (np.log(np.sum(np.exp(llk - m), axis=3)) + m[..., 0]
+                   - np.log(np.maximum(n[a:b] - 1, 1))[:, None, None])  # (h, C, S)
         loo = np.maximum(loo, floor)
-        w = ok[a:b, :S, None]
-        cv = np.sum(np.where(w, loo, 0.0), axis=1)                    # (h, C)
-        best = grid[np.argmax(cv, axis=1)]
-        fac[a:b] = np.where(n[a:b] >= 3, best, 1.0)
+        cv = np.sum(np.where(ok[a:b, None, :S], loo, 0.0), axis=2)    # (h, C)
+        fac[a:b] = np.where(n[a:b] >= 3, grid[np.argmax(cv, axis=1)], 1.0)
     return sp * fac[:, None]
 
 
