@@ -96,7 +96,7 @@ def test_diag_open_in_a_real_terminal(server, home, tmp_path):
         assert c.title in screen
         for p in c.points:
             assert p.id in screen
-        assert "likelihood" in screen and "healthy" in screen
+        assert "posterior" in screen and "healthy" in screen
         first = c.observables[0]
         pane.keys("1", ".", "2", "5", "Enter")
         screen = pane.wait_for(f"{first.point} {first.kind} recorded")

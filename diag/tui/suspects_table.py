@@ -32,7 +32,7 @@ class SuspectsTable(DataTable):
     def on_mount(self) -> None:
         self.add_column("#", key="rank")
         self.add_column("suspect", key="fault")
-        self.add_column("likelihood", key="bar")
+        self.add_column("posterior", key="bar")
         self.add_column("p", key="p")
         self.add_column("grp", key="group")
         self.add_column("what", key="text")
