@@ -22,6 +22,7 @@ from diag.core.triage import (
     caution_lines,
     groups_batch,
     kernel_loglik,
+    table_loglik,
     to_csv,
     to_json,
     to_markdown,
@@ -94,6 +95,37 @@ def test_kernel_product_equals_the_sum_of_logarithms():
     assert_allclose(kernel_loglik(ut, Ut, logpeak, c), direct, rtol=1e-12)
 
 
+@pytest.mark.parametrize("d, c_scale", [(5, 1e-4), (20, 1e-4), (6, 1e-60)])
+def test_table_kernel_equals_the_direct_kernel(d, c_scale):
+    # Independent path: the shared-table log-likelihood against the direct kernel
+    # product followed by infer's log-mean over the valid units, with readings that
+    # repeat (a meter's display resolution), units that did not solve (NaN), a group
+    # longer than one logarithm interval (d = 20) and blunder densities so small that
+    # the table kernel must take logarithms (c = 1e-60).
+    from diag.core import infer
+
+    rng = np.random.default_rng(7)
+    n, H, K = 700, 5, 16
+    u = np.round(rng.normal(size=(n, d)) * 3, 1)  # about 60 distinct values each
+    scale = rng.uniform(1.0, 2.0, size=(H, d))
+    Ut = rng.normal(size=(d, H, K)) * 3
+    valid = rng.random((H, K)) > 0.2
+    valid[3] = False  # a hypothesis none of whose units solved
+    Ut[:, ~valid] = np.nan
+    logpeak = np.log(rng.uniform(0.1, 0.4, size=(H, d)))
+    c = rng.uniform(0.5, 2.0, d) * c_scale
+    n_valid = valid.sum(axis=1)
+    llk = kernel_loglik(u[:, None, :] / scale[None], Ut, logpeak, c)
+    direct = infer._logmeanexp(np.where(valid[None], llk, -np.inf), n_valid)
+    got = table_loglik(u, scale, Ut, logpeak, c, valid, n_valid, list(range(H)))
+    assert np.array_equal(np.isfinite(got), np.isfinite(direct))
+    assert np.all(np.isneginf(got[:, 3]))
+    fin = np.isfinite(direct)
+    assert_allclose(got[fin], direct[fin], rtol=1e-12)
+    sub = table_loglik(u, scale, Ut, logpeak, c, valid, n_valid, [4, 1])
+    assert_allclose(sub, got[:, [4, 1]], rtol=1e-15)
+
+
 def test_groups_batch_equals_the_greedy_grouping(engine):
     # Independent path: the grouping of many orders at once against infer.groups_from
     # one order at a time, on the case's own `apart` matrix and on random ones.
@@ -127,6 +159,33 @@ def test_batch_with_threads_and_small_blocks_gives_the_same(engine):
     many = BatchScorer(engine).run(units, chunk=2, threads=3)
     for a, b in zip(one, many, strict=True):
         _same(a, b)
+
+
+def test_batch_through_shared_tables_equals_diagnose(engine):
+    # The table path (forced for this small batch with table_min=1) against the
+    # engine's one-unit diagnosis, with a unit outside the model (pairs of faults) and
+    # a unit that fits only with a slip, over threads and small blocks.
+    units = _units(engine)
+    odd = {("TP2", "dc"): 3.0, ("TP3", "dc"): 2.9, ("TP4", "dc"): 2.8, ("TP5", "dc"): 2.7,
+           ("TP6", "dc"): 2.6}  # see test_summary_partitions_the_batch_...
+    units["Z99"] = [Reading(r.point, r.kind, odd.get((r.point, r.kind), r.value))
+                    for r in units["A06"]]
+    rs = list(units.values())
+    for threads, chunk in ((1, 64), (3, 1)):
+        got = BatchScorer(engine).run(rs, chunk=chunk, threads=threads, table_min=1)
+        for r, d in zip(rs, got, strict=True):
+            _same(engine.diagnose(r), d)
+    assert not got[rs.index(units["A08"])].fits  # fits no single fault, pairs not needed
+
+
+@pytest.mark.parametrize("threads", [1, 2])
+def test_batch_progress_rises_to_one_and_cancel_stops_it(engine, threads):
+    rs = list(_units(engine).values())
+    seen: list[float] = []
+    BatchScorer(engine).run(rs, progress=seen.append, threads=threads, table_min=1)
+    assert seen == sorted(seen) and seen[-1] == pytest.approx(1.0)
+    with pytest.raises(InterruptedError):
+        BatchScorer(engine).run(rs, cancelled=lambda: True, threads=threads, table_min=1)
 
 
 def test_healthy_prior_reaches_the_batch(engine):

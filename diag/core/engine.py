@@ -20,7 +20,8 @@ Also: eng.case, eng.rules, eng.check_value(point, kind, text) -> float (the read
 file's validation for one typed value; DiagError with the reason), eng.splitters() (for
 each group of several hypotheses, the kind of reading that would split it),
 eng.groups_for(order) (group numbers formed around the leading suspects, as diagnose
-numbers them).
+numbers them). Many units at once: diag.core.triage.rank_batch(eng, units) gives each
+the Diagnosis `diagnose` would (vectorised across units; to rounding).
 
 Groups: Ensemble.group numbers hypotheses greedily by prior (what `diag faults` lists);
 a Diagnosis forms its groups greedily by posterior, so the leading group is built around
@@ -33,7 +34,7 @@ import math
 import threading
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 
@@ -107,8 +108,12 @@ class Band:
     high: float
 
 
-@dataclass(frozen=True)
-class Suspect:
+class Suspect(NamedTuple):
+    """One ranked hypothesis of a Diagnosis: fault id, posterior p, group number, text.
+    A named tuple (immutable like the other result types): a diagnosis holds one per
+    hypothesis and a batch triage builds about a million of them, about four times
+    faster than a frozen dataclass."""
+
     fault: str
     p: float
     group: int

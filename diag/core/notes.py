@@ -34,10 +34,24 @@ def bench_notes(case: Case, rules, readings: Sequence, meter_accuracy=None) -> l
 
     `meter_accuracy(volts) -> volts` is the meter's accuracy bound (used by the
     near-supply check); without it 1 % of the reading is used."""
-    checks = rules["checks"].get("checks") or []
-    v = node_volts(case, readings)
+    return bench_notes_many(case, rules, [readings], meter_accuracy)[0]
+
+
+def bench_notes_many(case: Case, rules, units: Sequence[Sequence], meter_accuracy=None
+                     ) -> list[list[str]]:
+    """`bench_notes` of each unit's readings (a batch): the checks that apply to the
+    case's parts are worked out once, then each unit's readings are read against them."""
+    checks = _applicable(case, rules)
     rails = [p for p in case.parts if p.kind == "supply"]
     fixed = {case.ground, *(n for p in rails for n in p.nodes)}
+    return [_notes(checks, rails, fixed, node_volts(case, rs), meter_accuracy)
+            for rs in units]
+
+
+def _applicable(case: Case, rules) -> list[tuple]:
+    """(part, check, node at t1, node at t2) for every check that applies to a part, in
+    case part order then checks order."""
+    checks = rules["checks"].get("checks") or []
     out = []
     for part in case.parts:
         for chk in checks:
@@ -50,29 +64,37 @@ def bench_notes(case: Case, rules, readings: Sequence, meter_accuracy=None) -> l
                 raise DiagError(f"check {chk.get('id')!r}: `across` must name two terminals "
                                 f"of {part.kind} ({', '.join(TERMINALS[part.kind])})",
                                 file=rules.file("checks")) from None
-            if n1 not in v or n2 not in v:
+            out.append((part, chk, n1, n2))
+    return out
+
+
+def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy) -> list[str]:
+    """The notes of one unit's node volts `v` (see `bench_notes`)."""
+    out = []
+    for part, chk, n1, n2 in checks:
+        if n1 not in v or n2 not in v:
+            continue
+        flip = -1.0 if (chk.get("pnp_flip") and part.kind == "pnp") else 1.0
+        val = flip * (v[n1] - v[n2])
+        if chk.get("near_supply"):
+            if n1 in fixed:  # wired straight to a rail: says nothing
                 continue
-            flip = -1.0 if (chk.get("pnp_flip") and part.kind == "pnp") else 1.0
-            val = flip * (v[n1] - v[n2])
-            if chk.get("near_supply"):
-                if n1 in fixed:  # wired straight to a rail: says nothing
-                    continue
-                hit = False
-                for sp in rails:
-                    rail = v.get(sp.nodes[0], sp.value or 0.0)
-                    target = rail if part.kind != "pnp" else 0.0
-                    tol = (meter_accuracy(abs(target)) if meter_accuracy
-                           else 0.01 * abs(target)) + 0.02 * abs(rail)
-                    if rail > 0.5 and abs(v[n1] - target) <= tol:
-                        hit = True
-                if not hit:
-                    continue
-                shown = v[n1]
-            else:
-                lo, hi = chk["range"]
-                if not lo <= val <= hi:
-                    continue
-                shown = val
-            out.append(chk["text"].format(ref=part.ref, kind=part.kind,
-                                          v=format_value(shown, "V")))
+            hit = False
+            for sp in rails:
+                rail = v.get(sp.nodes[0], sp.value or 0.0)
+                target = rail if part.kind != "pnp" else 0.0
+                tol = (meter_accuracy(abs(target)) if meter_accuracy
+                       else 0.01 * abs(target)) + 0.02 * abs(rail)
+                if rail > 0.5 and abs(v[n1] - target) <= tol:
+                    hit = True
+            if not hit:
+                continue
+            shown = v[n1]
+        else:
+            lo, hi = chk["range"]
+            if not lo <= val <= hi:
+                continue
+            shown = val
+        out.append(chk["text"].format(ref=part.ref, kind=part.kind,
+                                      v=format_value(shown, "V")))
     return out

@@ -4,8 +4,14 @@
 sums up: counts by fault and by part (most frequent first), units no hypothesis explains
 (send to engineering), units that look healthy (no fault found), and units whose readings
 are incomplete (an observable the rest of the batch measured is missing). The per-unit
-posterior is computed for all units at once (`rank_batch`); it gives the same numbers as
-`Engine.diagnose` one unit at a time.
+posterior is computed for all units at once (`rank_batch`, `BatchScorer`); it gives the
+same numbers as `Engine.diagnose` one unit at a time (to rounding, about 1e-15 in p).
+
+Speed (bench/triage_bench.py): 10 000 units of the largest bundled case (97 hypotheses,
+K = 128, 14 readings) take 5 to 7 s on two cores (6.3 s on one) after the ensemble is
+cached, in about 0.3 GiB. Most of it is the kernel product over units x hypotheses x drawn units x
+readings; a meter shows a few digits, so readings repeat across a batch and
+`table_loglik` computes each distinct reading's kernel factors once and gathers them.
 
 `to_json`, `to_markdown` and `to_csv` render a TriageResult; every rendering carries the
 safety cautions given to it (rules/cautions.yaml through load_rules()["cautions"]).
@@ -14,8 +20,10 @@ Values are volts (amperes at supply points); p are posterior probabilities.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import functools
+import gc
 import io
 import math
 import os
@@ -86,6 +94,21 @@ def _status(d: Diagnosis) -> str:
     return "fault"
 
 
+@contextlib.contextmanager
+def _gc_paused():
+    """Pause Python's cyclic garbage collector while a batch builds its results: about a
+    million small immutable objects that hold no cycles, over which the collector would
+    otherwise walk again and again (about a sixth of the batch's time). Reference
+    counting still frees everything; the collector runs again afterwards."""
+    was = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was:
+            gc.enable()
+
+
 def rank_batch(engine: Engine, units: Sequence[Sequence[Reading]],
                progress: Callable[[float], None] | None = None,
                cancelled: Callable[[], bool] | None = None,
@@ -94,16 +117,18 @@ def rank_batch(engine: Engine, units: Sequence[Sequence[Reading]],
     """Diagnose every unit, the same as `engine.diagnose` one unit at a time.
 
     Uses the engine's own batch entry point when it has one; otherwise `BatchScorer`
-    scores all units that share a set of taken readings at once, `chunk` units per block,
-    blocks spread over `threads` worker threads (default: the CPU count, at most 4).
-    `progress(f)` gets 0..1; `cancelled()` is checked between blocks (InterruptedError).
+    scores all units that share a set of taken readings together (shared tables for a
+    large group that takes every reading, else `chunk` units per block), the work spread
+    over `threads` worker threads (default: the CPU count, at most 4). `progress(f)`
+    gets 0..1; `cancelled()` is checked between tasks (InterruptedError).
     """
     batch = getattr(engine, "diagnose_batch", None)
-    if batch is not None:
-        return list(batch(units, progress=progress, cancelled=cancelled,
-                          healthy_prior=healthy_prior))
-    return BatchScorer(engine, healthy_prior).run(units, progress, cancelled, chunk,
-                                                  threads)
+    with _gc_paused():
+        if batch is not None:
+            return list(batch(units, progress=progress, cancelled=cancelled,
+                              healthy_prior=healthy_prior))
+        return BatchScorer(engine, healthy_prior).run(units, progress, cancelled, chunk,
+                                                      threads)
 
 
 # The kernel product is taken to a logarithm every this many readings, so that it stays
@@ -114,6 +139,16 @@ _LOG_EVERY = 16
 _TILE_ELEMENTS = 1 << 16
 
 
+def _exp_floor(c: np.ndarray) -> np.ndarray:
+    """Lower bound (d,) for the exponent of the kernel factor exp(x) + c_j: below
+    log(c_j) - 40, exp(x) < c_j e^-40 is under half a unit in the last place of c_j, so
+    the factor is c_j exactly with or without it. Raising such x to the bound keeps every
+    factor bit for bit and keeps exp away from results near and below the smallest
+    normal float (e^-708), where it runs tens of times slower."""
+    with np.errstate(divide="ignore"):
+        return np.log(np.asarray(c, dtype=float)) - 40.0
+
+
 def kernel_loglik(ut: np.ndarray, Ut: np.ndarray, logpeak: np.ndarray, c: np.ndarray
                   ) -> np.ndarray:
     """log prod_j [ exp(logpeak_hj - (ut_ihj - Ut_jhk)^2) + c_j ], shape (n, H, K).
@@ -122,10 +157,12 @@ def kernel_loglik(ut: np.ndarray, Ut: np.ndarray, logpeak: np.ndarray, c: np.nda
     the readings and units pre-divided by s*sqrt(2) (ut (n, H, d), Ut (d, H, K)),
     logpeak = log((1-eps) / (s sqrt(2 pi))) (H, d) and c = eps / W (d,). NaN units give
     -inf. Units are taken a few at a time so that the working arrays stay in the CPU
-    cache; one pass over them per reading, one logarithm per _LOG_EVERY readings.
+    cache; one pass over them per reading, one logarithm per _LOG_EVERY readings; the
+    exponent is bounded below (`_exp_floor`, the same factors).
     """
     n, H, d = ut.shape
     K = Ut.shape[2]
+    floor = _exp_floor(c)
     out = np.zeros((n, H, K))
     tile = max(1, _TILE_ELEMENTS // (H * K))
     prod = np.empty((tile, H, K))
@@ -139,6 +176,7 @@ def kernel_loglik(ut: np.ndarray, Ut: np.ndarray, logpeak: np.ndarray, c: np.nda
                 np.subtract(ut[a:a + m, :, j, None], Ut[j][None], out=w_)
                 np.square(w_, out=w_)
                 np.subtract(logpeak[None, :, j, None], w_, out=w_)
+                np.maximum(w_, floor[j], out=w_)
                 np.exp(w_, out=w_)
                 w_ += c[j]
                 p_ *= w_
@@ -147,6 +185,107 @@ def kernel_loglik(ut: np.ndarray, Ut: np.ndarray, logpeak: np.ndarray, c: np.nda
                     p_.fill(1.0)
     out[np.isnan(out)] = -np.inf
     return out
+
+
+# Largest kernel tables of one `table_loglik` call (one hypothesis at a time), bytes:
+# a group whose distinct readings need more is split into that many row blocks.
+_TABLE_BYTES = 32 << 20
+# Tables are used when the readings take at most this share of distinct values (each
+# distinct value costs a kernel row; a unit's row then costs a gather instead).
+_TABLE_SHARE = 0.5
+# Units per tile of `table_loglik` (a 512 x K product array stays in the CPU cache).
+_TABLE_TILE = 512
+
+
+def table_loglik(u_read: np.ndarray, scale: np.ndarray, Ut: np.ndarray,
+                 logpeak: np.ndarray, c: np.ndarray, valid: np.ndarray, n_valid: np.ndarray,
+                 hyps: Sequence[int]) -> np.ndarray:
+    """Log-likelihood (n, len(hyps)) of the hypotheses `hyps` for many units at once:
+    infer's log mean_k prod_j [(1-eps) N(u_j; U_hkj, s_hj^2) + eps/W_j] over the valid
+    drawn units, the same as `kernel_loglik` followed by the log-mean over k.
+
+    A meter shows a few digits, so across a batch each reading takes far fewer distinct
+    values than there are units. Per hypothesis and reading, the kernel factor of each
+    distinct value against the K drawn units is computed once (a table, the same
+    floating-point operations as `kernel_loglik`); a unit's product over its readings
+    is then one table row per reading, gathered and multiplied. u_read (n, d) readings
+    in u coordinates; scale (H, d) = s*sqrt(2); Ut, logpeak, c as in `kernel_loglik`;
+    valid (H, K) drawn units that solved; n_valid (H,) their count; d >= 1. The product stays
+    linear (each factor lies between eps/W_j and 0.4) when the smallest possible
+    product, prod_j eps/W_j, is far inside the float64 range; else logarithms are taken
+    every _LOG_EVERY readings as in `kernel_loglik`.
+    """
+    n, d = u_read.shape
+    K = Ut.shape[2]
+    vals, inv = [], []
+    for j in range(d):
+        v, i = np.unique(u_read[:, j], return_inverse=True)
+        vals.append(v)
+        inv.append(i.reshape(-1))
+    # units in order of their readings: neighbouring units gather neighbouring table
+    # rows (cache locality); the output is put back in the given order
+    perm = np.lexsort(inv[::-1]) if d else np.arange(n)
+    inv = [i[perm] for i in inv]
+    floor = _exp_floor(c)
+    linear = float(np.sum(np.log(c))) > -600.0  # e^-600 ~ 1e-261 > the float64 floor
+    out = np.empty((n, len(hyps)))
+    tile = min(_TABLE_TILE, max(n, 1))
+    p = np.empty((tile, K))
+    w = np.empty((tile, K))
+    # one buffer for the tables of a hypothesis, reused (no allocation per table)
+    ends = np.cumsum([len(v) for v in vals]).tolist()
+    buf = np.empty((ends[-1] if d else 0, K))
+    us = np.empty(ends[-1] if d else 0)
+    with np.errstate(invalid="ignore", over="ignore", under="ignore", divide="ignore"):
+        for col, h in enumerate(hyps):
+            bad = ~valid[h]
+            tabs = []
+            for j in range(d):
+                a0 = ends[j - 1] if j else 0
+                t, u_ = buf[a0:ends[j]], us[a0:ends[j]]
+                np.divide(vals[j], scale[h, j], out=u_)
+                np.subtract(u_[:, None], Ut[j, h][None, :], out=t)
+                np.square(t, out=t)
+                np.subtract(logpeak[h, j], t, out=t)
+                np.maximum(t, floor[j], out=t)
+                np.exp(t, out=t)
+                t += c[j]
+                if linear:
+                    t[:, bad] = 0.0  # a unit that did not solve adds nothing to the mean
+                tabs.append(t)
+            for a in range(0, n, tile):
+                m = min(tile, n - a)
+                p_, w_ = p[:m], w[:m]
+                # mode "wrap": the indices are valid, and "raise" buffers `out` (slower)
+                np.take(tabs[0], inv[0][a:a + m], axis=0, out=p_, mode="wrap")
+                if linear:
+                    for j in range(1, d):
+                        np.take(tabs[j], inv[j][a:a + m], axis=0, out=w_, mode="wrap")
+                        p_ *= w_
+                    out[a:a + m, col] = np.log(p_.sum(axis=1)) - math.log(max(n_valid[h], 1))
+                    continue
+                o = np.zeros((m, K))
+                for j in range(1, d + 1):
+                    if j % _LOG_EVERY == 0 or j == d:
+                        o += np.log(p_)
+                        p_.fill(1.0)
+                    if j < d:
+                        np.take(tabs[j], inv[j][a:a + m], axis=0, out=w_, mode="wrap")
+                        p_ *= w_
+                o[np.isnan(o)] = -np.inf
+                o[:, bad] = -np.inf
+                out[a:a + m, col] = _logmeanexp(o, n_valid[h])
+            if n_valid[h] == 0:
+                out[:, col] = -np.inf
+    back = np.empty_like(out)
+    back[perm] = out
+    return back
+
+
+def _logmeanexp(x: np.ndarray, n) -> np.ndarray:
+    from diag.core.infer import _logmeanexp as f
+
+    return f(x, np.asarray(n))
 
 
 def groups_batch(ap: np.ndarray, orders: np.ndarray) -> np.ndarray:
@@ -160,10 +299,12 @@ def groups_batch(ap: np.ndarray, orders: np.ndarray) -> np.ndarray:
     count = np.zeros(n, dtype=int)
     rows = np.arange(n)
     cols = np.arange(H + 1)
+    top = 1  # groups formed so far by any unit, plus one (the next new group)
     for t in range(H):
         h = orders[:, t]
-        free = ~blocked[rows, :, h] & (cols[None, :] <= count[:, None])  # (n, H+1)
+        free = ~blocked[rows, :top, h] & (cols[None, :top] <= count[:, None])  # (n, top)
         gi = np.argmax(free, axis=1)  # first free group; the next new one is always free
+        top = min(H + 1, max(top, int(gi.max()) + 2))
         count = np.maximum(count, gi + 1)
         g[rows, h] = gi
         blocked[rows, gi] |= ap[h]
@@ -173,14 +314,21 @@ def groups_batch(ap: np.ndarray, orders: np.ndarray) -> np.ndarray:
 class BatchScorer:
     """Engine.diagnose vectorised across units (see infer.py for the likelihood).
 
-    Units are grouped by the set S of observables they read. For a group, the kernel
-    mixture of infer.score is evaluated for a block of units at once as a product over
-    the readings in S (one logarithm per unit, hypothesis and drawn unit instead of one
-    per reading; the same value to rounding). The goodness-of-fit reference of
-    infer.fit_pvalue does not depend on the readings, only on (hypothesis, S): it is
-    computed once per pair and each unit's p-value is a lookup in it. A unit that no
-    single hypothesis fits goes to Engine.diagnose itself (it tries pairs of faults);
-    the next-reading advice, bench notes and texts are the engine's own.
+    Units are grouped by the set S of observables they read. The kernel mixture of
+    infer.score is a product over the readings in S (one logarithm per unit, hypothesis
+    and drawn unit instead of one per reading; the same value to rounding):
+    - a group of at least `table_min` units that takes every reading (so no advice,
+      which needs the per-unit kernel) is scored whole through `table_loglik`, its
+      hypotheses spread over the threads, then finished in blocks of 4 x `chunk`;
+    - any other group in blocks of `chunk` units through `kernel_loglik`.
+    The goodness-of-fit reference of infer.fit_pvalue does not depend on the readings,
+    only on (hypothesis, S, reference): it is computed once per triple and each unit's
+    p-value is a lookup in it. A unit that no single hypothesis fits is tested against
+    the reference with slips as Engine.diagnose does; only a unit that fails that too
+    (Engine.diagnose then tries pairs of faults) goes to Engine.diagnose itself. The
+    next-reading advice, bench notes (notes.bench_notes_many) and texts are the
+    engine's own. The cyclic garbage collector is paused while the results are built
+    (`_gc_paused`).
     """
 
     def __init__(self, engine: Engine, healthy_prior: float | None = None):
@@ -200,6 +348,7 @@ class BatchScorer:
         self.eps = float(inf["blunder"])
         self.alpha = float(inf["fit_alpha"])
         self.top = int(inf["fit_test_top"])
+        self.fit_blunders = bool(inf["fit_blunders"])
         self.lo, self.W = engine._blunder
         self.spread = engine._spread
         self.scott = engine._scott  # the fit test's kernel (Engine._fit)
@@ -235,6 +384,10 @@ class BatchScorer:
                             g["c"])
         llk = np.where(self.valid[None], llk, -np.inf)
         ll = self.infer._logmeanexp(llk, self.n)
+        return llk, ll, self._posterior(ll)
+
+    def _posterior(self, ll: np.ndarray) -> np.ndarray:
+        """Posterior (n, H) from the log-likelihood (n, H), as infer.score."""
         lp = self.log_prior[None] + ll
         fin = np.isfinite(lp)
         m = np.where(fin.any(axis=1), np.max(np.where(fin, lp, -np.inf), axis=1), 0.0)
@@ -242,13 +395,14 @@ class BatchScorer:
             post = np.exp(lp - m[:, None])
         post = np.where(np.isfinite(post), post, 0.0)
         tot = post.sum(axis=1, keepdims=True)
-        post = np.where(tot > 0, post / np.where(tot > 0, tot, 1.0), 1.0 / post.shape[1])
-        return llk, ll, post
+        return np.where(tot > 0, post / np.where(tot > 0, tot, 1.0), 1.0 / post.shape[1])
 
-    def _reference(self, h: int, g: dict):
+    def _reference(self, h: int, g: dict, which: str = "main"):
         """Sorted goodness-of-fit reference statistics of hypothesis h for the readings
-        S of group g, and the kernel widths it used (d,); None with fewer than 3 units."""
-        key = (h, tuple(int(j) for j in g["idx"]))
+        S of group g, and the kernel widths it used (d,); None with fewer than 3 units.
+        `which`: the ensemble's reference ("main") or the one with blunders at the
+        modelled rate ("slip", Engine._slip_ref)."""
+        key = (h, tuple(int(j) for j in g["idx"]), which)
         if key in self._refs:
             return self._refs[key]
         inf, idx, eps = self.infer, g["idx"], self.eps
@@ -260,7 +414,7 @@ class BatchScorer:
         Kv = Uv.shape[0]
         s = np.sqrt(1.0 + inf.bandwidth(self.U[h][valid][None], len(idx),
                                         self.scott[h][None])[0, idx] ** 2)
-        r = self.ref
+        r = self.ref if which == "main" else self.engine._slip_ref()
         k = r["ref_k"] % Kv
         sim = Uv[k] + r["ref_z"][:, idx]
         blunder = self.lo[idx] + r["ref_w"][:, idx] * self.W[idx]
@@ -275,24 +429,28 @@ class BatchScorer:
         self._refs[key] = out
         return out
 
-    def _pvalues(self, g: dict, ll: np.ndarray, post: np.ndarray, u_read: np.ndarray
-                 ) -> np.ndarray:
+    def _pvalues(self, g: dict, ll: np.ndarray, post: np.ndarray, u_read: np.ndarray,
+                 which: str = "main") -> np.ndarray:
         """Goodness of fit (n,) of a block: for each unit the largest predictive p-value
-        among its `fit_test_top` leading hypotheses (infer.fit_pvalue's statistic)."""
+        among its `fit_test_top` leading hypotheses (infer.fit_pvalue's statistic)
+        against reference `which` (see `_reference`)."""
         lead = np.argsort(-post, axis=1)[:, :self.top]
         pv = np.zeros(lead.shape)
         for h in np.unique(lead):
             rows, cols = np.nonzero(lead == h)
-            got = self._reference(int(h), g)
+            got = self._reference(int(h), g, which)
             if got is None:
                 continue  # fewer than 3 units solved: p = 0, as fit_pvalue says
             ref, R, s, Uv = got
             if np.array_equal(s, g["s"][h]):
                 obs = ll[rows, h]
-            else:  # units with a gap at some readings only: the fit's own kernel widths
-                obs = np.array([float(self.infer._logmeanexp(self.infer._log_kernel(
-                    Uv, u_read[r], s, self.eps, self.W[g["idx"]]), np.array(Uv.shape[0])))
-                    for r in rows])
+            else:  # the fit's own kernel widths (Scott's, Engine.fit_p), all rows at once
+                scale = s * math.sqrt(2.0)
+                lk = kernel_loglik((u_read[rows] / scale)[:, None, :],
+                                   (Uv / scale).T[:, None, :],
+                                   np.log((1.0 - self.eps) / (s * math.sqrt(2.0 * math.pi)))[
+                                       None], self.eps / self.W[g["idx"]])[:, 0, :]
+                obs = self.infer._logmeanexp(lk, np.array(Uv.shape[0]))
             pv[rows, cols] = (np.searchsorted(ref, obs, side="right") + 1) / (R + 1)
         return pv.max(axis=1)
 
@@ -313,15 +471,21 @@ class BatchScorer:
         names = [f"{o.point} {o.kind}" for o in (self.engine.observables[j] for j in idx)]
         return [[names[k] for k in np.nonzero(row < floor)[0]] for row in per]
 
-    def _finish(self, rs, idx, vals, rejected, llk, ll, post, pval, order, group, odd
+    def _used(self, rs, idx, vals, rejected) -> Sequence[Reading]:
+        """The readings diagnose uses (one per observable, the last given), in
+        observable order unless each was given once as is."""
+        if len(rs) == len(idx) and not rejected:  # each reading used once, as given
+            return rs
+        obs = self.engine.observables
+        return [Reading(obs[j].point, obs[j].kind, v) for j, v in zip(idx, vals, strict=True)]
+
+    def _finish(self, idx, rejected, llk, ll, post, pval, order, group, odd, nts
                 ) -> Diagnosis:
-        from diag.core import notes
         from diag.core.engine import Suspect
 
         eng = self.engine
         d = len(idx)
-        if pval < self.alpha and d:
-            return eng.diagnose(rs, healthy_prior=self.hp)
+        fits = pval >= self.alpha
         specs = self.specs
         # groups_batch numbers the groups down this order already, which is the
         # first-appearance numbering Engine.diagnose gives its suspects
@@ -333,79 +497,142 @@ class BatchScorer:
                               group)
         else:
             nxt = []
-        obs = eng.observables
-        if len(rs) == d and not rejected:  # each reading used once, as given
-            used = rs
-        else:
-            used = [Reading(obs[j].point, obs[j].kind, v)
-                    for j, v in zip(idx, vals, strict=True)]
-        nts = tuple(notes.bench_notes(eng.case, eng.rules, used, self._acc))
-        fit_text = eng._fit_text(True, pval, d, specs[order[0]], False)
+        fit_text = eng._fit_text(fits, pval, d, specs[order[0]], False)
         if odd:  # the sentence Engine.diagnose adds (kept word for word; tests compare)
             fit_text += (f" {', '.join(odd)} {'does' if len(odd) == 1 else 'do'} not fit the "
                          f"leading suspect: a slip of the probe or range, or a fault outside "
                          f"the model; take {'it' if len(odd) == 1 else 'them'} again.")
         confirm = {specs[h].id: specs[h].confirm for h in order[:5]}
-        return Diagnosis(d, True, suspects, tuple(nxt), nts, fit_text,
+        return Diagnosis(d, fits, suspects, tuple(nxt), tuple(nts), fit_text,
                          tuple(rejected), {"p_value": pval, "pairs_tried": False,
                                            "confirm": confirm, "odd_readings": odd})
 
-    def _block(self, items: list[int], matched, units, g: dict, out: list) -> None:
+    def _block(self, items: list[int], matched, units, g: dict, out: list,
+               rows: slice | None = None) -> None:
+        """Diagnose units `items` of group g into `out`. With `rows`, their readings and
+        log-likelihoods are rows of the group's tables (g["u_all"], g["ll_all"]) and no
+        per-unit kernel is kept (the group takes every reading: no advice needs it)."""
+        from diag.core import notes
+
         if not len(g["idx"]):
             for i in items:
                 out[i] = self.engine.diagnose(units[i], healthy_prior=self.hp)
             return
-        vals = np.stack([matched[i][1] for i in items])
-        u_read = self.engine._noise_obj.u(vals, g["idx"])
-        llk, ll, post = self._score(g, u_read)
-        pval = self._pvalues(g, ll, post, u_read).tolist()
+        if rows is None:
+            vals = np.stack([matched[i][1] for i in items])
+            u_read = self.engine._noise_obj.u(vals, g["idx"])
+            llk, ll, post = self._score(g, u_read)
+        else:
+            u_read, ll = g["u_all"][rows], g["ll_all"][rows]
+            llk, post = None, self._posterior(ll)
+        pval = self._pvalues(g, ll, post, u_read)
+        # Engine.diagnose tries pairs of faults when no single one fits, not even with
+        # one slip of the probe (the reference with blunders at the modelled rate)
+        low = np.flatnonzero(pval < self.alpha)
+        if len(low) and not self.fit_blunders:
+            slip = self._pvalues(g, ll[low], post[low], u_read[low], "slip")
+            low = low[slip < self.alpha]
+        pairs = set(low.tolist())
+        pval = pval.tolist()
         orders = np.argsort(-post, axis=1, kind="stable")
         groups = groups_batch(self.engine._apart, orders)  # around each unit's leaders
         odd = self._odd(g, u_read, orders[:, 0])
+        eng = self.engine
+        nts = notes.bench_notes_many(eng.case, eng.rules,
+                                     [self._used(units[i], *matched[i]) for i in items],
+                                     self._acc)
         for r, i in enumerate(items):
-            idx, v, rej = matched[i]
-            out[i] = self._finish(units[i], idx, v, rej, llk[r], ll[r], post[r], pval[r],
-                                  orders[r], groups[r], odd[r])
+            if r in pairs:
+                out[i] = eng.diagnose(units[i], healthy_prior=self.hp)
+                continue
+            idx, _, rej = matched[i]
+            out[i] = self._finish(idx, rej, None if llk is None else llk[r], ll[r], post[r],
+                                  pval[r], orders[r], groups[r], odd[r], nts[r])
+
+    def _table_part(self, g: dict, rows: slice, hyps: list[int]) -> None:
+        """Log-likelihoods of hypotheses `hyps` for the group's units `rows`
+        (table_loglik), into g["ll_all"]."""
+        g["ll_all"][rows, hyps] = table_loglik(
+            g["u_all"][rows], g["scale"], g["Ut"], g["logpeak"], g["c"], self.valid,
+            self.n, hyps)
 
     def run(self, units: Sequence[Sequence[Reading]], progress=None, cancelled=None,
-            chunk: int = 64, threads: int | None = None) -> list[Diagnosis]:
+            chunk: int = 64, threads: int | None = None, table_min: int = 256
+            ) -> list[Diagnosis]:
+        """Diagnose `units` (see the class). A group of at least `table_min` units that
+        take every reading is scored through shared tables first (`table_loglik`, split
+        by hypotheses over the threads), then finished block by block."""
         from concurrent.futures import ThreadPoolExecutor
 
         matched = [self.engine._match(rs) for rs in units]
         by_key: dict[tuple[int, ...], list[int]] = {}
         for i, (idx, _, _) in enumerate(matched):
             by_key.setdefault(tuple(int(j) for j in idx), []).append(i)
-        blocks = []
-        for key, members in by_key.items():
-            g = self._prepare(key)
-            for b in range(0, len(members), chunk):
-                blocks.append((members[b:b + chunk], g))
-        out: list = [None] * len(units)
         if threads is None:
             threads = max(1, min(4, os.cpu_count() or 1))
-        total = max(len(units), 1)
-        done = 0
+        H = self.U.shape[0]
+        M = len(self.engine.observables)
+        out: list = [None] * len(units)
+        tables, blocks = [], []  # (weight in units, function, arguments)
+        for key, members in by_key.items():
+            g = self._prepare(key)
+            use = len(key) == M and len(members) >= max(table_min, 1)
+            if use:
+                vals = np.stack([matched[i][1] for i in members])
+                distinct = sum(len(np.unique(vals[:, j])) for j in range(len(key)))
+                use = distinct <= _TABLE_SHARE * vals.size
+            if use:
+                g["u_all"] = self.engine._noise_obj.u(vals, g["idx"])
+                g["ll_all"] = np.empty((len(members), H))
+                parts = max(threads, H // 16)  # a few hypotheses per task
+                pieces = math.ceil(distinct * self.U.shape[1] * 8 / _TABLE_BYTES)
+                step_rows = math.ceil(len(members) / pieces)
+                for a in range(0, len(members), step_rows):
+                    rows = slice(a, min(a + step_rows, len(members)))
+                    n_rows = rows.stop - rows.start
+                    for hs in np.array_split(np.arange(H), parts):
+                        tables.append((n_rows * len(hs) / H, self._table_part,
+                                       (g, rows, hs.tolist())))
+                big = 4 * chunk  # no per-unit kernel to hold: larger blocks
+                for b in range(0, len(members), big):
+                    blocks.append((len(members[b:b + big]), self._block,
+                                   (members[b:b + big], matched, units, g, out,
+                                    slice(b, b + big))))
+            else:
+                for b in range(0, len(members), chunk):
+                    blocks.append((len(members[b:b + chunk]), self._block,
+                                   (members[b:b + chunk], matched, units, g, out)))
+        total = max(sum(w for w, _, _ in tables) + sum(w for w, _, _ in blocks), 1)
+        state = {"done": 0.0}
+
+        def step(w: float) -> None:
+            state["done"] += w
+            if progress is not None:
+                progress(min(1.0, state["done"] / total))
+
+        def check() -> None:
+            if cancelled is not None and cancelled():
+                raise InterruptedError("triage cancelled")
+
         if threads <= 1:  # in the calling thread
-            for items, g in blocks:
-                if cancelled is not None and cancelled():
-                    raise InterruptedError("triage cancelled")
-                self._block(items, matched, units, g, out)
-                done += len(items)
-                if progress is not None:
-                    progress(done / total)
+            for phase in (tables, blocks):
+                for w, f, args in phase:
+                    check()
+                    f(*args)
+                    step(w)
             return out
         with ThreadPoolExecutor(max_workers=threads) as pool:
-            futures = [(len(items), pool.submit(self._block, items, matched, units, g, out))
-                       for items, g in blocks]
-            for n, f in futures:
-                if cancelled is not None and cancelled():
-                    for _, rest in futures:
-                        rest.cancel()
-                    raise InterruptedError("triage cancelled")
-                f.result()
-                done += n
-                if progress is not None:
-                    progress(done / total)
+            for phase in (tables, blocks):  # every table is complete before the blocks
+                futures = [(w, pool.submit(f, *args)) for w, f, args in phase]
+                for w, fut in futures:
+                    try:
+                        check()
+                    except InterruptedError:
+                        for _, rest in futures:
+                            rest.cancel()
+                        raise
+                    fut.result()
+                    step(w)
         return out
 
 
@@ -424,16 +651,18 @@ def triage(engine: Engine, units: Mapping[str, Sequence[Reading]],
         measured.update((r.point, r.kind) for r in rs)
     order = [(o.point, o.kind) for o in engine.case.observables if (o.point, o.kind) in
              measured]
-    diags = rank_batch(engine, readings, progress=progress, cancelled=cancelled,
-                       healthy_prior=healthy_prior, threads=threads)
-    results = []
-    for name, rs, d in zip(names, readings, diags, strict=True):
-        have = {(r.point, r.kind) for r in rs}
-        results.append(UnitResult(unit=name, readings=rs, diagnosis=d, status=_status(d),
-                                  missing=tuple(k for k in order if k not in have)))
-    res = TriageResult(case=engine.case, engine=engine, units=tuple(results),
-                       rejected=tuple(rejected))
-    object.__setattr__(res, "summary", summarise(res))
+    with _gc_paused():
+        diags = rank_batch(engine, readings, progress=progress, cancelled=cancelled,
+                           healthy_prior=healthy_prior, threads=threads)
+        results = []
+        for name, rs, d in zip(names, readings, diags, strict=True):
+            have = {(r.point, r.kind) for r in rs}
+            results.append(UnitResult(unit=name, readings=rs, diagnosis=d,
+                                      status=_status(d),
+                                      missing=tuple(k for k in order if k not in have)))
+        res = TriageResult(case=engine.case, engine=engine, units=tuple(results),
+                           rejected=tuple(rejected))
+        object.__setattr__(res, "summary", summarise(res))
     return res
 
 
@@ -447,9 +676,7 @@ def summarise(res: TriageResult) -> dict[str, Any]:
     hyps = {h.id: h for h in res.engine.ensemble.hypotheses}
     by_fault: Counter = Counter()
     by_part: Counter = Counter()
-    exp_fault: Counter = Counter()
-    exp_part: Counter = Counter()
-    parts: dict[str, tuple[str, ...]] = {}  # fault id -> its parts, looked up once each
+    exp: dict[str, float] = {}  # fault id -> sum of its p over the faulty units
     for u in res.units:
         if u.status != "fault":
             continue
@@ -457,16 +684,16 @@ def summarise(res: TriageResult) -> dict[str, Any]:
         by_fault[top] += 1
         for ref in _parts(hyps, top):
             by_part[ref] += 1
-        for s in u.diagnosis.suspects:
-            f, p = s.fault, s.p
-            if p <= 0 or f == "healthy":
-                continue
-            exp_fault[f] += p
-            refs = parts.get(f)
-            if refs is None:
-                refs = parts[f] = _parts(hyps, f)
-            for ref in refs:
-                exp_part[ref] += p
+        get = exp.get
+        for f, p, _, _ in u.diagnosis.suspects:
+            if p > 0:
+                exp[f] = get(f, 0.0) + p
+    exp.pop("healthy", None)
+    exp_fault: Counter = Counter(exp)
+    exp_part: Counter = Counter()  # a part's sum over every fault involving it
+    for f, e in exp.items():
+        for ref in _parts(hyps, f):
+            exp_part[ref] += e
 
     def table(counts: Counter, expected: Counter, key: str) -> list[dict]:
         rows = [{key: k, "units": n, "expected": round(float(expected[k]), 3)}
