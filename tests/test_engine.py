@@ -183,8 +183,18 @@ def test_bench_notes_from_readings_alone(eng):
     d = eng.diagnose([Reading("TP2", "dc", 12.0), Reading("TP5", "dc", 11.95),
                       Reading("TP4", "dc", 0.0)])
     text = " ".join(d.notes)
-    assert "sits at the supply" in text and "off" in text
+    assert "sits at vcc" in text and "off" in text
     assert d.to_json("x")["notes"] == list(d.notes)
+
+
+def test_a_pnp_collector_at_ground_is_named_so():
+    """A high-side PNP whose load returns to ground carries no collector current when
+    its collector sits at ground (common practice, no source)."""
+    eng = Engine(load_case(cases_dir() / "lamp-switch.yaml"), K=16)
+    d = eng.diagnose([Reading("TP2", "dc", 12.0), Reading("TP5", "dc", 11.9),
+                      Reading("TP6", "dc", 0.0)])
+    text = " ".join(d.notes)
+    assert "Q2: the collector sits at gnd" in text and "vcc" not in text
 
 
 def test_cache_is_invalidated_by_a_rules_edit(tmp_path, monkeypatch):

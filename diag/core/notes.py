@@ -44,7 +44,7 @@ def bench_notes_many(case: Case, rules, units: Sequence[Sequence], meter_accurac
     checks = _applicable(case, rules)
     rails = [p for p in case.parts if p.kind == "supply"]
     fixed = {case.ground, *(n for p in rails for n in p.nodes)}
-    return [_notes(checks, rails, fixed, node_volts(case, rs), meter_accuracy)
+    return [_notes(checks, rails, fixed, node_volts(case, rs), meter_accuracy, case.ground)
             for rs in units]
 
 
@@ -68,8 +68,11 @@ def _applicable(case: Case, rules) -> list[tuple]:
     return out
 
 
-def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy) -> list[str]:
-    """The notes of one unit's node volts `v` (see `bench_notes`)."""
+def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy, ground: str
+           ) -> list[str]:
+    """The notes of one unit's node volts `v` (see `bench_notes`). `{rail}` in a
+    near-supply text names the rail the collector sits at: the supply's node for an NPN,
+    ground for a PNP (whose load returns there)."""
     out = []
     for part, chk, n1, n2 in checks:
         if n1 not in v or n2 not in v:
@@ -79,7 +82,7 @@ def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy) -> list[st
         if chk.get("near_supply"):
             if n1 in fixed:  # wired straight to a rail: says nothing
                 continue
-            hit = False
+            hit, rail_name = False, ""
             for sp in rails:
                 rail = v.get(sp.nodes[0], sp.value or 0.0)
                 target = rail if part.kind != "pnp" else 0.0
@@ -87,6 +90,7 @@ def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy) -> list[st
                        else 0.01 * abs(target)) + 0.02 * abs(rail)
                 if rail > 0.5 and abs(v[n1] - target) <= tol:
                     hit = True
+                    rail_name = sp.nodes[0] if part.kind != "pnp" else ground
             if not hit:
                 continue
             shown = v[n1]
@@ -94,7 +98,7 @@ def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy) -> list[st
             lo, hi = chk["range"]
             if not lo <= val <= hi:
                 continue
-            shown = val
-        out.append(chk["text"].format(ref=part.ref, kind=part.kind,
+            shown, rail_name = val, ""
+        out.append(chk["text"].format(ref=part.ref, kind=part.kind, rail=rail_name,
                                       v=format_value(shown, "V")))
     return out
