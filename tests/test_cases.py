@@ -109,6 +109,26 @@ def _relay(case, v, circuit, dc):
     assert (v["vcc"] - v["coil"]) / 390.0 == pytest.approx(12 / 390, rel=0.05)
 
 
+def _lamp(case, v, circuit, dc):
+    # Saturated switches (common practice, no source: saturation leaves under 0.3 V across
+    # collector and emitter); lamp current ≈ 12 V / 120 Ω by Ohm's law.
+    assert v["c1"] < 0.3
+    assert v["vcc"] - v["lamp"] < 0.3
+    assert v["lamp"] / 120.0 == pytest.approx(12 / 120, rel=0.05)
+
+
+def _line_driver(case, v, circuit, dc):
+    _classa([("c1", "b1", "e1")])(case, v, circuit, dc)
+    # Emitter follower: the emitter one base-emitter drop below the base (handbook).
+    assert 0.55 < v["c1"] - v["e2"] < 0.8
+    ac = solver.solve_ac(circuit, {}, dc)
+    g = abs(ac.v[0, circuit.node_index["c1"]] / ac.v[0, circuit.node_index["b1"]])
+    # Handbook: CE gain ≈ R_C / (r_e + R_E unbypassed); by hand I_E = 1.56 V / 1720 Ω =
+    # 0.91 mA, r_e = 25.85 mV / 0.91 mA = 28 Ω, 10k (the follower's input is near 1 MΩ)
+    # / (28 + 220) Ω ≈ 40 (the about text says "about 40").
+    assert 35 < g < 44
+
+
 FACTS = {
     "chime-buffer": _chime,
     "sounder-driver": _classa([("col", "base", "emit")]),
@@ -116,6 +136,8 @@ FACTS = {
     "pushpull-output": _pushpull,
     "series-regulator": _regulator,
     "relay-switch": _relay,
+    "lamp-switch": _lamp,
+    "line-driver": _line_driver,
 }
 
 
