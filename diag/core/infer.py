@@ -134,7 +134,6 @@ def kernel_spread(U: np.ndarray, z: np.ndarray, W: np.ndarray, eps: float,
     H, K, M = U.shape
     sp = spread(U)
     grid = np.asarray(grid, dtype=float)
-    C = len(grid)
     ok = np.all(np.isfinite(U), axis=2)                               # (H, K)
     n = ok.sum(axis=1)
     bw = sp * np.maximum(n, 1)[:, None] ** (-1.0 / (M + 4))           # (H, M)
