@@ -558,35 +558,42 @@ class Engine:
 
     def fit_p(self, U, h: int, idx, u_read, ref: dict | None = None, specs=None) -> float:
         """Predictive p-value (infer.fit_pvalue) of readings u_read at observables idx
-        under hypothesis h of U's rows. `specs` (the hypotheses of U's rows) lets the
-        readings-independent reference be kept per (hypothesis, readings taken,
-        reference) in `_fit_refs`; the p-value is the same. The statistic uses Scott's
-        kernel width (infer.spread), smoother than the ranking's: it is calibrated by its
-        own reference either way, and the smoother one tells a misfit more surely."""
+        under hypothesis h of U's rows, against `fit_reference`."""
         from diag.core import infer
 
         if len(idx) == 0:
             return 1.0
+        return infer.fit_pvalue_from(self.fit_reference(U, h, idx, ref, specs), u_read)
+
+    def fit_reference(self, U, h: int, idx, ref: dict | None = None, specs=None):
+        """infer.fit_reference of hypothesis h of U's rows for the readings taken at idx
+        (not empty), against `ref` (default the ensemble's reference; or _slip_ref()).
+        `specs` (the hypotheses of U's rows) lets it be kept per (hypothesis, readings
+        taken, reference) in `_fit_refs`, for diagnose and triage alike. The statistic
+        uses Scott's kernel width (infer.spread), smoother than the ranking's: it is
+        calibrated by its own reference either way, and the smoother one tells a misfit
+        more surely."""
+        from diag.core import infer
+
         ens = self.ensemble
         ref = ens.ref if ref is None else ref
         lo, W = self._blunder
         sp = self._scott if U.shape[0] == self._scott.shape[0] else None
-        eps = float(self.inf["blunder"])
         taken = tuple(int(j) for j in idx)
         which = "main" if ref is ens.ref else "slip" if ref is self._ref_slip else None
-        if which is None:
-            specs = None  # a reference of the caller's own: not kept
-        key = None if specs is None else (specs[h].id, taken, which, sp is None)
+        key = None if specs is None or which is None else (
+            specs[h].id, taken, which, sp is None)
         fr = self._fit_refs.get(key, False) if key is not None else False
         if fr is False:
-            fr = infer.fit_reference(U[h], idx, eps, lo, W, ref["ref_k"], ref["ref_z"],
-                                     ref["ref_b"], ref["ref_w"],
+            fr = infer.fit_reference(U[h], np.asarray(idx, dtype=int),
+                                     float(self.inf["blunder"]), lo, W, ref["ref_k"],
+                                     ref["ref_z"], ref["ref_b"], ref["ref_w"],
                                      None if sp is None else sp[h])
             if key is not None:
                 if len(self._fit_refs) >= FIT_REF_KEEP:
                     self._fit_refs.clear()
                 self._fit_refs[key] = fr
-        return infer.fit_pvalue_from(fr, u_read)
+        return fr
 
     def _slip_ref(self) -> dict:
         """The fit reference with blunders at the modelled rate: readings a single fault

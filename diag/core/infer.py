@@ -288,10 +288,19 @@ def fit_pvalue_from(fr: FitReference | None, u_read: np.ndarray) -> float:
     set: (number of reference statistics <= the observed one + 1) / (R + 1)."""
     if fr is None:
         return 0.0
-    obs = _logmeanexp(_log_kernel(fr.U, u_read, fr.s, fr.eps, fr.W_S),
+    return float(fit_pvalues_from(fr, np.asarray(u_read, float)[None])[0])
+
+
+def fit_pvalues_from(fr: FitReference | None, u_reads: np.ndarray) -> np.ndarray:
+    """`fit_pvalue_from` of many units' readings at once: u_reads (n, d) -> (n,)."""
+    n = len(u_reads)
+    if fr is None:
+        return np.zeros(n)
+    obs = _logmeanexp(_log_kernel(fr.U, u_reads, fr.s, fr.eps, fr.W_S),
                       np.array(fr.U.shape[0]))
-    n = 0 if np.isnan(obs) else int(np.searchsorted(fr.sorted_ref, obs, side="right"))
-    return float((n + 1) / (fr.R + 1))
+    below = np.searchsorted(fr.sorted_ref, np.where(np.isnan(obs), -np.inf, obs),
+                            side="right")
+    return np.where(np.isnan(obs), 1, below + 1) / (fr.R + 1)
 
 
 def band_q(U: np.ndarray, q: float) -> tuple[np.ndarray, np.ndarray]:

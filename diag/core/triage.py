@@ -322,20 +322,20 @@ class BatchScorer:
       hypotheses spread over the threads, then finished in blocks of 4 x `chunk`;
     - any other group in blocks of `chunk` units through `kernel_loglik`.
     The goodness-of-fit reference of infer.fit_pvalue does not depend on the readings,
-    only on (hypothesis, S, reference): it is computed once per triple and each unit's
-    p-value is a lookup in it. A unit that no single hypothesis fits is tested against
-    the reference with slips as Engine.diagnose does; only a unit that fails that too
-    (Engine.diagnose then tries pairs of faults) goes to Engine.diagnose itself. The
-    next-reading advice, bench notes (notes.bench_notes_many) and texts are the
-    engine's own. The cyclic garbage collector is paused while the results are built
-    (`_gc_paused`).
+    only on (hypothesis, S, reference): the engine keeps one per triple
+    (Engine.fit_reference, shared with diagnose) and each unit's p-value is a lookup. A
+    unit that no single hypothesis fits is tested against the reference with slips as
+    Engine.diagnose does; only a unit that fails that too (Engine.diagnose then tries
+    pairs of faults) goes to Engine.diagnose itself. The next-reading advice, bench
+    notes (notes.bench_notes_many) and texts are the engine's own. The cyclic garbage
+    collector is paused while the results are built (`_gc_paused`).
     """
 
     def __init__(self, engine: Engine, healthy_prior: float | None = None):
         from diag.core import infer
 
         self.engine = engine
-        ens = engine.ensemble
+        engine.build()
         inf = engine.inf
         hp = float(inf["healthy_prior"]) if healthy_prior is None else float(healthy_prior)
         if not 0.0 <= hp < 1.0:
@@ -351,13 +351,10 @@ class BatchScorer:
         self.fit_blunders = bool(inf["fit_blunders"])
         self.lo, self.W = engine._blunder
         self.spread = engine._spread
-        self.scott = engine._scott  # the fit test's kernel (Engine._fit)
         with np.errstate(divide="ignore"):
             self.log_prior = np.log(engine._priors(hp, self.specs))
         self.valid = np.all(np.isfinite(self.U), axis=2)
         self.n = self.valid.sum(axis=1)
-        self.ref = ens.ref
-        self._refs: dict[tuple[int, tuple[int, ...]], tuple] = {}
         # the meter's accuracy bound for the bench notes, remembered per shown value
         # (readings repeat across a batch: they are rounded to the display resolution)
         self._acc = functools.lru_cache(maxsize=1 << 16)(engine._accuracy_fn())
@@ -397,61 +394,20 @@ class BatchScorer:
         tot = post.sum(axis=1, keepdims=True)
         return np.where(tot > 0, post / np.where(tot > 0, tot, 1.0), 1.0 / post.shape[1])
 
-    def _reference(self, h: int, g: dict, which: str = "main"):
-        """Sorted goodness-of-fit reference statistics of hypothesis h for the readings
-        S of group g, and the kernel widths it used (d,); None with fewer than 3 units.
-        `which`: the ensemble's reference ("main") or the one with blunders at the
-        modelled rate ("slip", Engine._slip_ref)."""
-        key = (h, tuple(int(j) for j in g["idx"]), which)
-        if key in self._refs:
-            return self._refs[key]
-        inf, idx, eps = self.infer, g["idx"], self.eps
-        valid = self.valid[h]
-        if valid.sum() < 3:
-            self._refs[key] = None
-            return None
-        Uv = self.U[h][valid][:, idx]
-        Kv = Uv.shape[0]
-        s = np.sqrt(1.0 + inf.bandwidth(self.U[h][valid][None], len(idx),
-                                        self.scott[h][None])[0, idx] ** 2)
-        r = self.ref if which == "main" else self.engine._slip_ref()
-        k = r["ref_k"] % Kv
-        sim = Uv[k] + r["ref_z"][:, idx]
-        blunder = self.lo[idx] + r["ref_w"][:, idx] * self.W[idx]
-        sim = np.where(r["ref_b"][:, idx] < eps, blunder, sim)
-        scale = s * math.sqrt(2.0)
-        llk = kernel_loglik((sim / scale)[:, None, :], (Uv / scale).T[:, None, :],
-                            np.log((1.0 - eps) / (s * math.sqrt(2.0 * math.pi)))[None],
-                            eps / self.W[idx])[:, 0, :]
-        llk[np.arange(len(k)), k] = -np.inf
-        ref = inf._logmeanexp(llk, np.array(Kv - 1))
-        out = (np.sort(ref[~np.isnan(ref)]), len(ref), s, Uv)
-        self._refs[key] = out
-        return out
-
-    def _pvalues(self, g: dict, ll: np.ndarray, post: np.ndarray, u_read: np.ndarray,
+    def _pvalues(self, g: dict, post: np.ndarray, u_read: np.ndarray,
                  which: str = "main") -> np.ndarray:
         """Goodness of fit (n,) of a block: for each unit the largest predictive p-value
-        among its `fit_test_top` leading hypotheses (infer.fit_pvalue's statistic)
-        against reference `which` (see `_reference`)."""
+        among its `fit_test_top` leading hypotheses, against the ensemble's reference
+        (`which` "main") or the one with slips ("slip"), from the engine's own kept
+        reference of each (hypothesis, readings taken) (Engine.fit_reference)."""
+        eng = self.engine
+        ref = eng.ensemble.ref if which == "main" else eng._slip_ref()
         lead = np.argsort(-post, axis=1)[:, :self.top]
         pv = np.zeros(lead.shape)
         for h in np.unique(lead):
             rows, cols = np.nonzero(lead == h)
-            got = self._reference(int(h), g, which)
-            if got is None:
-                continue  # fewer than 3 units solved: p = 0, as fit_pvalue says
-            ref, R, s, Uv = got
-            if np.array_equal(s, g["s"][h]):
-                obs = ll[rows, h]
-            else:  # the fit's own kernel widths (Scott's, Engine.fit_p), all rows at once
-                scale = s * math.sqrt(2.0)
-                lk = kernel_loglik((u_read[rows] / scale)[:, None, :],
-                                   (Uv / scale).T[:, None, :],
-                                   np.log((1.0 - self.eps) / (s * math.sqrt(2.0 * math.pi)))[
-                                       None], self.eps / self.W[g["idx"]])[:, 0, :]
-                obs = self.infer._logmeanexp(lk, np.array(Uv.shape[0]))
-            pv[rows, cols] = (np.searchsorted(ref, obs, side="right") + 1) / (R + 1)
+            fr = eng.fit_reference(self.U, int(h), g["idx"], ref, self.specs)
+            pv[rows, cols] = self.infer.fit_pvalues_from(fr, u_read[rows])
         return pv.max(axis=1)
 
     def _odd(self, g: dict, u_read: np.ndarray, best: np.ndarray) -> list[list[str]]:
@@ -525,12 +481,12 @@ class BatchScorer:
         else:
             u_read, ll = g["u_all"][rows], g["ll_all"][rows]
             llk, post = None, self._posterior(ll)
-        pval = self._pvalues(g, ll, post, u_read)
+        pval = self._pvalues(g, post, u_read)
         # Engine.diagnose tries pairs of faults when no single one fits, not even with
         # one slip of the probe (the reference with blunders at the modelled rate)
         low = np.flatnonzero(pval < self.alpha)
         if len(low) and not self.fit_blunders:
-            slip = self._pvalues(g, ll[low], post[low], u_read[low], "slip")
+            slip = self._pvalues(g, post[low], u_read[low], "slip")
             low = low[slip < self.alpha]
         pairs = set(low.tolist())
         pval = pval.tolist()
