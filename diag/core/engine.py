@@ -392,6 +392,11 @@ class Engine:
         return infer.kernel_spread(U, z, W, float(self.inf["blunder"]),
                                    np.array(self.inf["kernel_factors"], dtype=float))
 
+    def _extends_built(self, U: np.ndarray) -> bool:
+        """U (H, K, M) is the built hypotheses' units followed by more rows (pairs)."""
+        H0 = self._U.shape[0]
+        return U.shape[0] > H0 and np.array_equal(U[:H0], self._U, equal_nan=True)
+
     def _spread_for(self, U: np.ndarray) -> np.ndarray:
         """Kernel spread (H, M) of a hypothesis set U (H, K, M): the built one's, and for
         rows beyond it (pairs) their own, worked out once per set and kept."""
@@ -401,7 +406,7 @@ class Engine:
         key = U.shape[0], hash(U[H0:].tobytes())
         got = self._extra_spread.get(key)
         if got is None:
-            if U.shape[0] > H0 and np.array_equal(U[:H0], self._U, equal_nan=True):
+            if self._extends_built(U):
                 got = np.concatenate([self._spread, self._kernel_spread(U[H0:])])
             else:
                 got = self._kernel_spread(U)
@@ -675,8 +680,7 @@ class Engine:
         if U is not None and U.shape[0] != ap.shape[0]:
             q, sig = float(self.inf["group_quantile"]), float(self.inf["group_sigmas"])
             share = float(self.inf["group_share"])
-            H0 = ap.shape[0]
-            if U.shape[0] > H0 and np.array_equal(U[:H0], self._U, equal_nan=True):
+            if self._extends_built(U):
                 # the built hypotheses first, then pairs: only the pairs' rows are new
                 if self._boxes is None:
                     self._boxes = infer.boxes(self._U, q, sig)

@@ -629,24 +629,28 @@ def _robust(plan, DP, A_lin, b_lin, x, act, x_start, probe, start=None):
     rest = act[~ok[act]]
     if rest.size:   # gmin stepping, pivoting dense solves, ending without extra gmin
         x[:, rest] = x_start[:, rest] if x_start.shape[1] == B else x_start[:, :1]
-        live = rest
-        for g in GMIN_STEPS:
-            live, it = _newton(plan, DP, A_lin, b_lin, x, live, probe, gextra=g, dense=True)
-            its += it
-        live, it = _newton(plan, DP, A_lin, b_lin, x, live, probe, dense=True)
+        live, it = _stepped(plan, DP, A_lin, b_lin, x, rest, probe, "gextra", GMIN_STEPS)
         its += it
         ok[live] = True
         rest = rest[~ok[rest]]
     if rest.size:   # source stepping from zero, ending at the full sources
         x[:, rest] = 0.0
-        live = rest
-        for s in SOURCE_STEPS:
-            live, it = _newton(plan, DP, A_lin, b_lin, x, live, probe, scale=s, dense=True)
-            its += it
-        live, it = _newton(plan, DP, A_lin, b_lin, x, live, probe, dense=True)
+        live, it = _stepped(plan, DP, A_lin, b_lin, x, rest, probe, "scale", SOURCE_STEPS)
         its += it
         ok[live] = True
     return ok, its
+
+
+def _stepped(plan, DP, A_lin, b_lin, x, live, probe, knob: str, steps):
+    """One continuation: Newton (dense, pivoting solves) on variants `live` at each
+    value of `knob` (_newton's `gextra` or `scale`) in `steps`, then once without it.
+    Returns the variants that converged at the end and the iterations taken."""
+    its = 0
+    for v in steps:
+        live, it = _newton(plan, DP, A_lin, b_lin, x, live, probe, dense=True, **{knob: v})
+        its += it
+    live, it = _newton(plan, DP, A_lin, b_lin, x, live, probe, dense=True)
+    return live, its + it
 
 
 # ----------------------------------------------------------------------------- DC
