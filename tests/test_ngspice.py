@@ -109,17 +109,37 @@ def _cached(runs, case_path, ngspice):
     return got
 
 
+def _dc_off(case, circuit, labels, dc, ref) -> list[str]:
+    """Node DC voltages where diag and ngspice (the reference simulator) differ by more
+    than max(V_ATOL, V_RTOL x ngspice's value), one message each."""
+    bad = []
+    for b, label in enumerate(labels):
+        for n in case.nodes:
+            ours, theirs = dc.v[b, circuit.node_index[n]], ref.v(spice.node_name(case, n, b))
+            if abs(ours - theirs) > max(V_ATOL, V_RTOL * abs(theirs)):
+                bad.append(f"{label}: {n} diag {ours:.6g} V, ngspice {theirs:.6g} V")
+    return bad
+
+
+def _ac_off(case, circuit, labels, ac, ref) -> list[str]:
+    """Node AC magnitudes where diag and ngspice's AC analysis differ by more than
+    max(AC_ATOL, AC_RTOL x ngspice's value), one message each."""
+    bad = []
+    for b, label in enumerate(labels):
+        for n in case.nodes:
+            ours = abs(ac.v[b, circuit.node_index[n]])
+            theirs = abs(ref.vac(spice.node_name(case, n, b)))
+            if abs(ours - theirs) > max(AC_ATOL, AC_RTOL * theirs):
+                bad.append(f"{label}: {n} diag {ours:.6g} V, ngspice {theirs:.6g} V rms")
+    return bad
+
+
 @pytest.mark.ngspice
 def test_operating_point_matches_ngspice(case_path, ngspice, runs):
     case, circuit, labels, params, dc, ac, ref = _cached(runs, case_path, ngspice)
-    bad = []
     for b, label in enumerate(labels):
         assert dc.ok[b], f"{label}: diag did not converge: {dc.why[b]}"
-        for n in case.nodes:
-            ours = dc.v[b, circuit.node_index[n]]
-            theirs = ref.v(spice.node_name(case, n, b))  # ngspice, the reference simulator
-            if abs(ours - theirs) > max(V_ATOL, V_RTOL * abs(theirs)):
-                bad.append(f"{label}: {n} diag {ours:.6g} V, ngspice {theirs:.6g} V")
+    bad = _dc_off(case, circuit, labels, dc, ref)
     assert not bad, "\n".join(bad)
 
 
@@ -141,13 +161,7 @@ def test_ac_magnitudes_match_ngspice(case_path, ngspice, runs):
     case, circuit, labels, params, dc, ac, ref = _cached(runs, case_path, ngspice)
     if case.signal is None:
         pytest.skip(f"{case_path.name} has no signal part (no ac readings offered)")
-    bad = []
-    for b, label in enumerate(labels):
-        for n in case.nodes:
-            ours = abs(ac.v[b, circuit.node_index[n]])
-            theirs = abs(ref.vac(spice.node_name(case, n, b)))  # ngspice AC analysis
-            if abs(ours - theirs) > max(AC_ATOL, AC_RTOL * theirs):
-                bad.append(f"{label}: {n} diag {ours:.6g} V, ngspice {theirs:.6g} V rms")
+    bad = _ac_off(case, circuit, labels, ac, ref)
     assert not bad, "\n".join(bad)
 
 
@@ -279,17 +293,9 @@ def test_other_kinds_match_ngspice(tmp_path, ngspice):
     dc = solver.solve_dc(circuit, params)
     ac = solver.solve_ac(circuit, params, dc)
     ref = ngspice.run_ngspice(spice.netlist(circuit, params))
-    bad = []
     for b, label in enumerate(labels):
         assert dc.ok[b], (label, dc.why[b])
-        for n in case.nodes:
-            ours, theirs = dc.v[b, circuit.node_index[n]], ref.v(spice.node_name(case, n, b))
-            if abs(ours - theirs) > max(V_ATOL, V_RTOL * abs(theirs)):
-                bad.append(f"{label}: {n} diag {ours:.6g} V, ngspice {theirs:.6g} V")
-            ours = abs(ac.v[b, circuit.node_index[n]])
-            theirs = abs(ref.vac(spice.node_name(case, n, b)))
-            if abs(ours - theirs) > max(AC_ATOL, AC_RTOL * theirs):
-                bad.append(f"{label}: {n} diag {ours:.6g} V, ngspice {theirs:.6g} V rms")
+    bad = _dc_off(case, circuit, labels, dc, ref) + _ac_off(case, circuit, labels, ac, ref)
     assert not bad, "\n".join(bad)
 
 
@@ -346,13 +352,9 @@ def test_base_resistance_modulation_matches_ngspice(ngspice, extra):
     dc = solver.solve_dc(circuit, params)
     ref = ngspice.run_ngspice(spice.netlist(circuit, params))
     case = circuit.case
-    bad = []
     for b, label in enumerate(labels):
         assert dc.ok[b], (label, dc.why[b])
-        for n in case.nodes:
-            ours, theirs = dc.v[b, circuit.node_index[n]], ref.v(spice.node_name(case, n, b))
-            if abs(ours - theirs) > max(V_ATOL, V_RTOL * abs(theirs)):
-                bad.append(f"{label}: {n} diag {ours:.6g} V, ngspice {theirs:.6g} V")
+    bad = _dc_off(case, circuit, labels, dc, ref)
     assert not bad, "\n".join(bad)
     # and the modulation is not idle here: with RB constant the base reads differently
     plain = solver.solve_dc(compiled(*[p for p in circuit.parts if p.ref != "Q1"],
