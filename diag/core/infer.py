@@ -16,11 +16,15 @@ spread, narrowed per hypothesis by leave-one-out likelihood cross-validation, se
 `kernel_spread`), a blunder probability eps per reading spread uniformly over the
 observable's range W_j. Only taken readings count.
 
-Goodness of fit (`fit_pvalue`): the predictive p-value of the statistic log p(u_S | h)
-(with Scott's width: calibrated by its own reference, and smoother) against readings
-simulated from h's own units with unit noise and blunders (leave-one-out:
-the simulating unit is left out of the kernel), so "does not fit" has a false-alarm rate of
-alpha whenever the model holds, on any case.
+Goodness of fit (`fit_pvalue`): a predictive p-value against readings simulated from h's
+own units with unit noise and blunders (leave-one-out: the simulating unit is left out of
+the kernel), so "does not fit" has a false-alarm rate of alpha whenever the model holds,
+on any case. Two statistics (with Scott's width: calibrated by their own reference, and
+smoother), combined by the smaller of their p-values, itself calibrated on the same
+reference: log p(u_S | h), which sees an overall misfit, and the least conditional
+log-likelihood of one reading given the others, log p(u_j | u_S-j, h), which sees one
+reading the others' best explanation misses (a second fault or a bridge that shows at one
+point only, a slipped probe).
 """
 
 from __future__ import annotations
@@ -166,16 +170,41 @@ def kernel_spread(U: np.ndarray, z: np.ndarray, W: np.ndarray, eps: float,
     return sp * fac[:, None]
 
 
+def _log_kernel_terms(U_S: np.ndarray, u_S: np.ndarray, s: np.ndarray, eps: float,
+                      W_S: np.ndarray) -> np.ndarray:
+    """Per-unit, per-reading log kernel (..., K, d) of readings u_S (..., d) under units
+    U_S (..., K, d) with kernel widths s (..., d); NaN where a unit failed."""
+    with np.errstate(invalid="ignore", over="ignore", under="ignore"):
+        z = (u_S[..., None, :] - U_S) / s[..., None, :]
+        peak = (1.0 - eps) / (s * math.sqrt(2.0 * math.pi))
+        return np.log(peak[..., None, :] * np.exp(-0.5 * z * z) + eps / W_S)
+
+
 def _log_kernel(U_S: np.ndarray, u_S: np.ndarray, s: np.ndarray, eps: float,
                 W_S: np.ndarray) -> np.ndarray:
     """Per-unit log-likelihood (..., K) of readings u_S (..., d) under units U_S
     (..., K, d) with kernel widths s (..., d)."""
-    with np.errstate(invalid="ignore", over="ignore", under="ignore"):
-        z = (u_S[..., None, :] - U_S) / s[..., None, :]
-        peak = (1.0 - eps) / (s * math.sqrt(2.0 * math.pi))
-        mix = peak[..., None, :] * np.exp(-0.5 * z * z) + eps / W_S
-        out = np.sum(np.log(mix), axis=-1)
+    out = np.sum(_log_kernel_terms(U_S, u_S, s, eps, W_S), axis=-1)
     return np.where(np.isnan(out), -np.inf, out)
+
+
+def _fit_statistics(terms: np.ndarray, n: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The two goodness-of-fit statistics from per-reading kernel terms (..., K, d)
+    (-inf or NaN for units left out), n units counted: the log-likelihood of all the
+    readings, L = log mean_k prod_j, and the least conditional log-likelihood of one
+    reading given the others, min_j [L - log mean_k prod_{i != j}] (d >= 2; L itself
+    for one reading). The first sees an overall misfit, the second one reading that
+    the others' best explanation misses."""
+    t = np.where(np.isnan(terms), -np.inf, terms)
+    with np.errstate(invalid="ignore"):
+        full = np.sum(t, axis=-1)                                      # (..., K)
+        L = _logmeanexp(full, n)
+        if t.shape[-1] < 2:
+            return L, L
+        rest = np.moveaxis(full[..., None] - t, -1, -2)                # (..., d, K)
+        rest = np.where(np.isfinite(full)[..., None, :], rest, -np.inf)
+        cond = L[..., None] - _logmeanexp(rest, n)                     # (..., d)
+    return L, np.min(np.where(np.isnan(cond), np.inf, cond), axis=-1)
 
 
 def _logmeanexp(x: np.ndarray, n: np.ndarray) -> np.ndarray:
@@ -246,9 +275,11 @@ def fit_pvalue(U_h: np.ndarray, taken: np.ndarray, u_read: np.ndarray, eps: floa
 @dataclass(frozen=True)
 class FitReference:
     """What `fit_pvalue` needs besides the readings, for one hypothesis and one set of
-    taken readings: the sorted reference statistics (NaN dropped) out of R, and the
-    kernel (valid units U (K, d), widths s (d,), blunder density eps / W_S) that scores
-    the observed readings. None from `fit_reference` means p = 0 (under 3 units)."""
+    taken readings: the reference's sorted statistics (`_fit_statistics`: sorted_ref the
+    log-likelihood, sorted_cond the least conditional one) and the sorted combined
+    p-values of its own readings (sorted_min), out of R, and the kernel (valid units U
+    (K, d), widths s (d,), blunder density eps / W_S) that scores the observed
+    readings. None from `fit_reference` means p = 0 (under 3 units)."""
 
     sorted_ref: np.ndarray
     R: int
@@ -256,6 +287,8 @@ class FitReference:
     s: np.ndarray
     eps: float
     W_S: np.ndarray
+    sorted_cond: np.ndarray | None = None
+    sorted_min: np.ndarray | None = None
 
 
 def fit_reference(U_h: np.ndarray, taken: np.ndarray, eps: float, W_lo: np.ndarray,
@@ -277,30 +310,56 @@ def fit_reference(U_h: np.ndarray, taken: np.ndarray, eps: float, W_lo: np.ndarr
     sim = U[k] + ref_z[:, taken]
     blunder = W_lo[taken] + ref_w[:, taken] * W_S
     sim = np.where(ref_b[:, taken] < eps, blunder, sim)
-    llk = _log_kernel(U[None, :, :], sim, s[None, :], eps, W_S)  # (R, K)
-    llk[np.arange(len(k)), k] = -np.inf  # leave the simulating unit out
-    ref = _logmeanexp(llk, np.array(K - 1))
-    return FitReference(np.sort(ref[~np.isnan(ref)]), len(ref), U, s, float(eps), W_S)
+    terms = _log_kernel_terms(U[None, :, :], sim, s[None, :], eps, W_S)  # (R, K, d)
+    terms[np.arange(len(k)), k] = -np.inf  # leave the simulating unit out
+    ref, cond = _fit_statistics(terms, np.array(K - 1))
+    sref = np.sort(ref[~np.isnan(ref)])
+    scond = np.sort(cond[~np.isnan(cond)])
+    R = len(ref)
+    fr = FitReference(sref, R, U, s, float(eps), W_S, scond, None)
+    own = _combined(fr, ref, cond)
+    return FitReference(sref, R, U, s, float(eps), W_S, scond, np.sort(own))
+
+
+def _rank_p(sorted_ref: np.ndarray, x: np.ndarray, R: int) -> np.ndarray:
+    """(number of reference values <= x + 1) / (R + 1); NaN x gives 1."""
+    below = np.searchsorted(sorted_ref, np.where(np.isnan(x), -np.inf, x), side="right")
+    return np.where(np.isnan(x), 1.0, (below + 1) / (R + 1))
+
+
+def _combined(fr: FitReference, L: np.ndarray, cond: np.ndarray) -> np.ndarray:
+    """The smaller of the two statistics' reference p-values (before calibration)."""
+    return np.minimum(_rank_p(fr.sorted_ref, L, fr.R), _rank_p(fr.sorted_cond, cond, fr.R))
 
 
 def fit_pvalue_from(fr: FitReference | None, u_read: np.ndarray) -> float:
     """`fit_pvalue` of readings u_read (d,) from a `fit_reference` of the same taken
-    set: (number of reference statistics <= the observed one + 1) / (R + 1)."""
+    set (see `fit_pvalues_from`)."""
     if fr is None:
         return 0.0
     return float(fit_pvalues_from(fr, np.asarray(u_read, float)[None])[0])
 
 
-def fit_pvalues_from(fr: FitReference | None, u_reads: np.ndarray) -> np.ndarray:
-    """`fit_pvalue_from` of many units' readings at once: u_reads (n, d) -> (n,)."""
+def fit_pvalues_from(fr: FitReference | None, u_reads: np.ndarray,
+                     block: int = 256) -> np.ndarray:
+    """`fit_pvalue_from` of many units' readings at once: u_reads (n, d) -> (n,).
+
+    Each statistic of `_fit_statistics` gets its reference p-value (number of reference
+    values <= the observed one + 1) / (R + 1); the smaller of the two is then calibrated
+    against the same smaller p-value of the reference's own readings, so the combined
+    test keeps its false-alarm rate (a min-p combination, calibrated by simulation)."""
     n = len(u_reads)
     if fr is None:
         return np.zeros(n)
-    obs = _logmeanexp(_log_kernel(fr.U, u_reads, fr.s, fr.eps, fr.W_S),
-                      np.array(fr.U.shape[0]))
-    below = np.searchsorted(fr.sorted_ref, np.where(np.isnan(obs), -np.inf, obs),
-                            side="right")
-    return np.where(np.isnan(obs), 1, below + 1) / (fr.R + 1)
+    out = np.empty(n)
+    K = np.array(fr.U.shape[0])
+    for a in range(0, n, block):
+        terms = _log_kernel_terms(fr.U, u_reads[a:a + block], fr.s, fr.eps, fr.W_S)
+        L, cond = _fit_statistics(terms, K)
+        m = _combined(fr, L, cond)
+        below = np.searchsorted(fr.sorted_min, m, side="right")
+        out[a:a + block] = np.where(np.isnan(L), 1.0, (below + 1) / (fr.R + 1))
+    return out
 
 
 def band_q(U: np.ndarray, q: float) -> tuple[np.ndarray, np.ndarray]:
