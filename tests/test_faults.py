@@ -172,3 +172,42 @@ def test_ambient_temperature_shifts_junctions_by_the_handbook_coefficient(two_st
     spec = faults.parse_fault_id(two_stage, rules, "Q1:low-beta")
     p = ensemble.draw_unit(circ, spec, 200, np.random.default_rng(1), amb)
     assert p["Q1.bf"].min() >= 5 and p["Q1.bf"].max() <= 30
+
+
+def test_swapped_transistor_takes_its_reverse_parameters(two_stage, rules):
+    """`ce-swapped` exchanges the forward and reverse parameters of the unit's own drawn
+    part (a `like` change reads the value before any change of the same fault), and the
+    reverse gain is spread half to twice the card's BR (rules/faults.yaml, from memory)."""
+    circ = netlist.compile_case(two_stage, rules)
+    spec = faults.parse_fault_id(two_stage, rules, "Q1:ce-swapped")
+    rng = np.random.default_rng(11)
+    p = ensemble.draw_unit(circ, spec, 300, rng)
+    base = ensemble.draw_healthy(circ, 300, np.random.default_rng(11))
+    nom = circ.nominal
+    np.testing.assert_array_equal(p["Q1.br"], base["Q1.bf"])     # BF went to the reverse side
+    ratio = p["Q1.bf"] / nom["Q1.br"]
+    assert ratio.min() >= 0.5 and ratio.max() <= 2.0 and ratio.max() / ratio.min() > 3
+    assert np.all(p["Q1.rc"] == nom["Q1.re"]) and np.all(p["Q1.re"] == nom["Q1.rc"])
+    assert np.all(p["Q1.nf"] == nom["Q1.nr"]) and np.all(p["Q1.nr"] == nom["Q1.nf"])
+    assert p["Q1.vaf"].min() >= 5 and p["Q1.vaf"].max() <= 50
+
+
+def test_like_change_errors_name_the_mode(tmp_path, two_stage):
+    import copy
+
+    from diag.core.rules import Rules
+
+    base = load_rules()
+    for bad, msg in (({"like": 3}, "like"), ({"like": "br", "abs": [1, 2]}, "like")):
+        data = copy.deepcopy(base.data)
+        data["faults"]["kinds"]["npn"]["modes"]["ce-swapped"]["set"]["bf"] = bad
+        with pytest.raises(DiagError, match=msg) as err:
+            faults.hypotheses(two_stage, Rules(folder=base.folder, data=data, hash="x"))
+        assert "npn.ce-swapped" in str(err.value)
+    data = copy.deepcopy(base.data)
+    data["faults"]["kinds"]["npn"]["modes"]["ce-swapped"]["set"]["bf"] = {"like": "beta"}
+    spec = faults.hypotheses(two_stage, Rules(folder=base.folder, data=data, hash="x"))
+    circ = netlist.compile_case(two_stage, base)
+    bad_spec = next(s for s in spec if s.id == "Q1:ce-swapped")
+    with pytest.raises(DiagError, match="Q1.beta"):
+        ensemble.draw_unit(circ, bad_spec, 2, np.random.default_rng(0))

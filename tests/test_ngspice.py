@@ -12,6 +12,8 @@ ngspice with the meter's input attached at each voltage point.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 from conftest import CASES_DIR
@@ -363,3 +365,69 @@ def test_base_resistance_modulation_matches_ngspice(ngspice, extra):
                                                  "RB": 50.0})), params)
     k = circuit.node_index["base"]
     assert abs(plain.v[1, k] - dc.v[1, k]) > 10 * V_ATOL   # R1 shorted: tens of mA
+
+
+def _physically_swapped(text: str, ref: str, unit: dict[str, float]) -> str:
+    """diag's netlist of a unit whose transistor `ref` has the `ce-swapped` fault's
+    parameters, rewritten as the physical fault: the device's collector and emitter
+    pins exchanged, with the card it really has. diag states the swap as the forward
+    parameters taking the reverse ones' values (bf = card BR, vaf = reverse Early
+    voltage, ikf = reverse knee, nf = NR, rc = RE; ise/ne stay at the junction that now
+    works as the emitter); ngspice gets the same transistor the other way round, so its
+    reverse parameters (BR, VAR, IKR, NR, ISC, NC) carry those values and its forward
+    ones the part's own (VAF, IKF infinite, as diag's reverse direction has none)."""
+    tag = spice._sanitize(ref)
+    g = unit
+    card = {"IS": g["is"], "BF": g["br"], "BR": g["bf"], "NF": g["nr"], "NR": g["nf"],
+            "VAR": g["vaf"], "IKR": g["ikf"], "ISE": 0.0, "ISC": g["ise"], "NC": g["ne"],
+            "RB": g["rb"], "RC": g["re"], "RE": g["rc"]}
+    if math.isfinite(g["irb"]):
+        card["IRB"] = g["irb"]
+    card["RBM"] = g["rbm"]
+    out = []
+    for line in text.splitlines():
+        words = line.split()
+        if words and words[0] == f"Q_{tag}":
+            words[1], words[3] = words[3], words[1]
+            line = " ".join(words)
+        elif words and words[0] == ".model" and words[1] == f"qm_{tag}":
+            kind = words[2].split("(")[0]
+            line = f".model qm_{tag} {kind}(" + " ".join(
+                f"{k}={v:.12g}" for k, v in card.items()) + ")"
+        out.append(line)
+    return "\n".join(out) + "\n"
+
+
+@pytest.mark.ngspice
+def test_ce_swapped_fault_is_a_transistor_fitted_the_other_way_round(case_path, ngspice):
+    """The `ce-swapped` fault mode (rules/faults.yaml) is stated as parameter changes on
+    the shared topology; ngspice (the reference simulator) solves the physical fault,
+    the same part with its collector and emitter pins exchanged. Node voltages and
+    supply currents of drawn units must agree to the project's ngspice tolerance."""
+    from diag.core import faults
+
+    case = load_case(str(case_path))
+    rules = load_rules()
+    circuit = compile_case(case, rules)
+    for q in (p for p in case.parts if p.kind in ("npn", "pnp")):
+        spec = faults.single(case, rules, q, "ce-swapped")
+        params = ensemble.draw_unit(circuit, spec, 3, np.random.default_rng(7))
+        dc = solver.solve_dc(circuit, params)
+        assert dc.ok.all(), f"{q.ref}: diag did not solve: {dc.why}"
+        for b in range(3):
+            one = {k: float(np.asarray(v).reshape(-1)[b if np.size(v) > 1 else 0])
+                   for k, v in params.items()}
+            unit = {name: one.get(f"{q.ref}.{name}", circuit.nominal[f"{q.ref}.{name}"])
+                    for name in ("is", "bf", "br", "nf", "nr", "vaf", "ikf", "ise", "ne",
+                                 "rb", "rc", "re", "irb", "rbm")}
+            assert unit["bf"] < 20 < unit["br"], "the fault must run the part at its BR"
+            ref = ngspice.run_ngspice(_physically_swapped(spice.netlist(circuit, one), q.ref,
+                                                          unit))
+            for n in case.nodes:
+                ours, theirs = dc.v[b, circuit.node_index[n]], ref.v(spice.node_name(case, n))
+                assert abs(ours - theirs) <= max(V_ATOL, V_RTOL * abs(theirs)), (
+                    f"{q.ref} unit {b}: {n} diag {ours:.6g} V, ngspice {theirs:.6g} V")
+            for s, sref in enumerate(circuit.supplies):
+                ours, theirs = dc.i_supply[b, s], -ref.i(spice.source_name(sref))
+                assert abs(ours - theirs) <= max(I_ATOL, I_RTOL * abs(theirs)), (
+                    f"{q.ref} unit {b}: {sref} diag {ours:.6g} A, ngspice {theirs:.6g} A")

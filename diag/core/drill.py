@@ -152,7 +152,8 @@ def fault_family(case: Case, fault_id: str) -> tuple[str, str]:
     Part family: `junction` for diodes, LEDs, zeners and transistors, `resistor` for
     resistors and pots, `capacitor` for both capacitor kinds, otherwise the part kind;
     `multiple` for a multiple fault, `healthy` for the healthy unit. Mode class: `open`,
-    `short`, or `drift` (a value off: high, low, leaky, low-beta, reversed, ...).
+    `short`, or `drift` (a value off or a part fitted wrong: high, low, leaky, low-beta,
+    reversed, ce-swapped, ...).
     """
     if fault_id == "healthy":
         return "healthy", "healthy"

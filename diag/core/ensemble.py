@@ -71,21 +71,29 @@ def _draw_range(lo: float, hi: float, log: bool, n: int, rng: np.random.Generato
 def apply_changes(circuit, params: dict, changes, n: int, rng: np.random.Generator) -> dict:
     """A copy of `params` (B = n) with a fault's changes applied: "set" gives the value,
     "abs" draws it in [lo, hi], "times" multiplies the drawn healthy value by a factor
-    drawn in [lo, hi] (log-uniformly when `log`)."""
+    drawn in [lo, hi] (log-uniformly when `log`), "like" takes the healthy drawn value of
+    parameter `src` (from `params`, before any change) times such a factor."""
     out = dict(params)
+
+    def drawn(src: dict, key: str) -> np.ndarray:
+        v = src.get(key)
+        return np.full(n, float(circuit.nominal[key])) if v is None else \
+            np.asarray(v, dtype=float)
+
     for ch in changes:
-        if ch.key not in circuit.nominal:
-            raise DiagError(f"fault changes unknown parameter {ch.key!r}",
-                            where=ch.key, hint="parameter names per DEVELOPERS.md; check "
-                            "rules/faults.yaml")
+        for key in (ch.key, ch.src):
+            if key is not None and key not in circuit.nominal:
+                raise DiagError(f"fault changes unknown parameter {key!r}",
+                                where=key, hint="parameter names per DEVELOPERS.md; check "
+                                "rules/faults.yaml")
         if ch.how == "set":
             val = np.full(n, ch.lo)
         else:
             x = _draw_range(ch.lo, ch.hi, ch.log, n, rng)
             if ch.how == "times":
-                base = out.get(ch.key)
-                base = np.full(n, float(circuit.nominal[ch.key])) if base is None else base
-                val = np.asarray(base, dtype=float) * x
+                val = drawn(out, ch.key) * x
+            elif ch.how == "like":
+                val = drawn(params, ch.src) * x
             else:
                 val = x
         out[ch.key] = val

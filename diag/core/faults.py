@@ -34,14 +34,17 @@ _LOW_R_KINDS = ("link", "fuse", "inductor", "speaker")
 @dataclass(frozen=True)
 class Change:
     """One parameter change. `key` is "<ref>.<name>"; `how` is "set" (value lo), "abs"
-    (drawn in [lo, hi]) or "times" (the healthy drawn value times a factor in [lo, hi]);
-    `log` draws log-uniformly, else uniformly."""
+    (drawn in [lo, hi]), "times" (the healthy drawn value times a factor in [lo, hi]) or
+    "like" (the healthy drawn value of the same part's parameter `src`, times a factor in
+    [lo, hi]: a transistor fitted with collector and emitter swapped works with its
+    reverse parameters); `log` draws log-uniformly, else uniformly."""
 
     key: str
     how: str
     lo: float
     hi: float
     log: bool = True
+    src: str | None = None
 
 
 @dataclass(frozen=True)
@@ -102,9 +105,17 @@ def _changes(rules, part: Part, mode: str, spec: dict) -> tuple[Change, ...]:
         if isinstance(how, (int, float)) and not isinstance(how, bool):
             out.append(Change(key, "set", float(how), float(how), False))
             continue
+        like = how.get("like") if isinstance(how, dict) else None
+        if like is not None:
+            if not isinstance(like, str) or "abs" in how:
+                raise _rules_error(rules, f"parameter {name!r}: `like` names another "
+                                   "parameter of the same part", where=where,
+                                   hint="e.g. bf: {like: br, times: [0.5, 2]}")
+            how = {"times": [1.0, 1.0], **{k: v for k, v in how.items() if k != "like"}}
         if not isinstance(how, dict) or len(set(how) & {"abs", "times"}) != 1:
             raise _rules_error(rules, f"parameter {name!r}: give a number, "
-                               "{abs: [lo, hi]} or {times: [lo, hi]}", where=where)
+                               "{abs: [lo, hi]}, {times: [lo, hi]} or {like: other}",
+                               where=where)
         kind = "abs" if "abs" in how else "times"
         lo, hi = (float(x) for x in how[kind])
         dist = how.get("dist", "log")
@@ -112,7 +123,10 @@ def _changes(rules, part: Part, mode: str, spec: dict) -> tuple[Change, ...]:
             raise _rules_error(rules, f"parameter {name!r}: bad range {how[kind]} or dist "
                                f"{dist!r}", where=where,
                                hint="lo <= hi, both > 0 for log; dist is log or uniform")
-        out.append(Change(key, kind, lo, hi, dist == "log"))
+        if like is not None:
+            out.append(Change(key, "like", lo, hi, dist == "log", f"{part.ref}.{like}"))
+        else:
+            out.append(Change(key, kind, lo, hi, dist == "log"))
     if not out:
         raise _rules_error(rules, "a mode must change at least one parameter", where=where)
     return tuple(out)
