@@ -201,9 +201,16 @@ def _fit_statistics(terms: np.ndarray, n: np.ndarray) -> tuple[np.ndarray, np.nd
         L = _logmeanexp(full, n)
         if t.shape[-1] < 2:
             return L, L
-        rest = np.moveaxis(full[..., None] - t, -1, -2)                # (..., d, K)
-        rest = np.where(np.isfinite(full)[..., None, :], rest, -np.inf)
-        cond = L[..., None] - _logmeanexp(rest, n)                     # (..., d)
+        # L - log mean_k exp(full_k - t_kj) = -log sum_k w_k exp(-t_kj), w the units'
+        # weights softmax(full); exp(-t) stays finite: the blunder term bounds t below
+        ok = np.isfinite(full)
+        m = np.max(np.where(ok, full, -np.inf), axis=-1, keepdims=True)
+        w = np.where(ok, np.exp(full - np.where(np.isfinite(m), m, 0.0)), 0.0)
+        w /= np.where(w.sum(axis=-1, keepdims=True) > 0, w.sum(axis=-1, keepdims=True), 1.0)
+        with np.errstate(over="ignore", divide="ignore"):
+            E = np.exp(-np.where(ok[..., None], t, 0.0))
+            cond = -np.log(np.einsum("...k,...kd->...d", w, E))      # (..., d)
+        cond = np.where(np.isfinite(L)[..., None], cond, np.nan)
     return L, np.min(np.where(np.isnan(cond), np.inf, cond), axis=-1)
 
 
