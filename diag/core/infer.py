@@ -266,7 +266,8 @@ def fit_pvalue(U_h: np.ndarray, taken: np.ndarray, u_read: np.ndarray, eps: floa
                ref_b: np.ndarray, ref_w: np.ndarray, spread_h: np.ndarray | None = None
                ) -> float:
     """Predictive p-value of readings under one hypothesis (units U_h (K, M)): the share
-    of simulated readings whose log-likelihood is at or below the observed one.
+    of simulated readings that fit no better than the observed ones, by the combined
+    statistic of `fit_pvalues_from` (log-likelihood, and one reading given the others).
 
     Reference readings r use unit ref_k[r] plus standard-normal noise ref_z[r], and a
     blunder (uniform over W, position ref_w[r]) where ref_b[r] < eps; each is scored
@@ -289,13 +290,13 @@ class FitReference:
     readings. None from `fit_reference` means p = 0 (under 3 units)."""
 
     sorted_ref: np.ndarray
+    sorted_cond: np.ndarray
+    sorted_min: np.ndarray
     R: int
     U: np.ndarray
     s: np.ndarray
     eps: float
     W_S: np.ndarray
-    sorted_cond: np.ndarray | None = None
-    sorted_min: np.ndarray | None = None
 
 
 def fit_reference(U_h: np.ndarray, taken: np.ndarray, eps: float, W_lo: np.ndarray,
@@ -323,9 +324,8 @@ def fit_reference(U_h: np.ndarray, taken: np.ndarray, eps: float, W_lo: np.ndarr
     sref = np.sort(ref[~np.isnan(ref)])
     scond = np.sort(cond[~np.isnan(cond)])
     R = len(ref)
-    fr = FitReference(sref, R, U, s, float(eps), W_S, scond, None)
-    own = _combined(fr, ref, cond)
-    return FitReference(sref, R, U, s, float(eps), W_S, scond, np.sort(own))
+    own = _combined(sref, scond, R, ref, cond)
+    return FitReference(sref, scond, np.sort(own), R, U, s, float(eps), W_S)
 
 
 def _rank_p(sorted_ref: np.ndarray, x: np.ndarray, R: int) -> np.ndarray:
@@ -334,9 +334,10 @@ def _rank_p(sorted_ref: np.ndarray, x: np.ndarray, R: int) -> np.ndarray:
     return np.where(np.isnan(x), 1.0, (below + 1) / (R + 1))
 
 
-def _combined(fr: FitReference, L: np.ndarray, cond: np.ndarray) -> np.ndarray:
+def _combined(sorted_ref: np.ndarray, sorted_cond: np.ndarray, R: int, L: np.ndarray,
+              cond: np.ndarray) -> np.ndarray:
     """The smaller of the two statistics' reference p-values (before calibration)."""
-    return np.minimum(_rank_p(fr.sorted_ref, L, fr.R), _rank_p(fr.sorted_cond, cond, fr.R))
+    return np.minimum(_rank_p(sorted_ref, L, R), _rank_p(sorted_cond, cond, R))
 
 
 def fit_pvalue_from(fr: FitReference | None, u_read: np.ndarray) -> float:
@@ -363,7 +364,7 @@ def fit_pvalues_from(fr: FitReference | None, u_reads: np.ndarray,
     for a in range(0, n, block):
         terms = _log_kernel_terms(fr.U, u_reads[a:a + block], fr.s, fr.eps, fr.W_S)
         L, cond = _fit_statistics(terms, K)
-        m = _combined(fr, L, cond)
+        m = _combined(fr.sorted_ref, fr.sorted_cond, fr.R, L, cond)
         below = np.searchsorted(fr.sorted_min, m, side="right")
         out[a:a + block] = np.where(np.isnan(L), 1.0, (below + 1) / (fr.R + 1))
     return out
