@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 import csv
 import json
+import math
 import os
 import sys
 from collections import defaultdict
@@ -271,6 +272,23 @@ def summarise(scores: list[UnitScore]) -> dict:
     }
     out["guided_ratio"] = (out["guided"] / out["in_order"]
                            if g and out["in_order"] > 0 else float("nan"))
+    # where the figures come from: group sizes per set, and the guided runs split by
+    # outcome (a run whose truth never reaches p >= CONFIDENT counts every reading on
+    # both sides)
+    fault = [s for s in mod if s.set == "fault"]
+    healthy = [s for s in mod if s.set == "healthy"]
+    out["group_size_fault"] = _mean(s.top_group_size for s in fault)
+    out["group_size_healthy"] = _mean(s.top_group_size for s in healthy)
+    out["group_size_floor"] = (_mean([1] * len(fault) + [s.top_group_size for s in healthy])
+                               if mod else float("nan"))
+    never = [s for s in g if s.guided == s.in_order == s.n_readings
+             and s.truth_p < CONFIDENT]
+    rest = [s for s in g if s not in never]
+    out["guided_counts"] = (sum(s.guided < s.in_order for s in g),
+                            sum(s.guided == s.in_order for s in g),
+                            sum(s.guided > s.in_order for s in g), len(never))
+    out["guided_ratio_reached"] = (sum(s.guided for s in rest) / sum(s.in_order for s in rest)
+                                   if rest and sum(s.in_order for s in rest) else float("nan"))
     return out
 
 
@@ -333,6 +351,16 @@ def markdown(scores: list[UnitScore]) -> str:
               f"{_pct(m['blunder_flagged'])}. Guided/case-order ratio "
               f"{_num(m['guided_ratio'])}. Plain mean |gap| over bins "
               f"{_num(m['mean_gap'], '.3f')}."]
+    lines.append(f"Top group size: {_num(m['group_size_fault'])} on faulty units, "
+                 f"{_num(m['group_size_healthy'])} on healthy ones (faults no offered "
+                 f"reading sees join a healthy unit's group); were every faulty unit's group "
+                 f"a single hypothesis, the mean would be {_num(m['group_size_floor'])}.")
+    if not math.isnan(m["guided_ratio"]):
+        a, b, c, n = m["guided_counts"]
+        lines.append(f"Guided runs: fewer readings than case order in {a}, as many in {b}, "
+                     f"more in {c}; in {n} the truth's group never reaches p ≥ "
+                     f"{CONFIDENT} (each counts every reading on both sides); over the "
+                     f"others the ratio is {_num(m['guided_ratio_reached'])}.")
     refused = defaultdict(int)
     for s in scores:
         refused[s.set] += s.rejected
