@@ -233,3 +233,24 @@ points:
     assert abs(by["P1:wiper-open"].true[0]) < 1e-3  # wiper lifted: R1 holds it at 0 V
     assert abs(by["J1:open"].true[1]) < 1e-3        # link open: nothing feeds the pot
     assert abs(by["C1:short"].true[0]) < 0.01       # 0.1-1 Ω across a 5 kΩ source
+
+
+def test_summary_splits_group_sizes_and_guided_runs():
+    """The bookkeeping behind the README's explanation of two targets, worked by hand:
+    group sizes per set and their floor (every faulty unit a group of one), and the
+    guided runs by outcome, a run that never reaches p >= 0.9 counted apart."""
+    def unit(set_, size, guided=None, in_order=None, truth_p=1.0):
+        return score.UnitScore(case="c", unit="u", set=set_, truth="R1:open", detail="",
+                               fits=True, top="R1:open", top_p=0.95, modelled=True,
+                               top1_group=True, top_group_size=size, truth_p=truth_p,
+                               guided=guided, in_order=in_order, n_readings=9)
+    scores = [unit("fault", 2, 2, 4), unit("fault", 4, 3, 3, 0.95),
+              unit("fault", 2, 9, 9, 0.5), unit("fault", 4, 5, 3), unit("healthy", 6)]
+    m = score.summarise(scores)
+    assert m["group_size_fault"] == 3.0 and m["group_size_healthy"] == 6.0
+    assert m["group_size_floor"] == pytest.approx((4 * 1 + 6) / 5)
+    assert m["guided_counts"] == (1, 2, 1, 1)     # better, as many, more, never reached
+    assert m["guided_ratio"] == pytest.approx((2 + 3 + 9 + 5) / (4 + 3 + 9 + 3))
+    assert m["guided_ratio_reached"] == pytest.approx((2 + 3 + 5) / (4 + 3 + 3))
+    text = score.markdown(scores)
+    assert "in 1 the truth's group never reaches" in text and "would be 2.00" in text
