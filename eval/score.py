@@ -281,12 +281,13 @@ def summarise(scores: list[UnitScore]) -> dict:
     out["group_size_healthy"] = _mean(s.top_group_size for s in healthy)
     out["group_size_floor"] = (_mean([1] * len(fault) + [s.top_group_size for s in healthy])
                                if mod else float("nan"))
-    never = [s for s in g if s.guided == s.in_order == s.n_readings
-             and s.truth_p < CONFIDENT]
-    rest = [s for s in g if s not in never]
+    def never(s: UnitScore) -> bool:
+        return s.guided == s.in_order == s.n_readings and s.truth_p < CONFIDENT
+
+    rest = [s for s in g if not never(s)]
     out["guided_counts"] = (sum(s.guided < s.in_order for s in g),
                             sum(s.guided == s.in_order for s in g),
-                            sum(s.guided > s.in_order for s in g), len(never))
+                            sum(s.guided > s.in_order for s in g), len(g) - len(rest))
     out["guided_ratio_reached"] = (sum(s.guided for s in rest) / sum(s.in_order for s in rest)
                                    if rest and sum(s.in_order for s in rest) else float("nan"))
     return out

@@ -192,7 +192,7 @@ def test_swapped_transistor_takes_its_reverse_parameters(two_stage, rules):
     assert p["Q1.vaf"].min() >= 5 and p["Q1.vaf"].max() <= 50
 
 
-def test_like_change_errors_name_the_mode(tmp_path, two_stage):
+def test_like_change_errors_name_the_mode(two_stage):
     import copy
 
     from diag.core.rules import Rules

@@ -377,13 +377,12 @@ def _physically_swapped(text: str, ref: str, unit: dict[str, float]) -> str:
     reverse parameters (BR, VAR, IKR, NR, ISC, NC) carry those values and its forward
     ones the part's own (VAF, IKF infinite, as diag's reverse direction has none)."""
     tag = spice._sanitize(ref)
-    g = unit
-    card = {"IS": g["is"], "BF": g["br"], "BR": g["bf"], "NF": g["nr"], "NR": g["nf"],
-            "VAR": g["vaf"], "IKR": g["ikf"], "ISE": 0.0, "ISC": g["ise"], "NC": g["ne"],
-            "RB": g["rb"], "RC": g["re"], "RE": g["rc"]}
-    if math.isfinite(g["irb"]):
-        card["IRB"] = g["irb"]
-    card["RBM"] = g["rbm"]
+    u = unit
+    card = {"IS": u["is"], "BF": u["br"], "BR": u["bf"], "NF": u["nr"], "NR": u["nf"],
+            "VAR": u["vaf"], "IKR": u["ikf"], "ISE": 0.0, "ISC": u["ise"], "NC": u["ne"],
+            "RB": u["rb"], "RC": u["re"], "RE": u["rc"], "RBM": u["rbm"]}
+    if math.isfinite(u["irb"]):
+        card["IRB"] = u["irb"]
     out = []
     for line in text.splitlines():
         words = line.split()
