@@ -57,6 +57,7 @@ class UnitScore:
     top_group_p: float = 0.0
     top_group_size: int = 0
     truth_p: float = 0.0            # summed over the truth's group
+    truth_group_size: int = 0       # the truth's group as `diag faults` lists it
     guided: int | None = None       # readings taken to reach p >= 0.9 on the truth group
     in_order: int | None = None     # the same taking points in case order
     n_readings: int = 0
@@ -125,12 +126,23 @@ def score_unit(eng: Engine, case: Case, unit: str, readings: list[Reading], t: d
         s.top3 = truth in [x.fault for x in d.suspects[:3]]
         s.top3_group = tg in ranked_groups[:3]
         s.truth_p = float(gp[tg])
+        if t["set"] in ("fault", "healthy"):
+            s.truth_group_size = listed_group_size(eng, truth)
     else:
         s.extra["pair_in_top3"] = truth in [x.fault for x in d.suspects[:3]]
     s.handled = (not s.fits) or (modelled and s.top1_group)
     if guided and modelled and t["set"] == "fault":
         s.guided, s.in_order = _guided(eng, case, readings, truth)
     return s
+
+
+def listed_group_size(eng: Engine, fault: str) -> int:
+    """Members of `fault`'s group as `diag faults` lists it (groups formed in prior
+    order, from the offered readings alone): no unit can do better than this."""
+    ens = eng.ensemble
+    ids = [h.id for h in ens.hypotheses]
+    g = ens.group[ids.index(fault)]
+    return int(sum(x == g for x in ens.group))
 
 
 def _guided(eng: Engine, case: Case, readings: list[Reading], truth: str
@@ -281,6 +293,8 @@ def summarise(scores: list[UnitScore]) -> dict:
     out["group_size_healthy"] = _mean(s.top_group_size for s in healthy)
     out["group_size_floor"] = (_mean([1] * len(fault) + [s.top_group_size for s in healthy])
                                if mod else float("nan"))
+    out["group_size_listed"] = _mean(s.truth_group_size for s in mod)
+    out["group_size_listed_fault"] = _mean(s.truth_group_size for s in fault)
     def never(s: UnitScore) -> bool:
         return s.guided == s.in_order == s.n_readings and s.truth_p < CONFIDENT
 
@@ -355,7 +369,10 @@ def markdown(scores: list[UnitScore]) -> str:
     lines.append(f"Top group size: {_num(m['group_size_fault'])} on faulty units, "
                  f"{_num(m['group_size_healthy'])} on healthy ones (faults no offered "
                  f"reading sees join a healthy unit's group); were every faulty unit's group "
-                 f"a single hypothesis, the mean would be {_num(m['group_size_floor'])}.")
+                 f"a single hypothesis, the mean would be {_num(m['group_size_floor'])}; "
+                 f"were every unit's top group exactly the truth's group as `diag faults` "
+                 f"lists it, {_num(m['group_size_listed'])} "
+                 f"({_num(m['group_size_listed_fault'])} on faulty units).")
     if not math.isnan(m["guided_ratio"]):
         a, b, c, n = m["guided_counts"]
         lines.append(f"Guided runs: fewer readings than case order in {a}, as many in {b}, "

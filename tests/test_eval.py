@@ -239,18 +239,42 @@ def test_summary_splits_group_sizes_and_guided_runs():
     """The bookkeeping behind the README's explanation of two targets, worked by hand:
     group sizes per set and their floor (every faulty unit a group of one), and the
     guided runs by outcome, a run that never reaches p >= 0.9 counted apart."""
-    def unit(set_, size, guided=None, in_order=None, truth_p=1.0):
+    def unit(set_, size, guided=None, in_order=None, truth_p=1.0, listed=1):
         return score.UnitScore(case="c", unit="u", set=set_, truth="R1:open", detail="",
                                fits=True, top="R1:open", top_p=0.95, modelled=True,
                                top1_group=True, top_group_size=size, truth_p=truth_p,
-                               guided=guided, in_order=in_order, n_readings=9)
-    scores = [unit("fault", 2, 2, 4), unit("fault", 4, 3, 3, 0.95),
-              unit("fault", 2, 9, 9, 0.5), unit("fault", 4, 5, 3), unit("healthy", 6)]
+                               guided=guided, in_order=in_order, n_readings=9,
+                               truth_group_size=listed)
+    scores = [unit("fault", 2, 2, 4), unit("fault", 4, 3, 3, 0.95, 3),
+              unit("fault", 2, 9, 9, 0.5), unit("fault", 4, 5, 3, listed=2),
+              unit("healthy", 6, listed=5)]
     m = score.summarise(scores)
     assert m["group_size_fault"] == 3.0 and m["group_size_healthy"] == 6.0
     assert m["group_size_floor"] == pytest.approx((4 * 1 + 6) / 5)
+    assert m["group_size_listed"] == pytest.approx((1 + 3 + 1 + 2 + 5) / 5)
+    assert m["group_size_listed_fault"] == pytest.approx((1 + 3 + 1 + 2) / 4)
     assert m["guided_counts"] == (1, 2, 1, 1)     # better, as many, more, never reached
     assert m["guided_ratio"] == pytest.approx((2 + 3 + 9 + 5) / (4 + 3 + 9 + 3))
     assert m["guided_ratio_reached"] == pytest.approx((2 + 3 + 5) / (4 + 3 + 3))
     text = score.markdown(scores)
     assert "in 1 the truth's group never reaches" in text and "would be 2.00" in text
+    assert "as `diag faults` lists it, 2.40 (1.75 on faulty units)" in text
+
+
+def test_listed_group_size_is_the_group_diag_faults_prints(capsys):
+    """The floor the evaluation prints uses the groups `diag faults --json` lists."""
+    import collections
+    import json
+
+    from diag.cli import main
+    from diag.core.case import load_case
+    from diag.core.engine import Engine
+
+    path = "cases/series-regulator.yaml"
+    assert main(["faults", path, "--json"]) == 0
+    hyps = json.loads(capsys.readouterr().out)["hypotheses"]
+    size = collections.Counter(h["group"] for h in hyps)
+    eng = Engine(load_case(path), K=128, seed=0)
+    for h in hyps:
+        if "+" not in h["fault"]:
+            assert score.listed_group_size(eng, h["fault"]) == size[h["group"]], h["fault"]
