@@ -136,3 +136,25 @@ def test_missing_file_exits_1_and_bad_arguments_exit_2(tmp_path, capsys):
     with pytest.raises(SystemExit) as exc:
         main(["check", str(tmp_path / "x.yaml"), "--draws", "-3"])
     assert exc.value.code == 2
+
+
+def test_band_shows_no_digit_the_meter_does_not(tmp_path, capsys):
+    """A 2000-count autoranging meter (SPEC section 1, handheld-3.5) shows 0.1 mV per
+    count on its 200 mV range and 1 mV on its 2 V range (2000 counts over the range):
+    a point behind a film capacitor, a few microvolts from its leakage, reads 0.0 mV."""
+    text = SMALL.replace("VOLTS", "12").replace(
+        '      TP3: {supply: V1, where: "bench supply\'s ammeter"}',
+        '      TP3: {supply: V1, where: "bench supply\'s ammeter"}\n'
+        '      TP4: {node: out, where: "behind C1"}').replace(
+        "      Q1: {kind: npn, c: col, b: base, e: emit}",
+        "      Q1: {kind: npn, c: col, b: base, e: emit}\n"
+        "      C1: {kind: capacitor, nodes: [col, out], farads: 100n}\n"
+        "      R5: {kind: resistor, nodes: [out, gnd], ohms: 10k}")
+    path = _write(tmp_path, text)
+    code, out, _ = _run(capsys, path, "--draws", 50)
+    assert code == 0
+    row = [ln for ln in out.splitlines() if ln.startswith("TP4")][0]
+    assert row.split()[-5:] == ["0.0", "0.0", "..", "0.0", "mV"]
+    base = [ln for ln in out.splitlines() if ln.startswith("TP2")][0].split()
+    # about 2 V at the base: the 2 V range (1 mV) or the 20 V range (10 mV) shows it
+    assert all(len(x.split(".")[1]) <= 3 for x in base[-5:-1] if "." in x)

@@ -51,6 +51,15 @@ def _decimals(magnitude: float) -> int:
     return int(min(4, max(0, 3 - np.floor(np.log10(magnitude)))))
 
 
+def _meter_decimals(magnitude: float, scale: float, meter, unit: str) -> int:
+    """Decimals the meter itself shows at `magnitude` (its autoranged resolution, in
+    units of `scale`): a band never claims digits the display does not have."""
+    from diag.core.meter import resolution
+
+    res = float(resolution(np.array([magnitude]), meter, unit)[0]) / scale
+    return int(max(0, np.ceil(-np.log10(res) - 1e-9))) if res > 0 else 4
+
+
 def _num(x: float, scale: float, decimals: int) -> str:
     if not np.isfinite(x):
         return "n/a"
@@ -83,7 +92,9 @@ def format_text(result, case_path: str, rules) -> str:
         finite = [abs(x) for x in (pb.nominal, pb.low, pb.high) if np.isfinite(x)]
         mag = max(finite, default=0.0)
         pre, scale = _prefix(mag, pb.unit)
-        d = _decimals(mag / scale)
+        # never more digits than the meter shows at the smallest of the three values
+        d = min(_decimals(mag / scale), _meter_decimals(min(finite, default=0.0), scale,
+                                                        case.meter, pb.unit))
         unit = pre + pb.unit + (" rms" if pb.kind == "ac" else "")
         band = f"{_num(pb.low, scale, d)} .. {_num(pb.high, scale, d)}"
         rows.append((pb.point, pt.where, pb.kind, _num(pb.nominal, scale, d), band, unit))
