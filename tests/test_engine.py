@@ -328,3 +328,15 @@ def test_build_does_not_depend_on_threads_or_chunks():
     for a, b in zip(one[:2], two[:2], strict=True):
         np.testing.assert_array_equal(a, b)
     assert one[2] == two[2]
+
+
+def test_a_speaker_lead_reading_zero_is_inside_the_healthy_band():
+    """The speaker side of an output capacitor sits at microvolts (the capacitor's
+    leakage into 8 Ω): the meter shows 0.0 mV there, and the healthy band as the meter
+    shows it holds that reading (it once read as off-healthy by 257 nV)."""
+    from diag.core.session import band_offset
+
+    eng = Engine(load_case(str(cases_dir() / "chime-buffer.yaml")), K=64)
+    band = {(b.observable.point, b.observable.kind): b for b in eng.bands()}[("TP6", "dc")]
+    assert band.low == band.high == 0.0
+    assert band_offset(band, 0.0) == 0.0

@@ -43,6 +43,28 @@ def test_autoranged_resolution_of_a_2000_count_meter(value, res):
     assert_allclose(mt.resolution(value, H35, "V"), res, rtol=1e-12)
 
 
+def test_shown_band_edges_are_what_the_meter_displays():
+    # A 2000-count meter (common practice, no source): 0.1 mV per count on 200 mV, 1 mV on
+    # 2 V, 10 mV on 20 V. Microvolts show as 0.0 mV; 1.2806 V as 1.281 V; 2.0412 V as 2.04 V.
+    lo, hi = mt.shown_band(np.array([2.1e-6, 1.2806, -0.0123]),
+                           np.array([21.2e-6, 2.0412, 0.00004]), H35, "V")
+    assert_allclose(lo, [0.0, 1.281, -0.0123], atol=1e-12)
+    assert_allclose(hi, [0.0, 2.04, 0.0], atol=1e-12)
+
+
+@given(st.floats(-150, 150), st.floats(0, 50), st.floats(0, 1))
+@settings(max_examples=200, deadline=None)
+def test_a_reading_inside_a_band_shows_inside_the_shown_band(low, width, where):
+    """Rounding to the display grid is monotone: whatever the meter shows for a true value
+    inside [low, high] lies inside the shown band (no meter error drawn)."""
+    high = low + width
+    x = low + where * width
+    lo, hi = mt.shown_band(low, high, H35, "V")
+    q = mt.resolution(x, H35, "V")
+    shown = np.rint(x / q) * q
+    assert lo - 1e-9 <= shown <= hi + 1e-9
+
+
 def test_amperes_use_the_current_ranges():
     # 2000 counts on the 200 mA range: 0.1 mA per count (common practice, no source).
     assert_allclose(mt.resolution(0.104, H35, "A"), 1e-4, rtol=1e-12)

@@ -479,7 +479,9 @@ class Engine:
             np.empty((0, self.K, len(self.observables)))
 
     def bands(self, fault_id: str = "healthy") -> tuple[Band, ...]:
-        """About the 1st, 50th and 99th percentile of each observable's reading."""
+        """About the 1st, 50th and 99th percentile of each observable's reading, as the
+        meter shows them (rounded to its display resolution, meter.shown_band): a reading
+        the meter shows for a unit inside the band is never off it by rounding alone."""
         ens = self.ensemble
         ids = [h.id for h in ens.hypotheses]
         if fault_id in ids:
@@ -488,9 +490,15 @@ class Engine:
             x = self._samples_of([self._spec(fault_id)])[0]
         from diag.core import infer
 
+        from diag.core import meter
+
         q = infer.nan_quantile(x, [0.01, 0.5, 0.99], axis=0)
-        return tuple(Band(o, float(q[0, j]), float(q[1, j]), float(q[2, j]))
-                     for j, o in enumerate(self.observables))
+        out = []
+        for j, o in enumerate(self.observables):
+            lo, hi = meter.shown_band(q[0, j], q[2, j], self.case.meter, o.unit)
+            mid = meter.shown_band(q[1, j], q[1, j], self.case.meter, o.unit)[0]
+            out.append(Band(o, float(lo), float(mid), float(hi)))
+        return tuple(out)
 
     def simulate(self, fault_id: str, rng: np.random.Generator) -> tuple[Reading, ...]:
         """One unit with this fault drawn from rng (tolerances, fault values, meter

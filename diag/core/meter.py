@@ -64,6 +64,16 @@ def resolution(values: Any, meter: Mapping[str, Any], unit: str) -> np.ndarray:
     return ranges[np.where(idx < 0, len(ranges) - 1, idx)] / float(meter["counts"])
 
 
+def shown_band(low: Any, high: Any, meter: Mapping[str, Any], unit: str
+               ) -> tuple[np.ndarray, np.ndarray]:
+    """A band of true readings as the meter shows its edges: each rounded to the display
+    resolution of the range it autoranges to. Rounding is monotone, so every reading
+    inside the band shows inside the shown band (a few microvolts show as 0.0 mV)."""
+    lo, hi = np.asarray(low, dtype=float), np.asarray(high, dtype=float)
+    ql, qh = resolution(lo, meter, unit), resolution(hi, meter, unit)
+    return np.rint(lo / ql) * ql, np.rint(hi / qh) * qh
+
+
 def accuracy(values: Any, kind: str, meter: Mapping[str, Any], unit: str) -> np.ndarray:
     """Error bound ±(pct % of |reading| + counts × resolution), volts or amperes, same shape
     as `values`; +inf where the value is over range ("OL")."""
