@@ -12,6 +12,7 @@ from diag.cli import main
 from diag.core import meter, netlist, solver
 from diag.core.bands import healthy_bands
 from diag.core.case import load_case
+from diag.core.parts import VT
 from diag.core.rules import load_rules
 
 
@@ -129,6 +130,53 @@ def _line_driver(case, v, circuit, dc):
     assert 35 < g < 44
 
 
+def _practice(case, v, circuit, dc):
+    # Handbook: a conducting silicon emitter-base junction drops 0.55-0.8 V (NPN Q1, and
+    # PNP Q2 with its emitter above its base).
+    assert 0.55 < v["b1"] - v["e1"] < 0.8
+    assert 0.55 < v["e2"] - v["c1"] < 0.8
+    # Ohm's law with collector current = emitter current (alpha above 0.99 at hFE >= 100):
+    # Q2's emitter resistor sets the current its 2.2 kΩ load carries.
+    assert v["c2"] / 2.2e3 == pytest.approx((v["vcc"] - v["e2"]) / 1e3, rel=0.02)
+    assert (v["vcc"] - v["c1"]) / 2.2e3 == pytest.approx(v["e1"] / 1040.0, rel=0.03)
+    ac = solver.solve_ac(circuit, {}, dc)
+    node = circuit.node_index
+    g1 = abs(ac.v[0, node["c1"]] / ac.v[0, node["b1"]])
+    g2 = abs(ac.v[0, node["c2"]] / ac.v[0, node["c1"]])
+    # Handbook: CE gain ≈ R_load / (r_e + R_E unbypassed), r_e = V_T / I_E. Stage 1 at
+    # 1 kHz: 2.2 kΩ ∥ (Q2's input, hFE x 1 kΩ, hundreds of kΩ) over r_e + 220 Ω. Stage 2:
+    # 2.2 kΩ ∥ (C3's reactance + the pot: 5 kΩ + 5 kΩ ∥ 100 kΩ) over r_e + 1 kΩ.
+    re1 = VT / (v["e1"] / 1040.0)
+    re2 = VT / ((v["vcc"] - v["e2"]) / 1e3)
+    assert g1 == pytest.approx(2.2e3 / (re1 + 220.0), rel=0.05)
+    zc3 = 1.0 / (2j * np.pi * 1e3 * 1e-6)
+    zpot = zc3 + 5e3 + 1.0 / (1 / 5e3 + 1 / 100e3)
+    zload = 1.0 / (1 / 2.2e3 + 1 / zpot)
+    assert g2 == pytest.approx(abs(zload) / (re2 + 1e3), rel=0.05)
+    assert 8 < g1 < 10 and 1.5 < g2 < 2.0  # the about text: "about 9" and "about 1.8"
+
+
+def _diff(case, v, circuit, dc):
+    # Matched halves (nominal parts): both bases and both collectors alike; the joined
+    # emitters one base-emitter drop (0.55-0.8 V, handbook) below the bases.
+    assert v["b1"] == pytest.approx(v["b2"], abs=1e-3)
+    assert v["c1"] == pytest.approx(v["c2"], abs=0.02)
+    assert 0.55 < v["b1"] - v["tail"] < 0.8
+    # Ohm's law: the tail current splits in two; each collector carries half (alpha ~ 1).
+    tail = (v["tail"] - v["vn"]) / 4.7e3
+    assert (v["vp"] - v["c2"]) / 4.7e3 == pytest.approx(tail / 2, rel=0.02)
+    # Handbook, long-tailed pair, single-ended output: gain = g_m R_C / 2 with
+    # g_m = I_C / V_T, R_C = 4.7 kΩ ∥ 100 kΩ. The Early effect and base resistance the
+    # formula leaves out take a few per cent off (about text: "about 70").
+    ac = solver.solve_ac(circuit, {}, dc)
+    node = circuit.node_index
+    g = abs(ac.v[0, node["c2"]] / ac.v[0, node["b1"]])
+    gm = (tail / 2) / VT
+    rc = 1.0 / (1 / 4.7e3 + 1 / 100e3)
+    assert 0.88 * gm * rc / 2 < g < 1.0 * gm * rc / 2
+    assert 60 < g < 80
+
+
 FACTS = {
     "chime-buffer": _chime,
     "sounder-driver": _classa([("col", "base", "emit")]),
@@ -138,6 +186,8 @@ FACTS = {
     "relay-switch": _relay,
     "lamp-switch": _lamp,
     "line-driver": _line_driver,
+    "practice-preamp": _practice,
+    "diff-receiver": _diff,
 }
 
 
