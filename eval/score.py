@@ -138,7 +138,8 @@ def score_unit(eng: Engine, case: Case, unit: str, readings: list[Reading], t: d
 
 def listed_group_size(eng: Engine, fault: str) -> int:
     """Members of `fault`'s group as `diag faults` lists it (groups formed in prior
-    order, from the offered readings alone): no unit can do better than this."""
+    order, from the offered readings alone): the reference a unit's top group is set
+    against (groups formed in posterior order can differ by a few members either way)."""
     ens = eng.ensemble
     ids = [h.id for h in ens.hypotheses]
     g = ens.group[ids.index(fault)]

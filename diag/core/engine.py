@@ -488,9 +488,7 @@ class Engine:
             x = ens.samples[ids.index(fault_id)]
         else:
             x = self._samples_of([self._spec(fault_id)])[0]
-        from diag.core import infer
-
-        from diag.core import meter
+        from diag.core import infer, meter
 
         q = infer.nan_quantile(x, [0.01, 0.5, 0.99], axis=0)
         out = []
