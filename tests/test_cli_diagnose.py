@@ -60,6 +60,7 @@ def test_diagnose_top_and_text(simulated, capsys):
     assert rc == 0 and len(json.loads(out)["suspects"]) == 2
     rc, out, _ = run(["diagnose", RELAY, str(simulated), "--draws", "32"], capsys)
     assert rc == 0 and "R1:open" in out and "Next readings" in out
+    assert "To confirm R1:open: " in out or "check each at the bench:\n  R1:open: " in out
 
 
 def test_header_only_gives_prior_and_first_reading(tmp_path, capsys):

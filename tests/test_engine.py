@@ -340,3 +340,24 @@ def test_a_speaker_lead_reading_zero_is_inside_the_healthy_band():
     band = {(b.observable.point, b.observable.kind): b for b in eng.bands()}[("TP6", "dc")]
     assert band.low == band.high == 0.0
     assert band_offset(band, 0.0) == 0.0
+
+
+def test_bench_checks_name_every_suspect_close_to_the_leader():
+    """The powered-off check of the leader, and of each suspect within a factor of ten
+    of it (at most three), so two suspects the readings leave close can be told apart
+    at the bench; suspects without a check (healthy) are skipped."""
+    from diag.core.engine import Diagnosis, Suspect
+
+    confirm = {"R4:low": "measure R4", "C2:reversed": "look at C2's stripe",
+               "healthy": "", "C2:leaky": "lift C2", "R1:low": "measure R1"}
+
+    def diag(ps):
+        names = ["R4:low", "C2:reversed", "healthy", "C2:leaky", "R1:low"]
+        return Diagnosis(5, True, tuple(Suspect(n, p, 0, n) for n, p in zip(names, ps)),
+                         (), extra={"confirm": confirm})
+
+    assert diag([0.48, 0.40, 0.06, 0.05, 0.01]).bench_checks() == [
+        ("R4:low", "measure R4"), ("C2:reversed", "look at C2's stripe"),
+        ("C2:leaky", "lift C2")]
+    assert diag([0.97, 0.02, 0.005, 0.003, 0.002]).bench_checks() == [("R4:low", "measure R4")]
+    assert Diagnosis(0, True, (), ()).bench_checks() == []

@@ -143,7 +143,8 @@ def test_report_holds_case_readings_ranking_notes_cautions(case, diag_home, tmp_
                   suspects=(Suspect("R2:open", 0.8, 0, "R2 open"),
                             Suspect("healthy", 0.2, 1, "no fault")),
                   next=(NextReading("TP3", "dc", 0.9, "R2 open: 0.1 V"),),
-                  notes=("a bench note",), fit_text="nothing fits well")
+                  notes=("a bench note",), fit_text="nothing fits well",
+                  extra={"confirm": {"R2:open": "lift one leg: OL", "healthy": ""}})
     cautions, defer = load_cautions(load_rules())
     text = report_markdown(case, s, d, cautions, defer)
     out = export_report(tmp_path / "sub" / "r.md", text)
@@ -154,6 +155,7 @@ def test_report_holds_case_readings_ranking_notes_cautions(case, diag_home, tmp_
     assert "outside the model" in back
     assert "Next reading: **TP3 dc**" in back
     assert "a bench note" in back
+    assert "## To confirm at the bench\n\n- `R2:open`: lift one leg: OL\n" in back
     assert "unit came back twice | odd" in back
     for c in cautions:
         assert c.title in back

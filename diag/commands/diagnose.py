@@ -70,9 +70,12 @@ def format_text(case, d, top: int, rejected=()) -> str:
     rest = len(d.suspects) - top
     if rest > 0:
         lines.append(f"        ... and {rest} less likely (use --top N)")
-    confirm = d.extra.get("confirm") or {}
-    if d.suspects and confirm.get(d.suspects[0].fault):
-        lines += ["", f"To confirm {d.suspects[0].fault}: {confirm[d.suspects[0].fault]}"]
+    checks = d.bench_checks()
+    if len(checks) == 1:
+        lines += ["", f"To confirm {checks[0][0]}: {checks[0][1]}"]
+    elif checks:
+        lines += ["", "The readings leave these close; check each at the bench:"]
+        lines += [f"  {f}: {c}" for f, c in checks]
     lines += ["", "Next readings (by expected information per unit of effort):"]
     if not d.next:
         lines.append("  nothing left to learn from the offered readings")

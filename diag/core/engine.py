@@ -146,6 +146,17 @@ class Diagnosis:
     rejected: tuple[str, ...] = ()
     extra: dict = field(default_factory=dict)
 
+    def bench_checks(self, close: float = 0.1, most: int = 3) -> list[tuple[str, str]]:
+        """(fault, how to confirm it at the bench) for the leader and each suspect whose
+        p is within a factor 1/`close` of the leader's (at most `most`): when the readings
+        leave two suspects close, the powered-off check of each tells them apart."""
+        confirm = self.extra.get("confirm") or {}
+        if not self.suspects:
+            return []
+        floor = close * self.suspects[0].p
+        return [(s.fault, confirm[s.fault]) for s in self.suspects
+                if s.p >= floor and confirm.get(s.fault)][:most]
+
     def to_json(self, case_path: str, top: int | None = None) -> dict[str, Any]:
         """SPEC section 5 object; `top` limits the suspects listed (p still sums to 1
         over all hypotheses)."""

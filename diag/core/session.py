@@ -326,6 +326,10 @@ def report_markdown(case, session: Session, diagnosis: Diagnosis | None,
             n = diagnosis.next[0]
             lines += [f"Next reading: **{n.point} {n.kind}** ({n.bits:.2f} bits): "
                       f"{_md(n.why)}", ""]
+        checks = diagnosis.bench_checks()
+        if checks:
+            lines += ["## To confirm at the bench", ""]
+            lines += [f"- `{f}`: {_md(c)}" for f, c in checks] + [""]
         if diagnosis.notes:
             lines += ["## Bench notes", ""] + [f"- {_md(t)}" for t in diagnosis.notes] + [""]
         if diagnosis.rejected:
