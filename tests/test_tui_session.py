@@ -361,3 +361,24 @@ async def test_ranking_shows_first_then_its_advice(diag_home):
         assert [s.fault for s in bare.suspects] == [s.fault for s in full.suspects]
         assert screen.diagnosis is full and not screen._awaiting_advice
         assert screen.shown_serial == screen.serial
+
+
+def test_advice_panel_names_each_close_suspect_when_no_reading_is_left():
+    """With nothing left to read, the panel sends the user to the bench check of every
+    suspect the readings leave close (Diagnosis.bench_checks), or of the leader alone."""
+    from diag.core.engine import Diagnosis, Suspect
+    from diag.tui.advice_panel import NextReadingPanel
+
+    confirm = {"R4:low": "measure R4", "C2:reversed": "C2's stripe", "healthy": ""}
+    close = Diagnosis(5, True, (Suspect("R4:low", 0.5, 0, ""),
+                                Suspect("C2:reversed", 0.45, 0, ""),
+                                Suspect("healthy", 0.05, 1, "")), (),
+                      extra={"confirm": confirm})
+    panel = NextReadingPanel()
+    panel.show(close)
+    assert "check R4:low, C2:reversed at the bench" in str(panel.content)
+    alone = Diagnosis(5, True, (Suspect("R4:low", 0.99, 0, ""),
+                                Suspect("C2:reversed", 0.01, 1, "")), (),
+                      extra={"confirm": confirm})
+    panel.show(alone)
+    assert "confirm the leader at the bench" in str(panel.content)

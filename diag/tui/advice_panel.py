@@ -17,8 +17,12 @@ class NextReadingPanel(Static):
             self.update("[dim]next reading: waiting for the predictions…[/dim]")
             return
         if not diagnosis.next:
+            ids = [f for f, _ in diagnosis.bench_checks()]
+            who = (f"check {', '.join(esc(f) for f in ids)} at the bench (d for each one's "
+                   f"check)" if len(ids) > 1 else
+                   "confirm the leader at the bench (d for its detail)")
             self.update("[b]next reading:[/b] nothing left that would tell the suspects "
-                        "apart; confirm the leader at the bench (d for its detail)")
+                        f"apart; {who}")
             return
         n = diagnosis.next[0]
         more = ", ".join(f"{esc(x.point)} {x.kind}" for x in diagnosis.next[1:3])
