@@ -505,7 +505,7 @@ class Engine:
         out = []
         for j, o in enumerate(self.observables):
             lo, hi = meter.shown_band(q[0, j], q[2, j], self.case.meter, o.unit)
-            mid = meter.shown_band(q[1, j], q[1, j], self.case.meter, o.unit)[0]
+            mid = meter.shown(q[1, j], self.case.meter, o.unit)
             out.append(Band(o, float(lo), float(mid), float(hi)))
         return tuple(out)
 

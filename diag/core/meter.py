@@ -64,14 +64,20 @@ def resolution(values: Any, meter: Mapping[str, Any], unit: str) -> np.ndarray:
     return ranges[np.where(idx < 0, len(ranges) - 1, idx)] / float(meter["counts"])
 
 
+def shown(values: Any, meter: Mapping[str, Any], unit: str) -> np.ndarray:
+    """Values rounded to the display resolution of the range each autoranges to (what the
+    display shows, no meter error drawn; overflow not marked)."""
+    v = np.asarray(values, dtype=float)
+    q = resolution(v, meter, unit)
+    return np.rint(v / q) * q
+
+
 def shown_band(low: Any, high: Any, meter: Mapping[str, Any], unit: str
                ) -> tuple[np.ndarray, np.ndarray]:
-    """A band of true readings as the meter shows its edges: each rounded to the display
-    resolution of the range it autoranges to. Rounding is monotone, so every reading
-    inside the band shows inside the shown band (a few microvolts show as 0.0 mV)."""
-    lo, hi = np.asarray(low, dtype=float), np.asarray(high, dtype=float)
-    ql, qh = resolution(lo, meter, unit), resolution(hi, meter, unit)
-    return np.rint(lo / ql) * ql, np.rint(hi / qh) * qh
+    """A band of true readings as the meter shows its edges (`shown`). Rounding is
+    monotone, so every reading inside the band shows inside the shown band (a few
+    microvolts show as 0.0 mV)."""
+    return shown(low, meter, unit), shown(high, meter, unit)
 
 
 def accuracy(values: Any, kind: str, meter: Mapping[str, Any], unit: str) -> np.ndarray:
@@ -111,12 +117,11 @@ def display(values: Any, kind: str, meter: Mapping[str, Any], unit: str,
     finite = np.isfinite(bound)
     u = rng.uniform(-1.0, 1.0, size=v.shape)
     noisy = np.where(finite, v + u * np.where(finite, bound, 0.0), v)
-    q = resolution(noisy, meter, unit)
-    shown = np.rint(noisy / q) * q
+    out = shown(noisy, meter, unit)
     if kind == "ac":            # an rms reading is a magnitude: it never shows below zero
-        shown = np.maximum(shown, 0.0)
+        out = np.maximum(out, 0.0)
     over = (range_index(noisy, meter, unit) < 0) | ~finite
-    return np.where(over & ~np.isnan(v), np.copysign(np.inf, v), shown)
+    return np.where(over & ~np.isnan(v), np.copysign(np.inf, v), out)
 
 
 def loaded(v_open: Any, z_source: Any, z_meter: Any) -> np.ndarray:
