@@ -228,6 +228,48 @@ def test_summary_partitions_the_batch_and_names_the_incomplete(engine):
     assert s["by_part"][0]["units"] >= 2
 
 
+def test_no_fault_found_names_the_faults_its_readings_cannot_rule_out(engine):
+    # Two units drawn healthy; on sounder-driver the leaky and reversed capacitors share
+    # the healthy circuit's group (`diag faults`), so "no fault found" must say they may
+    # still be there, with each one's p summed over those units, and what would split them.
+    units = _units(engine)
+    res = triage(engine, units)
+    s = res.summary
+    nff = [res.unit(n) for n in s["healthy"]]
+    assert nff, "the drawn healthy units should read healthy"
+    want: dict[str, float] = {}
+    for u in nff:
+        g = next(x.group for x in u.diagnosis.suspects if x.fault == "healthy")
+        for x in u.diagnosis.suspects:
+            if x.group == g and x.fault != "healthy" and x.p > 0:
+                want[x.fault] = want.get(x.fault, 0.0) + x.p
+    got = {r["fault"]: r["expected"] for r in s["healthy_lookalikes"]}
+    assert got, "look-alike faults of a good unit should be listed"
+    assert set(got) <= set(want)
+    for f, e in got.items():
+        assert e == pytest.approx(want[f], abs=1e-3)
+    assert [r["expected"] for r in s["healthy_lookalikes"]] == sorted(got.values(),
+                                                                     reverse=True)
+    ens = engine.ensemble
+    ids = [h.id for h in ens.hypotheses]
+    assert s["healthy_split_by"] == engine.splitters()[int(ens.group[ids.index("healthy")])]
+    md = to_markdown(res, "cases/sounder-driver.yaml")
+    top = s["healthy_lookalikes"][0]
+    assert f"{top['fault']} {top['expected']:.1f}" in md.split("## No fault found")[1]
+    assert "readings cannot tell a good unit from these faults" in md
+    json.dumps(to_json(res, "cases/sounder-driver.yaml"))
+
+    from diag.tui.batch_screen import summary_text
+    assert f"{top['fault']} {top['expected']:.1f}" in summary_text(res)
+
+    # a batch with no unit found healthy lists none and says nothing about them
+    faulty = {n: units[n] for n in ("A00", "A03", "A07")}
+    res2 = triage(engine, faulty)
+    assert res2.summary["healthy"] == []
+    assert res2.summary["healthy_lookalikes"] == []
+    assert "cannot tell a good unit" not in to_markdown(res2, "cases/sounder-driver.yaml")
+
+
 def test_reports_carry_the_cautions_and_spec_json(engine):
     units = _units(engine)
     res = triage(engine, units, rejected=["batch.csv:4: row 4: unknown point 'TP99'"])

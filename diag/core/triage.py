@@ -39,6 +39,7 @@ from diag.core.engine import Diagnosis, Engine, Reading
 from diag.core.errors import DiagError
 
 STATUSES = ("fault", "healthy", "no-fit")
+LOOKALIKES = 5  # look-alike faults named under "No fault found" in the Markdown report
 
 
 @dataclass(frozen=True)
@@ -657,6 +658,21 @@ def summarise(res: TriageResult) -> dict[str, Any]:
         rows.sort(key=lambda r: (-r["units"], -r["expected"], r[key]))
         return rows
 
+    # faults a "no fault found" unit may still have: those its readings cannot tell from
+    # the healthy circuit (healthy's group in its diagnosis), p summed over those units
+    look: Counter = Counter()
+    for u in res.units:
+        if u.status != "healthy":
+            continue
+        g = next(s.group for s in u.diagnosis.suspects if s.fault == "healthy")
+        for f, p, grp, _ in u.diagnosis.suspects:
+            if grp == g and f != "healthy" and p > 0:
+                look[f] += p
+    ens = res.engine.ensemble
+    ids = [h.id for h in ens.hypotheses]
+    hg = int(ens.group[ids.index("healthy")]) if "healthy" in ids else None
+    split = res.engine.splitters().get(hg) if look and hg is not None else None
+
     return {
         "units": len(res.units),
         "rows_rejected": len(res.rejected),
@@ -665,6 +681,10 @@ def summarise(res: TriageResult) -> dict[str, Any]:
         "by_part": table(by_part, exp_part, "part"),
         "no_fit": [u.unit for u in res.units if u.status == "no-fit"],
         "healthy": [u.unit for u in res.units if u.status == "healthy"],
+        "healthy_lookalikes": [{"fault": f, "expected": round(float(e), 3)}
+                               for f, e in sorted(look.items(), key=lambda x: (-x[1], x[0]))
+                               if e >= 0.0005],
+        "healthy_split_by": split,
         "incomplete": [{"unit": u.unit, "missing": [f"{p} {k}" for p, k in u.missing]}
                        for u in res.units if u.incomplete],
         "rejected": list(res.rejected),
@@ -745,6 +765,17 @@ def to_markdown(res: TriageResult, case_path: str, cautions: Sequence[str] = (),
     w.write("## Fit no hypothesis (send to engineering)\n\n")
     w.write((", ".join(s["no_fit"]) or "none") + "\n\n")
     w.write("## No fault found\n\n" + (", ".join(s["healthy"]) or "none") + "\n\n")
+    look = s.get("healthy_lookalikes") or []
+    if s["healthy"] and look:
+        shown = ", ".join(f"{r['fault']} {r['expected']:.1f}" for r in look[:LOOKALIKES])
+        more = f" and {len(look) - LOOKALIKES} more" if len(look) > LOOKALIKES else ""
+        w.write("These units read like a good one, but the readings cannot tell a good "
+                "unit from these faults, which may still be present (expected number of "
+                f"units, the sum of p over them): {shown}{more}.")
+        if s.get("healthy_split_by"):
+            w.write(f" To tell them apart: {s['healthy_split_by'].rstrip('.')}.")
+        w.write(" If the complaint persists, check those parts before returning a unit "
+                "as good.\n\n")
     w.write("## Incomplete readings\n\n")
     for r in s["incomplete"]:
         w.write(f"- {r['unit']}: missing {', '.join(r['missing'])}\n")
