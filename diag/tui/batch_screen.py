@@ -45,7 +45,7 @@ def summary_text(result: TriageResult, top: int = 5) -> str:
         lines.append("Parts: " + ", ".join(f"{esc(r['part'])} ×{r['units']}"
                                             for r in s["by_part"][:top]))
     if s["healthy"] and s.get("healthy_lookalikes"):
-        lines.append("Healthy units may still have (readings alike): " + ", ".join(
+        lines.append("Found healthy, but the readings cannot rule out: " + ", ".join(
             f"{esc(r['fault'])} {r['expected']:.1f}" for r in s["healthy_lookalikes"][:top]))
     return "\n".join(lines)
 
