@@ -63,6 +63,25 @@ def test_diagnose_top_and_text(simulated, capsys):
     assert "To confirm R1:open: " in out or "check each at the bench:\n  R1:open: " in out
 
 
+def test_text_says_whether_a_reading_can_still_split_close_suspects():
+    """Two suspects close: while an offered reading can still tell them apart the text
+    points to it before the bench checks; with none left it says only the bench can."""
+    from diag.commands.diagnose import format_text
+    from diag.core.case import load_case
+    from diag.core.engine import Diagnosis, NextReading, Suspect
+
+    case = load_case(RELAY)
+    sus = (Suspect("R1:open", 0.5, 0, "R1 open"), Suspect("R2:short", 0.45, 1, "R2 short"))
+    confirm = {"R1:open": "measure R1", "R2:short": "measure R2"}
+    nxt = (NextReading("TP3", "dc", 0.9, "R1:open: 12 V; R2:short: 0 V"),)
+    left = format_text(case, Diagnosis(2, True, sus, nxt, extra={"confirm": confirm}), 10)
+    assert "the next reading below may tell them apart" in left
+    assert "  R1:open: measure R1\n  R2:short: measure R2" in left
+    none = format_text(case, Diagnosis(6, True, sus, (), extra={"confirm": confirm}), 10)
+    assert "No offered reading tells these apart; check each at the bench:" in none
+    assert "nothing left to learn" in none
+
+
 def test_header_only_gives_prior_and_first_reading(tmp_path, capsys):
     p = tmp_path / "empty.csv"
     p.write_text("point,value\n")

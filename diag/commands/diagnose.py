@@ -74,7 +74,9 @@ def format_text(case, d, top: int, rejected=()) -> str:
     if len(checks) == 1:
         lines += ["", f"To confirm {checks[0][0]}: {checks[0][1]}"]
     elif checks:
-        lines += ["", "The readings leave these close; check each at the bench:"]
+        lines += ["", "Close so far; the next reading below may tell them apart, or check "
+                  "each at the bench:" if d.next else
+                  "No offered reading tells these apart; check each at the bench:"]
         lines += [f"  {f}: {c}" for f, c in checks]
     lines += ["", "Next readings (by expected information per unit of effort):"]
     if not d.next:
