@@ -2,6 +2,7 @@
 
     python -m eval.run [--out DIR] [--seed N] [--per-fault N] [--healthy N] [--blunder N]
                        [--unmodelled N] [--guided-per-fault N] [--draws K] [--case CASE ...]
+                       [--hindsight]
 
 Without --out the units go to a temporary folder that is removed afterwards.
 """
@@ -31,6 +32,9 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--guided-per-fault", type=int, default=1,
                     help="units per fault given the guided runs (0: none)")
     ap.add_argument("--failures", type=int, default=40)
+    ap.add_argument("--hindsight", action="store_true",
+                    help="also find each guided run's fewest readings chosen in hindsight "
+                         "(a subset search: minutes)")
     a = ap.parse_args(argv)
     with tempfile.TemporaryDirectory(prefix="diag-eval-") as tmp:
         out = Path(a.out or tmp)
@@ -45,7 +49,8 @@ def main(argv: list[str] | None = None) -> int:
             return rc
         t1 = time.perf_counter()
         scores = score.score_dir(out, guided_per_fault=a.guided_per_fault, draws=a.draws,
-                                 log=lambda m: print(m, file=sys.stderr))
+                                 log=lambda m: print(m, file=sys.stderr),
+                                 with_hindsight=a.hindsight)
         t2 = time.perf_counter()
     print(f"Seed {a.seed}; {a.per_fault} unit(s) per modelled fault, {a.healthy} healthy, "
           f"{a.blunder} blunder, {a.unmodelled} unmodelled per case; engine K = {a.draws}; "

@@ -1,10 +1,14 @@
 """Score diag's engine on generated units (the batch and truth files of eval.generate).
 
-    python -m eval.score DIR [--guided-per-fault N] [--draws K] [--failures N]
+    python -m eval.score DIR [--guided-per-fault N] [--draws K] [--failures N] [--hindsight]
 
 For every unit: the engine diagnoses it with every reading taken ("all points"), and in
 guided mode it starts from no reading and takes the first proposed `next` reading each
 time, against taking the points in case order, until the truth's group reaches p >= 0.9.
+With --hindsight it also finds, for each guided run, the fewest of the unit's readings
+that put p >= 0.9 on the truth's group when chosen knowing the truth and every reading
+(a search over subsets): no policy that reads one point at a time can do better, so the
+ratio of these to case order bounds the guided ratio from below (minutes, not seconds).
 
 Groups: hypotheses sharing a `group` number cannot be told apart by any offered reading, so
 their probabilities are summed and a hit on any member is a group-aware hit.
@@ -60,6 +64,7 @@ class UnitScore:
     truth_group_size: int = 0       # the truth's group as `diag faults` lists it
     guided: int | None = None       # readings taken to reach p >= 0.9 on the truth group
     in_order: int | None = None     # the same taking points in case order
+    hindsight: int | None = None    # fewest readings, chosen in hindsight (--hindsight)
     n_readings: int = 0
     rejected: int = 0               # rows of the unit that diag's readings parser refused
     handled: bool = False           # unmodelled: flagged, or the exact pair ranked first
@@ -181,10 +186,25 @@ def _guided(eng: Engine, case: Case, readings: list[Reading], truth: str
     return guided, in_order
 
 
+def hindsight(eng: Engine, readings: list[Reading], truth: str, cap: int) -> int:
+    """Fewest of `readings` that put p >= CONFIDENT on the truth's group, the subset
+    chosen knowing the truth (every subset of size 0, 1, ... tried); `cap` when none
+    smaller than `cap` does (the caller passes a count it knows suffices, or every
+    reading)."""
+    import itertools
+
+    for k in range(min(cap, len(readings))):
+        for sub in itertools.combinations(readings, k):
+            if truth_group_p(eng.diagnose(list(sub), advise=False), truth) >= CONFIDENT:
+                return k
+    return cap
+
+
 def score_case(folder: Path, case_path: str, info: dict, guided_per_fault: int = 1,
-               draws: int = 128) -> list[UnitScore]:
+               draws: int = 128, with_hindsight: bool = False) -> list[UnitScore]:
     """Score one case's units. The guided runs take the first `guided_per_fault` units
-    of each fault (in unit order); 0 skips them."""
+    of each fault (in unit order); 0 skips them. `with_hindsight` adds the hindsight
+    count to each guided run (`hindsight`)."""
     rules = load_rules()
     case = load_case(case_path, rules)
     eng = Engine(case, rules, K=draws, seed=0)
@@ -199,12 +219,15 @@ def score_case(folder: Path, case_path: str, info: dict, guided_per_fault: int =
         g = t["set"] == "fault" and seen[t["fault"]] <= guided_per_fault
         s = score_unit(eng, case, unit, batch.get(unit, []), t, g)
         s.rejected = rejected.get(unit, 0)
+        if with_hindsight and s.guided is not None:
+            s.hindsight = hindsight(eng, batch.get(unit, []), t["fault"],
+                                    min(s.guided, s.in_order))
         out.append(s)
     return out
 
 
 def score_dir(folder: Path, guided_per_fault: int = 1, draws: int = 128, log=None,
-              jobs: int | None = None) -> list[UnitScore]:
+              jobs: int | None = None, with_hindsight: bool = False) -> list[UnitScore]:
     """Score every case listed in `folder`/manifest.json, one process per case (at most
     `jobs` at once, default the CPU count)."""
     manifest = json.loads((folder / "manifest.json").read_text(encoding="utf-8"))
@@ -213,12 +236,13 @@ def score_dir(folder: Path, guided_per_fault: int = 1, draws: int = 128, log=Non
     out: list[UnitScore] = []
     if jobs <= 1:
         for cp, info in items:
-            out += score_case(folder, cp, info, guided_per_fault, draws)
+            out += score_case(folder, cp, info, guided_per_fault, draws, with_hindsight)
             if log:
                 log(f"scored {Path(cp).name}")
         return out
     with ProcessPoolExecutor(max_workers=jobs) as pool:
-        futs = [pool.submit(score_case, folder, cp, info, guided_per_fault, draws)
+        futs = [pool.submit(score_case, folder, cp, info, guided_per_fault, draws,
+                            with_hindsight)
                 for cp, info in items]
         for (cp, _), f in zip(items, futs, strict=True):
             out += f.result()
@@ -305,6 +329,15 @@ def summarise(scores: list[UnitScore]) -> dict:
                             sum(s.guided > s.in_order for s in g), len(g) - len(rest))
     out["guided_ratio_reached"] = (sum(s.guided for s in rest) / sum(s.in_order for s in rest)
                                    if rest and sum(s.in_order for s in rest) else float("nan"))
+    # the hindsight bound (--hindsight): the same ratios with the fewest readings chosen
+    # knowing the truth in place of the guided count
+    hs = [s for s in g if s.hindsight is not None]
+    hr = [s for s in hs if not never(s)]
+    out["hindsight_ratio"] = (sum(s.hindsight for s in hs) / sum(s.in_order for s in hs)
+                              if hs and sum(s.in_order for s in hs) else float("nan"))
+    out["hindsight_ratio_reached"] = (
+        sum(s.hindsight for s in hr) / sum(s.in_order for s in hr)
+        if hr and sum(s.in_order for s in hr) else float("nan"))
     return out
 
 
@@ -380,6 +413,11 @@ def markdown(scores: list[UnitScore]) -> str:
                      f"more in {c}; in {n} the truth's group never reaches p ≥ "
                      f"{CONFIDENT} (each counts every reading on both sides); over the "
                      f"others the ratio is {_num(m['guided_ratio_reached'])}.")
+    if not math.isnan(m.get("hindsight_ratio", float("nan"))):
+        lines.append(f"Hindsight bound: the fewest readings that reach p ≥ {CONFIDENT}, "
+                     f"chosen knowing the truth, give {_num(m['hindsight_ratio'])} of case "
+                     f"order ({_num(m['hindsight_ratio_reached'])} over the runs that "
+                     f"get there); no policy choosing one reading at a time does better.")
     refused = defaultdict(int)
     for s in scores:
         refused[s.set] += s.rejected
@@ -474,9 +512,11 @@ def main(argv: list[str] | None = None) -> int:
                     help="units per fault given the guided runs (0: none)")
     ap.add_argument("--draws", type=int, default=128, help="engine draws per hypothesis")
     ap.add_argument("--failures", type=int, default=40, help="misses to list")
+    ap.add_argument("--hindsight", action="store_true",
+                    help="also find each guided run's fewest readings chosen in hindsight")
     a = ap.parse_args(argv)
     scores = score_dir(Path(a.folder), guided_per_fault=a.guided_per_fault, draws=a.draws,
-                       log=lambda m: print(m, file=sys.stderr))
+                       log=lambda m: print(m, file=sys.stderr), with_hindsight=a.hindsight)
     print(markdown(scores))
     print(failures(scores, a.failures))
     return 0

@@ -239,14 +239,14 @@ def test_summary_splits_group_sizes_and_guided_runs():
     """The bookkeeping behind the README's explanation of two targets, worked by hand:
     group sizes per set and their floor (every faulty unit a group of one), and the
     guided runs by outcome, a run that never reaches p >= 0.9 counted apart."""
-    def unit(set_, size, guided=None, in_order=None, truth_p=1.0, listed=1):
+    def unit(set_, size, guided=None, in_order=None, truth_p=1.0, listed=1, hind=None):
         return score.UnitScore(case="c", unit="u", set=set_, truth="R1:open", detail="",
                                fits=True, top="R1:open", top_p=0.95, modelled=True,
                                top1_group=True, top_group_size=size, truth_p=truth_p,
                                guided=guided, in_order=in_order, n_readings=9,
-                               truth_group_size=listed)
-    scores = [unit("fault", 2, 2, 4), unit("fault", 4, 3, 3, 0.95, 3),
-              unit("fault", 2, 9, 9, 0.5), unit("fault", 4, 5, 3, listed=2),
+                               truth_group_size=listed, hindsight=hind)
+    scores = [unit("fault", 2, 2, 4, hind=1), unit("fault", 4, 3, 3, 0.95, 3, hind=2),
+              unit("fault", 2, 9, 9, 0.5, hind=7), unit("fault", 4, 5, 3, listed=2, hind=3),
               unit("healthy", 6, listed=5)]
     m = score.summarise(scores)
     assert m["group_size_fault"] == 3.0 and m["group_size_healthy"] == 6.0
@@ -256,7 +256,10 @@ def test_summary_splits_group_sizes_and_guided_runs():
     assert m["guided_counts"] == (1, 2, 1, 1)     # better, as many, more, never reached
     assert m["guided_ratio"] == pytest.approx((2 + 3 + 9 + 5) / (4 + 3 + 9 + 3))
     assert m["guided_ratio_reached"] == pytest.approx((2 + 3 + 5) / (4 + 3 + 3))
+    assert m["hindsight_ratio"] == pytest.approx((1 + 2 + 7 + 3) / (4 + 3 + 9 + 3))
+    assert m["hindsight_ratio_reached"] == pytest.approx((1 + 2 + 3) / (4 + 3 + 3))
     text = score.markdown(scores)
+    assert "Hindsight bound" in text and "give 0.68 of case order (0.60" in text
     assert "in 1 the truth's group never reaches" in text and "would be 2.00" in text
     assert "as `diag faults` lists it, 2.40 (1.75 on faulty units)" in text
 
@@ -278,3 +281,32 @@ def test_listed_group_size_is_the_group_diag_faults_prints(capsys):
     for h in hyps:
         if "+" not in h["fault"]:
             assert score.listed_group_size(eng, h["fault"]) == size[h["group"]], h["fault"]
+
+
+def test_hindsight_is_the_fewest_readings_that_reach_confidence():
+    """`score.hindsight`: the smallest subset of a unit's readings that puts p >= 0.9 on
+    the truth's group, checked by trying every subset one size smaller; it never needs
+    more readings than following `next` or case order (both are subsets that get there).
+    Readings drawn by the engine itself (no ngspice needed)."""
+    import itertools
+
+    from diag.core.engine import Engine
+
+    case = load_case("cases/series-regulator.yaml")
+    eng = Engine(case, K=128, seed=0)
+    rng = np.random.default_rng(7)
+    tried = 0
+    for fault in ("R1:open", "Q1:be-short", "R2:high", "C1:short"):
+        rd = list(eng.simulate(fault, rng))
+        g, o = score._guided(eng, case, rd, fault)
+        h = score.hindsight(eng, rd, fault, min(g, o))
+        assert h <= min(g, o)
+        reach = [sub for sub in itertools.combinations(rd, h)
+                 if score.truth_group_p(eng.diagnose(list(sub), advise=False), fault) >= 0.9]
+        if h < min(g, o) or reach:
+            tried += 1
+            assert reach, fault
+            assert not any(
+                score.truth_group_p(eng.diagnose(list(sub), advise=False), fault) >= 0.9
+                for sub in itertools.combinations(rd, h - 1)), fault
+    assert tried >= 3  # most of these faults reach p >= 0.9 on some subset
