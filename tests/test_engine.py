@@ -361,3 +361,42 @@ def test_bench_checks_name_every_suspect_close_to_the_leader():
         ("C2:leaky", "lift C2")]
     assert diag([0.97, 0.02, 0.005, 0.003, 0.002]).bench_checks() == [("R4:low", "measure R4")]
     assert Diagnosis(0, True, (), ()).bench_checks() == []
+
+
+def test_healthy_alike_only_when_a_good_unit_is_in_the_leading_group():
+    """The sentence that the readings also fit a good unit appears exactly when readings
+    were taken, the leader fits them, and `healthy` shares the leader's group; not when
+    healthy sits in another group, when nothing fits, or before any reading."""
+    from diag.core.engine import Diagnosis, Suspect
+
+    def d(healthy_group, fits=True, used=4):
+        return Diagnosis(used, fits, (Suspect("C3:leaky", 0.5, 0, "C3 leaky"),
+                                      Suspect("healthy", 0.3, healthy_group, "no fault"),
+                                      Suspect("R1:open", 0.2, 2, "R1 open")), ())
+
+    assert "also fit a good unit" in d(0).healthy_alike()
+    assert "good unit" in d(0).healthy_alike(short=True)
+    assert d(1).healthy_alike(short=True) == ""
+    assert d(1).healthy_alike() == ""
+    assert d(0, fits=False).healthy_alike() == ""
+    assert d(0, used=0).healthy_alike() == ""
+    assert Diagnosis(3, True, (), ()).healthy_alike() == ""
+
+
+def test_a_unit_drawn_healthy_is_said_to_read_like_a_good_one():
+    """End to end on sounder-driver (leaky electrolytics share the healthy group there,
+    `diag faults`): a unit drawn healthy gets the sentence in the text and the report; a
+    unit with R1 open (base starved, every reading volts away) does not."""
+    from diag.commands.diagnose import format_text
+    from diag.core.session import new_session, report_markdown
+
+    case = load_case("cases/sounder-driver.yaml")
+    eng = Engine(case, K=128, seed=0)
+    rng = np.random.default_rng(11)
+    good = eng.diagnose(list(eng.simulate("healthy", rng)))
+    assert good.healthy_alike()
+    assert good.healthy_alike() in format_text(case, good, 10)
+    assert good.healthy_alike() in report_markdown(case, new_session(case), good, [], "")
+    bad = eng.diagnose(list(eng.simulate("R1:open", rng)))
+    assert bad.suspects[0].fault == "R1:open" and bad.healthy_alike() == ""
+    assert "also fit a good unit" not in format_text(case, bad, 10)

@@ -64,6 +64,8 @@ def format_text(case, d, top: int, rejected=()) -> str:
         lines += ["*** NO MODELLED FAULT FITS THESE READINGS ***", d.fit_text, ""]
     else:
         lines += [d.fit_text, ""]
+    if d.healthy_alike():
+        lines += [d.healthy_alike(), ""]
     lines.append(f"{'p':>6}  {'grp':>3}  {'fault':<24} description")
     for s in d.suspects[:top]:
         lines.append(f"{s.p:6.1%}  {s.group:>3}  {s.fault:<24} {s.text}")

@@ -157,6 +157,21 @@ class Diagnosis:
         return [(s.fault, confirm[s.fault]) for s in self.suspects
                 if s.p >= floor and confirm.get(s.fault)][:most]
 
+    def healthy_alike(self, short: bool = False) -> str:
+        """A sentence when readings were taken, the leader fits them and `healthy` is in
+        the leader's group (no offered reading tells the leader from a good unit); ""
+        otherwise. `short`: a few words, for a narrow panel."""
+        if not (self.readings_used and self.fits and self.suspects):
+            return ""
+        g = self.suspects[0].group
+        if not any(s.fault == "healthy" and s.group == g for s in self.suspects):
+            return ""
+        if short:
+            return "Also fits a good unit: a fault left is one these readings cannot see."
+        return ("These readings also fit a good unit: healthy is in the leading group. "
+                "If the unit still shows its complaint, the fault is one these readings "
+                "cannot see; the bench checks tell which.")
+
     def to_json(self, case_path: str, top: int | None = None) -> dict[str, Any]:
         """SPEC section 5 object; `top` limits the suspects listed (p still sums to 1
         over all hypotheses)."""

@@ -318,6 +318,8 @@ def report_markdown(case, session: Session, diagnosis: Diagnosis | None,
                       "outside the model.**", ""]
         if diagnosis.fit_text:
             lines += [_md(diagnosis.fit_text), ""]
+        if diagnosis.healthy_alike():
+            lines += [_md(diagnosis.healthy_alike()), ""]
         lines += ["| # | fault | p | group | what |", "|---|---|---|---|---|"]
         for i, s in enumerate(diagnosis.suspects[:top], 1):
             lines.append(f"| {i} | `{s.fault}` | {s.p:.3f} | {s.group} | {_md(s.text)} |")

@@ -39,6 +39,8 @@ class BenchNotesPanel(Static):
             self.update("")
             return
         lines = [] if diagnosis.fits else [f"[b $error]⚠ {esc(diagnosis.fit_text)}[/]"]
+        if diagnosis.healthy_alike():
+            lines.append(f"[b]{esc(diagnosis.healthy_alike(short=True))}[/b]")
         lines += [f"• {esc(t)}" for t in diagnosis.notes]
         lines += [f"[yellow]✗ {esc(t)}[/yellow]" for t in diagnosis.rejected]
         self.update("[b]bench notes[/b]\n" + ("\n".join(lines) if lines
