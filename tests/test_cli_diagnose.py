@@ -65,7 +65,8 @@ def test_diagnose_top_and_text(simulated, capsys):
 
 def test_text_says_whether_a_reading_can_still_split_close_suspects():
     """Two suspects close: while an offered reading can still tell them apart the text
-    points to it before the bench checks; with none left it says only the bench can."""
+    points to it before the bench checks; with none left it says only the bench can.
+    (Wording on hand-made diagnoses: no outside fact is involved.)"""
     from diag.commands.diagnose import format_text
     from diag.core.case import load_case
     from diag.core.engine import Diagnosis, NextReading, Suspect

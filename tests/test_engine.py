@@ -366,7 +366,8 @@ def test_bench_checks_name_every_suspect_close_to_the_leader():
 def test_healthy_alike_only_when_a_good_unit_is_in_the_leading_group():
     """The sentence that the readings also fit a good unit appears exactly when readings
     were taken, the leader fits them, and `healthy` shares the leader's group; not when
-    healthy sits in another group, when nothing fits, or before any reading."""
+    healthy sits in another group, when nothing fits, or before any reading. (The
+    rule itself, worked on hand-made diagnoses: no outside fact is involved.)"""
     from diag.core.engine import Diagnosis, Suspect
 
     def d(healthy_group, fits=True, used=4):
@@ -386,7 +387,9 @@ def test_healthy_alike_only_when_a_good_unit_is_in_the_leading_group():
 def test_a_unit_drawn_healthy_is_said_to_read_like_a_good_one():
     """End to end on sounder-driver (leaky electrolytics share the healthy group there,
     `diag faults`): a unit drawn healthy gets the sentence in the text and the report; a
-    unit with R1 open (base starved, every reading volts away) does not."""
+    unit with R1 open does not: with its only bias feed open the base carries no current,
+    the transistor is off and the collector sits at the supply (common practice, no
+    source), volts away from a good unit."""
     from diag.commands.diagnose import format_text
     from diag.core.session import new_session, report_markdown
 

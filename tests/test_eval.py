@@ -287,7 +287,8 @@ def test_hindsight_is_the_fewest_readings_that_reach_confidence():
     """`score.hindsight`: the smallest subset of a unit's readings that puts p >= 0.9 on
     the truth's group, checked by trying every subset one size smaller; it never needs
     more readings than following `next` or case order (both are subsets that get there).
-    Readings drawn by the engine itself (no ngspice needed)."""
+    Readings drawn by the engine itself (no ngspice needed); the check is exhaustive
+    search, no outside fact is involved."""
     import itertools
 
     from diag.core.engine import Engine

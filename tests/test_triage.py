@@ -232,6 +232,7 @@ def test_no_fault_found_names_the_faults_its_readings_cannot_rule_out(engine):
     # Two units drawn healthy; on sounder-driver the leaky and reversed capacitors share
     # the healthy circuit's group (`diag faults`), so "no fault found" must say they may
     # still be there, with each one's p summed over those units, and what would split them.
+    # Bookkeeping, checked against the per-unit diagnoses: no outside fact is involved.
     units = _units(engine)
     res = triage(engine, units)
     s = res.summary

@@ -157,14 +157,18 @@ class Diagnosis:
         return [(s.fault, confirm[s.fault]) for s in self.suspects
                 if s.p >= floor and confirm.get(s.fault)][:most]
 
-    def healthy_alike(self, short: bool = False) -> str:
-        """A sentence when readings were taken, the leader fits them and `healthy` is in
-        the leader's group (no offered reading tells the leader from a good unit); ""
-        otherwise. `short`: a few words, for a narrow panel."""
-        if not (self.readings_used and self.fits and self.suspects):
-            return ""
+    def reads_healthy(self) -> bool:
+        """True when the leader fits the readings and `healthy` is in the leader's group:
+        no offered reading tells the leader from a good unit."""
+        if not (self.fits and self.suspects):
+            return False
         g = self.suspects[0].group
-        if not any(s.fault == "healthy" and s.group == g for s in self.suspects):
+        return any(s.fault == "healthy" and s.group == g for s in self.suspects)
+
+    def healthy_alike(self, short: bool = False) -> str:
+        """A sentence when readings were taken and they read healthy (`reads_healthy`);
+        "" otherwise. `short`: a few words, for a narrow panel."""
+        if not (self.readings_used and self.reads_healthy()):
             return ""
         if short:
             return "Also fits a good unit: a fault left is one these readings cannot see."

@@ -89,10 +89,7 @@ def _status(d: Diagnosis) -> str:
     `fault` otherwise."""
     if not d.fits:
         return "no-fit"
-    healthy = next((s.group for s in d.suspects if s.fault == "healthy"), None)
-    if d.suspects and d.suspects[0].group == healthy:
-        return "healthy"
-    return "fault"
+    return "healthy" if d.reads_healthy() else "fault"
 
 
 @contextlib.contextmanager
