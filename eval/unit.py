@@ -73,10 +73,19 @@ def _supply_max(case: Case) -> float:
     return max(vs) if vs else 10.0
 
 
+def _bipolar_size(part: Part) -> str:
+    """"power" for a card with IKF at or above bipolar.power_ikf or a power model's name,
+    "small" otherwise."""
+    m = part.model or {}
+    ikf = float(m["IKF"]) if _isnum(m.get("IKF")) else 0.0
+    power = ikf >= bench()["bipolar"]["power_ikf"] or "power" in str(m.get("name", ""))
+    return "power" if power else "small"
+
+
 def _draw_bipolar(part: Part, rng: np.random.Generator) -> dict[str, float]:
     b = bench()["bipolar"]
     m = {k: float(v) for k, v in (part.model or {}).items() if k != "name" and _isnum(v)}
-    card = dict(m)
+    card = {k: v for k, v in m.items() if k not in ("BVEBO", "BVCBO")}  # not ngspice's
     hfe = part.fields.get("hfe") or _catalogue_hfe(part)
     bf = float(m.get("BF", 100.0))
     card["BF"] = uni(rng, hfe) if hfe else bf * uni(rng, b["bf_spread"])
@@ -107,9 +116,7 @@ def _draw_bipolar(part: Part, rng: np.random.Generator) -> dict[str, float]:
     card.setdefault("ISC", ise * uni(rng, b["isc_of_ise"]))
     card.setdefault("NC", uni(rng, b["nc"]))
     card["XTB"] = uni(rng, b["xtb"])
-    size = "power" if (ikf or 0) >= b["power_ikf"] or "power" in str(
-        (part.model or {}).get("name", "")) else "small"
-    for k, rng_ in b[size].items():
+    for k, rng_ in b[_bipolar_size(part)].items():
         card.setdefault(k.upper(), uni(rng, rng_, log=True))
     return card
 
@@ -156,6 +163,10 @@ def draw_unit(case: Case, rng: np.random.Generator) -> BenchUnit:
     vals: dict[str, dict[str, float]] = {}
     cards: dict[str, dict[str, float]] = {}
     vmax = _supply_max(case)
+    # the emitter-base breakdown (added after the first evaluations) draws from its own
+    # stream, seeded from `rng`'s state without advancing it: every other draw of a unit
+    # is what it was before, so figures before and after compare on the same units
+    side = np.random.default_rng(rng.bit_generator.state["state"]["state"])
     for p in case.parts:
         f = p.fields
         t = _tol(p)
@@ -208,6 +219,9 @@ def draw_unit(case: Case, rng: np.random.Generator) -> BenchUnit:
                            "hz": float(f.get("hz") or 1000.0)}
         elif k in ("npn", "pnp"):
             cards[p.ref] = _draw_bipolar(p, rng)
+            b = bb["bipolar"]
+            vals[p.ref] = {"bvebo": uni(side, b[f"bvebo_{_bipolar_size(p)}"]),
+                           "bvebo_rs": uni(side, b["bvebo_rs"], log=True)}
         elif k in ("diode", "led", "zener"):
             cards[p.ref] = _draw_diode(p, rng)
         else:
@@ -291,8 +305,15 @@ def netlist_lines(u: BenchUnit) -> list[str]:
             out.append(f"D_{r} {node(p, 'anode')} {node(p, 'cathode')} M_{r}")
             out.append(_model_line(f"M_{r}", "D", u.cards[p.ref]))
         elif k in ("npn", "pnp"):
-            out.append(f"Q_{r} {node(p, 'c')} {node(p, 'b')} {node(p, 'e')} M_{r}")
+            c, b, e = node(p, "c"), node(p, "b"), node(p, "e")   # physical pins
+            out.append(f"Q_{r} {c} {b} {e} M_{r}")
             out.append(_model_line(f"M_{r}", k.upper(), u.cards[p.ref]))
+            if "bvebo" in v:   # the emitter-base junction's breakdown
+                an, ca = (b, e) if k == "npn" else (e, b)
+                out.append(f"D_{r}_eb {an} {ca} MB_{r}")
+                out.append(_model_line(f"MB_{r}", "D", {
+                    "IS": 1e-27, "N": 2.0, "BV": v["bvebo"], "IBV": 1e-5,
+                    "RS": v["bvebo_rs"]}))
     for i, (a, b, ohms) in enumerate(u.extra):
         out.append(f"R_extra_{i} {spice_node(case, a)} {spice_node(case, b)} {_fmt(ohms)}")
     return out

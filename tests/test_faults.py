@@ -190,6 +190,10 @@ def test_swapped_transistor_takes_its_reverse_parameters(two_stage, rules):
     assert np.all(p["Q1.rc"] == nom["Q1.re"]) and np.all(p["Q1.re"] == nom["Q1.rc"])
     assert np.all(p["Q1.nf"] == nom["Q1.nr"]) and np.all(p["Q1.nr"] == nom["Q1.nf"])
     assert p["Q1.vaf"].min() >= 5 and p["Q1.vaf"].max() <= 50
+    # the emitter-base junction now faces the collector lead: its breakdown goes with it
+    # (the part's own drawn BVEBO, rules/models.yaml), none is left at the emitter lead
+    np.testing.assert_array_equal(p["Q1.bvcbo"], base["Q1.bvebo"])
+    assert np.all(np.isinf(p["Q1.bvebo"])) and np.all(np.isfinite(base["Q1.bvebo"]))
 
 
 def test_like_change_errors_name_the_mode(two_stage):

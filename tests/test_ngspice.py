@@ -318,8 +318,13 @@ def test_writer_maps_fault_hooks_and_names_variants(case_path):
     assert f"R_{tag}_eopen__v1 " in text and f"R_{tag}_eopen__v0 " not in text
     assert f"R_{tag}_elead__v1 " not in text
     assert f"R_{tag}_ce__v1 " in text and text.split(f"R_{tag}_ce__v1 ")[1].split()[2] == "0.25"
-    assert text.count(".model ") == 2 * sum(p.kind in ("npn", "pnp", "diode", "led", "zener")
-                                            for p in case.parts)
+    # one model per semiconductor part and copy, plus each transistor's two junction
+    # breakdown diodes, less the emitter one of copy 1 (its emitter lead is lifted)
+    semis = sum(p.kind in ("npn", "pnp", "diode", "led", "zener") for p in case.parts)
+    bjts = sum(p.kind in ("npn", "pnp") for p in case.parts)
+    assert text.count(".model ") == 2 * (semis + 2 * bjts) - 1
+    assert f"D_{tag}_ebbd__v0 " in text and f"D_{tag}_ebbd__v1 " not in text
+    assert f"D_{tag}_cbbd__v1 " in text
 
 
 def test_writer_refuses_unusable_values(case_path):
@@ -365,6 +370,39 @@ def test_base_resistance_modulation_matches_ngspice(ngspice, extra):
                                                  "RB": 50.0})), params)
     k = circuit.node_index["base"]
     assert abs(plain.v[1, k] - dc.v[1, k]) > 10 * V_ATOL   # R1 shorted: tens of mA
+
+
+@pytest.mark.ngspice
+def test_emitter_base_breakdown_matches_ngspice(ngspice):
+    """The breakdown-only junctions (parts/bjt.py `Breakdown`) against ngspice, the
+    reference simulator, solving the netlist diag.core.spice writes (the same diodes):
+    an NPN and a PNP whose emitter is pulled past BVEBO from a 12 V rail, at three
+    feed resistances and two BVEBO values, and with the emitter lead lifted."""
+    from test_parts import compiled, part
+
+    circuit = compiled(part("V1", "supply", ["vs", "gnd"], 12.0, r_source=0.2),
+                       part("R1", "resistor", ["vs", "en"], 10e3),
+                       part("Q1", "npn", ["b", "b", "en"], model="npn-small"),
+                       part("R2", "resistor", ["b", "gnd"], 1e3),
+                       part("R3", "resistor", ["vs", "bp"], 1e3),
+                       part("Q2", "pnp", ["bp", "bp", "ep"], model="pnp-power"),
+                       part("R4", "resistor", ["ep", "gnd"], 4.7e3),
+                       part("R5", "resistor", ["en", "gnd"], 1e6))
+    labels = ["10k", "2k2", "47k", "BVEBO 9 V", "leads lifted"]
+    params = {"R1.r": np.array([10e3, 2.2e3, 47e3, 10e3, 10e3]),
+              "Q1.bvebo": np.array([7.5, 7.5, 7.5, 9.0, 7.5]),
+              "Q1.k_be": np.array([1.0, 1.0, 1.0, 1.0, 0.0]),
+              "Q2.k_be": np.array([1.0, 1.0, 1.0, 1.0, 0.0])}
+    dc = solver.solve_dc(circuit, params)
+    ref = ngspice.run_ngspice(spice.netlist(circuit, params))
+    for b, label in enumerate(labels):
+        assert dc.ok[b], (label, dc.why[b])
+    bad = _dc_off(circuit.case, circuit, labels, dc, ref)
+    assert not bad, "\n".join(bad)
+    # and the breakdown is what sets the emitter: about BVEBO above the base
+    en, b = circuit.node_index["en"], circuit.node_index["b"]
+    assert 7.5 < dc.v[0, en] - dc.v[0, b] < 8.0
+    assert dc.v[4, en] > 11.0                                # lifted: no junction left
 
 
 def _physically_swapped(text: str, ref: str, unit: dict[str, float]) -> str:

@@ -103,8 +103,10 @@ class _Plan:
                 for i, j, _ in st:
                     if i >= 0 and j >= 0:
                         pairs |= {(i, j), (j, i)}
-            dev = kind.device(part, t)
-            if dev is not None:
+            devs = kind.device(part, t)
+            for dev in devs if isinstance(devs, tuple) else (devs,):
+                if dev is None:
+                    continue
                 idx = [i for i in dev.nodes if i >= 0]
                 pairs |= {(i, j) for i in idx for j in idx}
                 self.devices.append((pi, dev, np.array([i if i >= 0 else n for i in dev.nodes])))

@@ -37,6 +37,10 @@ How each part and fault hook maps (element names are <letter>_<ref>[_<role>]):
   (`R_<ref>_eopen`, `R_<ref>_copen`), as in diag. `g_be`, `g_bc`, `g_ce` > 0 add
   resistors 1/g between the external terminals (outside the leads). (A model with RC or
   RE = 0 has a 1 µΩ lead in diag and none in ngspice.)
+  Each junction's breakdown (bvebo across b and e, bvcbo across b and c, as
+  parts/bjt.py `Breakdown`) is a diode `D_<ref>_ebbd` / `D_<ref>_cbbd` between the
+  external leads with IS = BD_IS, N = BD_N and BV, IBV = BD_TEST_AMPS (no BV when
+  infinite), left out when that lead is lifted (k = 0).
 
 diag's solver also holds every node to ground with solver.GSHUNT siemens; the netlist adds
 that as a resistor at every case node (node_shunts=True), so both solve the same network.
@@ -294,6 +298,17 @@ def _part_lines(case, part, val, nominal_of, var) -> list[str]:
             return 0.0 if key.rsplit(".", 1)[1] in own else val(key)
 
         out.append(f".model {model} {k.upper()}({_model_fields(ref, _BJT_PARAMS, mval)})")
+        from diag.core.parts.bjt import BD_IS, BD_N, BD_TEST_AMPS
+
+        for name, other, hook in (("bvebo", e, "k_be"), ("bvcbo", c, "k_bc")):
+            if val(f"{ref}.{hook}", 1.0) == 0:
+                continue       # a lifted lead takes its junction with it
+            an, ca = (b, other) if k == "npn" else (other, b)
+            dm = f"dbd_{tag}_{name[2:4]}{sfx}"
+            bv = val(f"{ref}.{name}", math.inf)
+            fields = f"IS={_fmt(BD_IS)} N={_fmt(BD_N)}" + (
+                f" BV={_fmt(bv)} IBV={_fmt(BD_TEST_AMPS)}" if math.isfinite(bv) else "")
+            out += [f"{el('D', name[2:4] + 'bd')} {an} {ca} {dm}", f".model {dm} D({fields})"]
     else:
         raise ValueError(f"{ref}: kind {k!r} has no ngspice mapping in diag.core.spice")
     return out

@@ -121,7 +121,7 @@ class PartKind:
         return g, []
 
     def device(self, part, t: Mapping[str, int]):
-        """The nonlinear Device of the part, or None."""
+        """The nonlinear Device of the part, a tuple of them, or None."""
         return None
 
 

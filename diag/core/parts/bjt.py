@@ -16,6 +16,16 @@ Internal nodes: the collector and emitter always have one (ci, ei) behind the le
 resistance RC / RE, taken as max(R, 1 µΩ) when the model has 0 (so a fault can always
 lift those leads); the base has bi only when RB > 0.
 
+Junction breakdown: BVEBO (the card's emitter-base breakdown voltage; infinite when not
+given, and ngspice's Gummel-Poon has none) sits as a breakdown-only junction between the
+external base and emitter leads (`bvebo`), and one between base and collector (`bvcbo`,
+infinite unless the card gives BVCBO): an ngspice diode with IS = BD_IS, N = BD_N (no
+forward conduction to speak of), BV and IBV = BD_TEST_AMPS (the data-sheet test
+current), so the netlist (diag.core.spice) holds the same element. Both follow their lead's hook
+(k_be, k_bc = 0: a lifted lead takes the junction with it). The ce-swapped fault
+exchanges the two, so a part fitted the wrong way round meets the collector voltage with
+its emitter-base junction, which breaks down above BVEBO.
+
 Fault hooks: k_be, k_bc (1 healthy, 0 = open) scale the conductance of the EMITTER /
 COLLECTOR LEAD (k / max(RE, 1 µΩ) between e and ei, k / max(RC, 1 µΩ) between c and
 ci), as a lifted lead: the junction equations are untouched, so with the collector
@@ -30,17 +40,22 @@ import math
 import numpy as np
 
 from diag.core.parts.base import GMIN, VT, PartKind, Spread, pnjlim, safe_exp
-from diag.core.parts.diode import model_of, model_spread
+from diag.core.parts.diode import DiodeDevice, model_of, model_spread
 
 DEFAULT_MODEL = {"npn": "npn-small", "pnp": "pnp-small"}
 SPICE_DEFAULTS = {"IS": 1e-16, "BF": 100.0, "BR": 1.0, "NF": 1.0, "NR": 1.0,
                   "VAF": math.inf, "IKF": math.inf, "ISE": 0.0, "NE": 1.5,
                   "RB": 0.0, "RC": 0.0, "RE": 0.0,
-                  "IRB": math.inf, "RBM": 0.0}     # RBM: when not given, RB (below)
+                  "IRB": math.inf, "RBM": 0.0,     # RBM: when not given, RB (below)
+                  "BVEBO": math.inf, "BVCBO": math.inf}   # junction breakdown (volts)
 MODEL_NAMES = tuple(SPICE_DEFAULTS)
 ON_CURRENT = 1e-6   # amperes of junction current above which a junction counts as on
 LEAD_MIN_OHMS = 1e-6   # ohms, the lead resistance used where the model has RC / RE = 0
 SAT_VCE = 0.3       # volts; an on transistor below this collector-emitter voltage is saturated
+BD_IS = 1e-27       # amperes, and BD_N: the breakdown-only junctions' saturation current and
+BD_N = 2.0          # emission coefficient: under 1e-10 A forward up to 2 V (ngspice takes an
+                    # IS below 1e-28 as 1e-28); a soft knee, 50 mV a decade, in breakdown
+BD_TEST_AMPS = 1e-5  # amperes at which BVEBO is specified (10 µA; from memory, data sheets)
 
 
 def _is(value, const: float) -> bool:
@@ -51,7 +66,7 @@ def _is(value, const: float) -> bool:
 class BJT(PartKind):
     kinds = ("npn", "pnp")
     names = ("is", "bf", "br", "nf", "nr", "vaf", "ikf", "ise", "ne", "rb", "rc", "re",
-             "irb", "rbm", "k_be", "k_bc", "g_be", "g_bc", "g_ce")
+             "irb", "rbm", "bvebo", "bvcbo", "k_be", "k_bc", "g_be", "g_bc", "g_ce")
 
     def internal(self, part, nominal):
         return tuple(f"{x}i" for x in ("c", "b", "e") if x != "b" or nominal["rb"] > 0)
@@ -62,7 +77,7 @@ class BJT(PartKind):
         if "RBM" not in {k.upper() for k in m}:
             q["RBM"] = q["RB"]
         out = {k.lower(): float(q[k]) for k in MODEL_NAMES}
-        for k in ("vaf", "ikf", "irb"):       # SPICE: 0 means infinite
+        for k in ("vaf", "ikf", "irb", "bvebo", "bvcbo"):   # SPICE: 0 means infinite
             if out[k] == 0.0:
                 out[k] = math.inf
         hfe = part.fields.get("hfe")
@@ -80,6 +95,9 @@ class BJT(PartKind):
             out.append(Spread((f"{part.ref}.bf",), "loguniform", float(hfe[0]), float(hfe[1])))
         if s.get("is_sigma"):
             out.append(Spread((f"{part.ref}.is",), "lognormal", float(s["is_sigma"])))
+        if s.get("bvebo") and math.isfinite(nominal["bvebo"]):
+            lo, hi = (float(x) for x in s["bvebo"])
+            out.append(Spread((f"{part.ref}.bvebo",), "loguniform", lo, hi))
         return out
 
     def dc_stamps(self, part, p, t):
@@ -96,7 +114,25 @@ class BJT(PartKind):
         nodes = tuple(t.get(f"{x}i", t[x]) for x in ("c", "b", "e"))
         if modulated(part):
             nodes += (t["b"],)
-        return BJTDevice(nodes, 1.0 if part.kind == "npn" else -1.0)
+        npn = part.kind == "npn"
+        return (BJTDevice(nodes, 1.0 if npn else -1.0),
+                Breakdown((t["b"], t["e"]) if npn else (t["e"], t["b"]), "bvebo", "k_be"),
+                Breakdown((t["b"], t["c"]) if npn else (t["c"], t["b"]), "bvcbo", "k_bc"))
+
+
+class Breakdown(DiodeDevice):
+    """A transistor junction's reverse breakdown between two external leads (anode side,
+    cathode side: base and emitter or collector of an NPN, the other way round for a PNP):
+    an ngspice diode with IS = BD_IS, N = BD_N, BV = the part's `bv` parameter and
+    IBV = BD_TEST_AMPS, its current scaled by the lead's hook `k` (0: lifted)."""
+
+    def __init__(self, nodes, bv: str, k: str):
+        super().__init__(nodes)
+        self.bv, self.k = bv, k
+
+    def prepare(self, p):
+        q = {"is": BD_IS, "n": BD_N, "bv": p[self.bv], "ibv": BD_TEST_AMPS, "k": p[self.k]}
+        return {**q, **DiodeDevice.prepare(q)}
 
 
 def modulated(part) -> bool:
