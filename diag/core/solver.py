@@ -384,7 +384,8 @@ def _prepared(plan: _Plan, P: list[dict]) -> list[dict]:
     """Per-device parameter dicts with the device's per-solve constants."""
     out = []
     for pi, dev, _ in plan.devices:
-        d = dict(P[pi])
+        keys = getattr(dev, "keys", None)   # the part's parameters the device reads
+        d = dict(P[pi]) if keys is None else {k: P[pi][k] for k in keys}
         d.update(dev.prepare(d))
         out.append(d)
     return out
@@ -422,21 +423,26 @@ def _linear(circuit: Circuit, plan: _Plan, P: list[dict], B: int, omega: float |
 def _stamp_devices(plan, DP, x, state, A, b, act, limit=True, currents=None, init=False):
     """Add every device's companion model at x (n+1, Ba) to A, b; update state in place.
     With `currents` (n, Ba) given, add the device currents at x (leaving each node) to it.
-    Returns limited (Ba,) bool."""
+    A device whose eval gives J None has nothing to stamp this time (its state is still
+    kept). Returns limited (Ba,) bool."""
     limited = np.zeros(x.shape[1], dtype=bool)
     for q, ((_, dev, idx), ent) in enumerate(zip(plan.devices, plan.dev_slots, strict=True)):
-        p = DP[q] if act is None else _sub(DP[q], act)
-        st = None
-        if state is not None:
-            st = state[q] if act is None else tuple(s[act] for s in state[q])
         v = x[idx]
-        J, ieq, new, lim = dev.eval(p, v, st, limit=limit, init=init)
-        for a, bb, s in ent:
+        if not init and hasattr(dev, "quiet") and dev.quiet(DP[q], v):
+            J, new, lim = None, dev.junctions(v), False   # skipped before any slicing
+        else:
+            p = DP[q] if act is None else _sub(DP[q], act)
+            st = None
+            if state is not None:
+                st = state[q] if act is None else tuple(s[act] for s in state[q])
+            J, ieq, new, lim = dev.eval(p, v, st, limit=limit, init=init)
+        quiet = J is None   # nothing to stamp (a quiet breakdown junction, parts/bjt.py)
+        for a, bb, s in () if quiet else ent:
             A[s] += J[a][bb]
-        for a, i in enumerate(idx):
+        for a, i in () if quiet else enumerate(idx):
             if i < plan.n:
                 b[i] -= ieq[a]
-        if currents is not None:
+        if currents is not None and not quiet:
             for a, i in enumerate(idx):
                 if i < plan.n:
                     jv = J[a][0] * v[0]
@@ -755,6 +761,8 @@ def _outflow(circuit, plan, P, DP, x, node, skip):
             continue
         v = x[idx]
         J, ieq, _, _ = dev.eval(DP[q], v, None, limit=False)
+        if J is None:
+            continue
         for a, i in enumerate(idx):
             if i == node:
                 tot = tot + ieq[a] + sum(J[a][u] * v[u] for u in range(len(idx)))

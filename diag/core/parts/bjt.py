@@ -56,6 +56,7 @@ BD_IS = 1e-27       # amperes, and BD_N: the breakdown-only junctions' saturatio
 BD_N = 2.0          # emission coefficient: under 1e-10 A forward up to 2 V (ngspice takes an
                     # IS below 1e-28 as 1e-28); a soft knee, 50 mV a decade, in breakdown
 BD_TEST_AMPS = 1e-5  # amperes at which BVEBO is specified (10 µA; from memory, data sheets)
+BD_QUIET_FORWARD = 1.5  # volts: below this forward, BD_IS exp(v / (BD_N vt)) < 1e-14 A
 
 
 def _is(value, const: float) -> bool:
@@ -101,7 +102,10 @@ class BJT(PartKind):
         return out
 
     def dc_stamps(self, part, p, t):
-        g = [(t["b"], t["e"], p["g_be"]), (t["b"], t["c"], p["g_bc"]),
+        # the breakdown junctions' GMIN (their diode's in ngspice) is linear: it sits here,
+        # so that `Breakdown` can skip a junction that carries nothing else
+        g = [(t["b"], t["e"], p["g_be"] + p["k_be"] * GMIN),
+             (t["b"], t["c"], p["g_bc"] + p["k_bc"] * GMIN),
              (t["c"], t["e"], p["g_ce"])]
         for x, k in (("c", p["k_bc"]), ("b", 1.0), ("e", p["k_be"])):
             if x == "b" and modulated(part):
@@ -129,10 +133,49 @@ class Breakdown(DiodeDevice):
     def __init__(self, nodes, bv: str, k: str):
         super().__init__(nodes)
         self.bv, self.k = bv, k
+        self.keys = (bv, k)   # the part parameters it reads (solver._prepared)
 
     def prepare(self, p):
         q = {"is": BD_IS, "n": BD_N, "bv": p[self.bv], "ibv": BD_TEST_AMPS, "k": p[self.k]}
-        return {**q, **DiodeDevice.prepare(q)}
+        q.update(DiodeDevice.prepare(q))
+        q["_quiet"] = -q["_xbv"] + 20.0 * q["_vte"]   # volts: above this, short of the knee
+        q["_quiet_max"] = float(np.max(q["_quiet"]))  # the same for every variant at once
+        return q
+
+    @staticmethod
+    def quiet(p, v) -> bool:
+        """True when every variant at terminal voltages v (2, B) is quiet (see `eval`) by
+        a test on the whole batch: the solver then skips the element without slicing
+        its parameters."""
+        vd = v[0] - v[1]
+        return bool(vd.max() < BD_QUIET_FORWARD and vd.min() > p["_quiet_max"])
+
+    def eval(self, p, v, state, limit=True, init=False):
+        """DiodeDevice.eval less its GMIN (BJT.dc_stamps holds that), and nothing at all
+        for a variant whose junction sits below BD_QUIET_FORWARD volts forward and more
+        than 20 N vt short of the breakdown knee, where the diode carries under 1e-14 A.
+        Most transistors sit there most of the time: when every variant does, J is None
+        and the solver skips the element; per variant, so a variant's result does not
+        depend on the batch it is solved in."""
+        vd = np.broadcast_to(state[0], np.shape(v[0])) if init else v[0] - v[1]
+        lo = p["_quiet"]
+        if vd.max() < BD_QUIET_FORWARD and (vd.min() > lo if np.ndim(lo) == 0
+                                             else (vd > lo).all()):
+            return None, None, (np.array(vd, dtype=float),), np.zeros(vd.shape, bool)
+        live = np.flatnonzero(~((vd < BD_QUIET_FORWARD) & (vd > lo)))
+        B = vd.shape[0]
+
+        def sub(a):
+            return a[live] if isinstance(a, np.ndarray) and a.ndim else a
+
+        ps = {k: sub(a) for k, a in p.items()}   # the live variants alone
+        st = None if state is None else tuple(sub(np.broadcast_to(a, (B,))) for a in state)
+        J, ieq, new, lim = DiodeDevice.eval(self, ps, np.asarray(v)[:, live], st,
+                                            limit=limit, init=init)
+        gd, cur, vn, lm = np.zeros(B), np.zeros(B), np.array(vd, dtype=float), np.zeros(B, bool)
+        gd[live] = J[0][0] - ps["k"] * GMIN   # ieq carries no GMIN
+        cur[live], vn[live], lm[live] = ieq[0], new[0], lim
+        return ((gd, -gd), (-gd, gd)), (cur, -cur), (vn,), lm
 
 
 def modulated(part) -> bool:
