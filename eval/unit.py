@@ -312,8 +312,7 @@ def netlist_lines(u: BenchUnit) -> list[str]:
                 an, ca = (b, e) if k == "npn" else (e, b)
                 out.append(f"D_{r}_eb {an} {ca} MB_{r}")
                 out.append(_model_line(f"MB_{r}", "D", {
-                    "IS": 1e-27, "N": 2.0, "BV": v["bvebo"], "IBV": 1e-5,
-                    "RS": v["bvebo_rs"]}))
+                    **bb["bipolar"]["bvebo_diode"], "BV": v["bvebo"], "RS": v["bvebo_rs"]}))
     for i, (a, b, ohms) in enumerate(u.extra):
         out.append(f"R_extra_{i} {spice_node(case, a)} {spice_node(case, b)} {_fmt(ohms)}")
     return out

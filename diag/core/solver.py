@@ -436,19 +436,19 @@ def _stamp_devices(plan, DP, x, state, A, b, act, limit=True, currents=None, ini
             if state is not None:
                 st = state[q] if act is None else tuple(s[act] for s in state[q])
             J, ieq, new, lim = dev.eval(p, v, st, limit=limit, init=init)
-        quiet = J is None   # nothing to stamp (a quiet breakdown junction, parts/bjt.py)
-        for a, bb, s in () if quiet else ent:
-            A[s] += J[a][bb]
-        for a, i in () if quiet else enumerate(idx):
-            if i < plan.n:
-                b[i] -= ieq[a]
-        if currents is not None and not quiet:
+        if J is not None:   # None: nothing to stamp (a quiet breakdown junction)
+            for a, bb, s in ent:
+                A[s] += J[a][bb]
             for a, i in enumerate(idx):
                 if i < plan.n:
-                    jv = J[a][0] * v[0]
-                    for u in range(1, len(idx)):
-                        jv += J[a][u] * v[u]
-                    currents[i] += ieq[a] + jv
+                    b[i] -= ieq[a]
+            if currents is not None:
+                for a, i in enumerate(idx):
+                    if i < plan.n:
+                        jv = J[a][0] * v[0]
+                        for u in range(1, len(idx)):
+                            jv += J[a][u] * v[u]
+                        currents[i] += ieq[a] + jv
         if state is not None:
             for s_full, s_new in zip(state[q], new, strict=True):
                 if act is None:

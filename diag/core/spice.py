@@ -270,7 +270,7 @@ def _part_lines(case, part, val, nominal_of, var) -> list[str]:
             out.append(res(el("R", "sh"), an, ca, 1.0 / g))
         out.append(f".model {model} D({_model_fields(ref, _DIODE_PARAMS, val)})")
     elif k in ("npn", "pnp"):
-        from diag.core.parts.bjt import LEAD_MIN_OHMS
+        from diag.core.parts.bjt import BD_IS, BD_N, BD_TEST_AMPS, LEAD_MIN_OHMS
         from diag.core.solver import GSHUNT
 
         c, b, e = (n(x) for x in nodes)
@@ -298,8 +298,6 @@ def _part_lines(case, part, val, nominal_of, var) -> list[str]:
             return 0.0 if key.rsplit(".", 1)[1] in own else val(key)
 
         out.append(f".model {model} {k.upper()}({_model_fields(ref, _BJT_PARAMS, mval)})")
-        from diag.core.parts.bjt import BD_IS, BD_N, BD_TEST_AMPS
-
         for name, other, hook in (("bvebo", e, "k_be"), ("bvcbo", c, "k_bc")):
             if val(f"{ref}.{hook}", 1.0) == 0:
                 continue       # a lifted lead takes its junction with it

@@ -158,11 +158,9 @@ class Breakdown(DiodeDevice):
         and the solver skips the element; per variant, so a variant's result does not
         depend on the batch it is solved in."""
         vd = np.broadcast_to(state[0], np.shape(v[0])) if init else v[0] - v[1]
-        lo = p["_quiet"]
-        if vd.max() < BD_QUIET_FORWARD and (vd.min() > lo if np.ndim(lo) == 0
-                                             else (vd > lo).all()):
+        live = np.flatnonzero(~((vd < BD_QUIET_FORWARD) & (vd > p["_quiet"])))
+        if live.size == 0:
             return None, None, (np.array(vd, dtype=float),), np.zeros(vd.shape, bool)
-        live = np.flatnonzero(~((vd < BD_QUIET_FORWARD) & (vd > lo)))
         B = vd.shape[0]
 
         def sub(a):
