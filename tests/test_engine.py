@@ -382,6 +382,9 @@ def test_healthy_alike_only_when_a_good_unit_is_in_the_leading_group():
     assert d(0, fits=False).healthy_alike() == ""
     assert d(0, used=0).healthy_alike() == ""
     assert Diagnosis(3, True, (), ()).healthy_alike() == ""
+    no_good = d(0)
+    no_good.extra["healthy_fits"] = False  # the engine found a good unit misfits them
+    assert no_good.healthy_alike() == "" and not no_good.reads_healthy()
 
 
 def test_a_unit_drawn_healthy_is_said_to_read_like_a_good_one():
@@ -403,3 +406,37 @@ def test_a_unit_drawn_healthy_is_said_to_read_like_a_good_one():
     bad = eng.diagnose(list(eng.simulate("R1:open", rng)))
     assert bad.suspects[0].fault == "R1:open" and bad.healthy_alike() == ""
     assert "also fit a good unit" not in format_text(case, bad, 10)
+
+
+def test_no_good_unit_sentence_when_a_good_unit_cannot_give_the_readings():
+    """sounder-driver: the reversed output electrolytic C2 shares the healthy group
+    (`diag faults`: its mild end reads like a good unit), but this unit (seed 1) has
+    its far end: the speaker tag reads about 0.16 V DC. A good coupling capacitor blocks
+    DC, so a good unit's speaker tag reads 0 V (common practice, no source). The
+    leader's group holds healthy, the readings fit the leader, and yet the text must
+    not say they also fit a good unit: a good unit fails the fit test on them."""
+    from diag.commands.diagnose import format_text
+    from diag.core.engine import healthy_leads
+
+    case = load_case("cases/sounder-driver.yaml")
+    eng = Engine(case, K=128, seed=0)
+    readings = list(eng.simulate("C2:reversed", np.random.default_rng(1)))
+    spk = next(r.value for r in readings if (r.point, r.kind) == ("TP6", "dc"))
+    assert spk > 0.1  # volts: DC on the speaker, which a good unit never shows
+    d = eng.diagnose(readings)
+    assert d.fits and d.suspects[0].fault == "C2:reversed" and healthy_leads(d.suspects)
+    assert d.extra["healthy_fits"] is False
+    assert not d.reads_healthy() and d.healthy_alike() == ""
+    assert "also fit a good unit" not in format_text(case, d, 10)
+
+
+def test_a_voltage_from_two_readings_shows_the_meter_error_of_both():
+    """sounder-driver: Q1's emitter sits on R4, so V_BE is TP3 - TP4, two readings. The
+    default meter (SPEC section 1: DC ±(0.5 % of reading + 2 counts), 2000 counts
+    autoranging, typical figures, from memory) on its 2 V range (1 mV per count):
+    1.600 V ± (8.0 + 2) mV and 0.950 V ± (4.75 + 2) mV, so V_BE = 0.65 V ± 16.75 mV,
+    shown rounded up to two figures: ± 17 mV. A terminal on ground carries no error
+    (test_bench_notes_from_readings_alone)."""
+    eng = Engine(load_case(cases_dir() / "sounder-driver.yaml"), K=16)
+    d = eng.diagnose([Reading("TP3", "dc", 1.600), Reading("TP4", "dc", 0.950)])
+    assert "Q1: base-emitter reads 0.65 V (± 17 mV, from two readings)" in " ".join(d.notes)

@@ -215,3 +215,25 @@ def test_like_change_errors_name_the_mode(two_stage):
     bad_spec = next(s for s in spec if s.id == "Q1:ce-swapped")
     with pytest.raises(DiagError, match="Q1.beta"):
         ensemble.draw_unit(circ, bad_spec, 2, np.random.default_rng(0))
+
+
+def test_an_open_coupling_capacitor_reaches_a_lifted_lead():
+    """mic-preamp: C5 (10 µF) couples Q2's collector into R11 (47 kΩ). With a lead
+    lifted only the stray capacitance across the gap is left, about 1 pF (from memory):
+    Xc = 1 / (2 pi f C) = 159 MΩ at 1 kHz (handbook formula), so the output reads
+    47 kΩ / 159 MΩ = 3e-4 of the collector's signal, about 0.25 mV for its 0.8 V.
+    Some of the engine's C5:open units must read that low (below 1 mV); a floor of
+    1e-5 of the nominal (100 pF, 1.6 MΩ) could not go below about 25 mV."""
+    from diag.core.engine import Engine
+
+    eng = Engine(load_case("cases/mic-preamp.yaml"), K=128, seed=0)
+    ens = eng.ensemble
+    ids = [hy.id for hy in ens.hypotheses]
+    h = ids.index("C5:open")
+    j = next(i for i, o in enumerate(eng.observables) if (o.point, o.kind) == ("TP9", "ac"))
+    xc = 1.0 / (2 * math.pi * 1e3 * 1e-12)
+    assert xc == pytest.approx(159e6, rel=0.01)
+    col = float(np.median(ens.samples[ids.index("healthy"), :, j]))
+    assert 0.6 < col < 1.0  # volts rms: the healthy output, nearly all of the collector's
+    assert np.nanmin(ens.samples[h, :, j]) < 1e-3
+    assert np.nanmin(ens.samples[h, :, j]) < 4 * col * 47e3 / xc

@@ -79,6 +79,7 @@ def _same(d1, d2) -> None:
     assert d1.fit_text == d2.fit_text
     assert d1.extra.get("odd_readings") == d2.extra.get("odd_readings")
     assert d1.extra["p_value"] == pytest.approx(d2.extra["p_value"], abs=1e-12)
+    assert d1.extra.get("healthy_fits") == d2.extra.get("healthy_fits")
 
 
 def test_kernel_product_equals_the_sum_of_logarithms():
@@ -151,6 +152,23 @@ def test_batch_ranking_equals_diagnose_one_unit_at_a_time(engine):
     assert [u.unit for u in res.units] == list(units)
     for name, rs in units.items():
         _same(engine.diagnose(rs), res.unit(name).diagnosis)
+
+
+def test_batch_tells_whether_a_good_unit_fits_as_diagnose_does(engine):
+    # Healthy units and a reversed C2 at the far end of its range (the unit of
+    # test_engine.py's test_no_good_unit_sentence_...): the batch's "healthy_fits" and
+    # status against diagnose's, through both scoring paths.
+    rng = np.random.default_rng(7)
+    units = {f"H{i}": list(engine.simulate("healthy", rng)) for i in range(3)}
+    units["R1"] = list(engine.simulate("C2:reversed", np.random.default_rng(1)))
+    rs = list(units.values())
+    for table_min in (1, 256):
+        got = BatchScorer(engine).run(rs, table_min=table_min)
+        for r, d in zip(rs, got, strict=True):
+            _same(engine.diagnose(r), d)
+        assert [d.extra["healthy_fits"] for d in got] == [True, True, True, False]
+    res = triage(engine, units)
+    assert [u.status for u in res.units] == ["healthy"] * 3 + ["fault"]
 
 
 def test_batch_with_threads_and_small_blocks_gives_the_same(engine):

@@ -158,12 +158,14 @@ class Diagnosis:
                 if s.p >= floor and confirm.get(s.fault)][:most]
 
     def reads_healthy(self) -> bool:
-        """True when the leader fits the readings and `healthy` is in the leader's group:
-        no offered reading tells the leader from a good unit."""
-        if not (self.fits and self.suspects):
+        """True when the leader fits the readings, `healthy` is in the leader's group (no
+        offered reading tells the leader from a good unit) and a good unit itself passes
+        the goodness-of-fit test on these readings (extra "healthy_fits", set by the
+        engine; a group may hold a fault whose mild end reads like a good unit while
+        these readings sit at its far end)."""
+        if not (self.fits and self.suspects and self.extra.get("healthy_fits", True)):
             return False
-        g = self.suspects[0].group
-        return any(s.fault == "healthy" and s.group == g for s in self.suspects)
+        return healthy_leads(self.suspects)
 
     def healthy_alike(self, short: bool = False) -> str:
         """A sentence when readings were taken and they read healthy (`reads_healthy`);
@@ -197,6 +199,19 @@ class Diagnosis:
 
 def _r(x):
     return None if x is None else round(float(x), 4)
+
+
+def healthy_leads(suspects) -> bool:
+    """`healthy` is in the group of the first of `suspects` (Suspect objects)."""
+    if not suspects:
+        return False
+    g = suspects[0].group
+    return any(s.fault == "healthy" and s.group == g for s in suspects)
+
+
+def ids_index(specs, fault_id: str) -> int:
+    """Index of hypothesis `fault_id` in `specs`."""
+    return next(i for i, sp in enumerate(specs) if sp.id == fault_id)
 
 
 # Bumped when the cached arrays change meaning (the cache key also holds both hashes).
@@ -701,9 +716,12 @@ class Engine:
                          f"leading suspect: a slip of the probe or range, or a fault outside "
                          f"the model; take {'it' if len(odd) == 1 else 'them'} again.")
         confirm = {specs[h].id: specs[h].confirm for h in order[:5]}
+        healthy_fits = bool(fits and len(idx) and healthy_leads(suspects)) and \
+            self.fit_p(U, ids_index(specs, "healthy"), idx, u_read, specs=specs) >= alpha
         return Diagnosis(len(idx), bool(fits), tuple(suspects), tuple(nxt), nts, fit_text,
                          tuple(rejected), {"p_value": pval, "pairs_tried": pairs_tried,
-                                           "confirm": confirm, "odd_readings": odd})
+                                           "confirm": confirm, "odd_readings": odd,
+                                           "healthy_fits": healthy_fits})
 
     def groups_for(self, order: np.ndarray, U: np.ndarray | None = None) -> np.ndarray:
         """Group number per hypothesis (H,), formed around the leading suspects: greedy

@@ -7,6 +7,7 @@ looking at the meter.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 
 from diag.core.case import TERMINALS, Case
@@ -32,8 +33,9 @@ def node_volts(case: Case, readings: Sequence) -> dict[str, float]:
 def bench_notes(case: Case, rules, readings: Sequence, meter_accuracy=None) -> list[str]:
     """Notes for these readings, in case part order then checks order.
 
-    `meter_accuracy(volts) -> volts` is the meter's accuracy bound (used by the
-    near-supply check); without it 1 % of the reading is used."""
+    `meter_accuracy(volts) -> volts` is the meter's accuracy bound: the near-supply
+    check's tolerance (without it 1 % of the reading is used), and the ± shown beside
+    a voltage worked out as the difference of two readings (the sum of their bounds)."""
     return bench_notes_many(case, rules, [readings], meter_accuracy)[0]
 
 
@@ -99,6 +101,14 @@ def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy, ground: st
             if not lo <= val <= hi:
                 continue
             shown, rail_name = val, ""
+        text = format_value(shown, "V")
+        if meter_accuracy and not chk.get("near_supply") and ground not in (n1, n2):
+            # the difference of two readings: each carries the meter's error
+            err = meter_accuracy(abs(v[n1])) + meter_accuracy(abs(v[n2]))
+            if err > 0:  # rounded up to two significant figures
+                step = 10.0 ** (math.floor(math.log10(err)) - 1)
+                err = math.ceil(err / step - 1e-9) * step
+            text += f" (± {format_value(err, 'V')}, from two readings)"
         out.append(chk["text"].format(ref=part.ref, kind=part.kind, rail=rail_name,
-                                      v=format_value(shown, "V")))
+                                      v=text))
     return out

@@ -357,6 +357,8 @@ class BatchScorer:
         # (readings repeat across a batch: they are rounded to the display resolution)
         self._acc = functools.lru_cache(maxsize=1 << 16)(engine._accuracy_fn())
         self._ids = np.array([sp.id for sp in self.specs], dtype=object)
+        self._healthy = next((i for i, sp in enumerate(self.specs) if sp.id == "healthy"),
+                             None)
         self._texts = np.array([sp.text for sp in self.specs], dtype=object)
 
     # -- one group of units reading the same observables --------------------------------
@@ -433,8 +435,8 @@ class BatchScorer:
         obs = self.engine.observables
         return [Reading(obs[j].point, obs[j].kind, v) for j, v in zip(idx, vals, strict=True)]
 
-    def _finish(self, idx, rejected, llk, ll, post, pval, order, group, odd, nts
-                ) -> Diagnosis:
+    def _finish(self, idx, rejected, llk, ll, post, pval, order, group, odd, nts,
+                healthy_fits: bool = False) -> Diagnosis:
         from diag.core.engine import Suspect
 
         eng = self.engine
@@ -459,7 +461,8 @@ class BatchScorer:
         confirm = {specs[h].id: specs[h].confirm for h in order[:5]}
         return Diagnosis(d, fits, suspects, tuple(nxt), tuple(nts), fit_text,
                          tuple(rejected), {"p_value": pval, "pairs_tried": False,
-                                           "confirm": confirm, "odd_readings": odd})
+                                           "confirm": confirm, "odd_readings": odd,
+                                           "healthy_fits": healthy_fits})
 
     def _block(self, items: list[int], matched, units, g: dict, out: list,
                rows: slice | None = None) -> None:
@@ -492,6 +495,7 @@ class BatchScorer:
         groups = groups_batch(self.engine._apart, orders)  # around each unit's leaders
         odd = self._odd(g, u_read, orders[:, 0])
         eng = self.engine
+        healthy_fits = self._healthy_fits(g, u_read, pval, orders, groups)
         nts = notes.bench_notes_many(eng.case, eng.rules,
                                      [self._used(units[i], *matched[i]) for i in items],
                                      self._acc)
@@ -501,7 +505,25 @@ class BatchScorer:
                 continue
             idx, _, rej = matched[i]
             out[i] = self._finish(idx, rej, None if llk is None else llk[r], ll[r], post[r],
-                                  pval[r], orders[r], groups[r], odd[r], nts[r])
+                                  pval[r], orders[r], groups[r], odd[r], nts[r],
+                                  bool(healthy_fits[r]))
+
+    def _healthy_fits(self, g: dict, u_read: np.ndarray, pval: list, orders: np.ndarray,
+                      groups: np.ndarray) -> np.ndarray:
+        """Per unit of a block (n,): the readings fit (p >= alpha), `healthy` shares the
+        leader's group and a good unit itself passes the fit test (Engine.diagnose's
+        "healthy_fits")."""
+        eng = self.engine
+        out = np.zeros(len(pval), dtype=bool)
+        h = self._healthy
+        if h is None or len(g["idx"]) == 0:
+            return out
+        rows = np.flatnonzero((np.asarray(pval) >= self.alpha)
+                              & (groups[:, h] == groups[np.arange(len(pval)), orders[:, 0]]))
+        if len(rows):
+            fr = eng.fit_reference(self.U, h, g["idx"], eng.ensemble.ref, self.specs)
+            out[rows] = self.infer.fit_pvalues_from(fr, u_read[rows]) >= self.alpha
+        return out
 
     def _table_part(self, g: dict, rows: slice, hyps: list[int]) -> None:
         """Log-likelihoods of hypotheses `hyps` for the group's units `rows`
