@@ -311,3 +311,26 @@ def test_hindsight_is_the_fewest_readings_that_reach_confidence():
                 score.truth_group_p(eng.diagnose(list(sub), advise=False), fault) >= 0.9
                 for sub in itertools.combinations(rd, h - 1)), fault
     assert tried >= 3  # most of these faults reach p >= 0.9 on some subset
+
+
+def test_selfcheck_counts_every_single_hypothesis_and_tabulates_by_mode():
+    """eval.selfcheck: per_fault engine-drawn units of every single-fault hypothesis and
+    healthy (pairs left out), and the table's shares worked by hand on made-up rows
+    (bookkeeping only: no outside fact is involved)."""
+    from diag.core.engine import Engine
+    from eval import selfcheck
+
+    eng = Engine(load_case(ROOT / "cases" / "relay-switch.yaml"), K=32, seed=0)
+    rows = selfcheck.check_case(eng, 2, 1)
+    singles = [h.id for h in eng.specs if "+" not in h.id]
+    assert sorted(r[0] for r in rows) == sorted(singles * 2)
+    assert all(isinstance(x, bool) for r in rows for x in r[1:])
+    assert all(not (r[1] and r[3]) for r in rows)  # wrong only when not ranked first
+    made = [("R1:open", True, False, False), ("R2:open", False, True, True),
+            ("R1:low", True, False, False), ("R2:low", True, True, False)]
+    t = selfcheck.table(made)
+    assert "| low | 2 | 100.0 % | 50.0 % | 0.0 % |" in t
+    assert "| open | 2 | 50.0 % | 50.0 % | 50.0 % |" in t
+    assert "| **all** | 4 | 75.0 % | 50.0 % | 25.0 % |" in t
+    assert selfcheck.mode_of("Q1:ce-swapped") == "ce-swapped"
+    assert selfcheck.mode_of("healthy") == "healthy"
