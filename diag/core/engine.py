@@ -209,9 +209,9 @@ def healthy_leads(suspects) -> bool:
     return any(s.fault == "healthy" and s.group == g for s in suspects)
 
 
-def ids_index(specs, fault_id: str) -> int:
-    """Index of hypothesis `fault_id` in `specs`."""
-    return next(i for i, sp in enumerate(specs) if sp.id == fault_id)
+def ids_index(specs, fault_id: str) -> int | None:
+    """Index of hypothesis `fault_id` in `specs` (objects with an `id`), None if absent."""
+    return next((i for i, sp in enumerate(specs) if sp.id == fault_id), None)
 
 
 # Bumped when the cached arrays change meaning (the cache key also holds both hashes).

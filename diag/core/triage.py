@@ -35,7 +35,7 @@ from typing import Any
 import numpy as np
 
 from diag.core.case import Case
-from diag.core.engine import Diagnosis, Engine, Reading
+from diag.core.engine import Diagnosis, Engine, Reading, ids_index
 from diag.core.errors import DiagError
 
 STATUSES = ("fault", "healthy", "no-fit")
@@ -357,8 +357,7 @@ class BatchScorer:
         # (readings repeat across a batch: they are rounded to the display resolution)
         self._acc = functools.lru_cache(maxsize=1 << 16)(engine._accuracy_fn())
         self._ids = np.array([sp.id for sp in self.specs], dtype=object)
-        self._healthy = next((i for i, sp in enumerate(self.specs) if sp.id == "healthy"),
-                             None)
+        self._healthy = ids_index(self.specs, "healthy")
         self._texts = np.array([sp.text for sp in self.specs], dtype=object)
 
     # -- one group of units reading the same observables --------------------------------
