@@ -93,3 +93,24 @@ def test_missing_header_and_empty(case):
         readings.parse_text("", case)
     with pytest.raises(DiagError):
         readings.parse_text("a,b,c,d,e\n", case)
+
+
+def test_an_over_range_display_is_named_with_what_to_do(case):
+    # A handheld meter shows "OL" over its range (common practice, no source); the row is
+    # refused with a message that says so and what to check, not "not a value".
+    for text in ("OL", "O.L.", "-OL", "0L", "ol", "over range"):
+        with pytest.raises(DiagError) as volts:
+            readings.check_value(case, "TP7", "dc", text)
+        assert "OL (over range)" in str(volts.value)
+        assert "1 kV" in str(volts.value)  # the profile's top volts range (rules/meters.yaml)
+    with pytest.raises(DiagError) as amps:
+        readings.check_value(case, "TP1", "dc", "OL")
+    assert "top current range (10 A)" in str(amps.value)
+    assert "short across the supply" in str(amps.value)
+    rf = readings.parse_text("point,value\nTP1,OL\nTP7,6.4\n", case)
+    assert [r.point for r in rf.single()] == ["TP7"]
+    assert len(rf.errors) == 1 and "row 2" in str(rf.errors[0])
+    # numbers that merely contain the letters stay numbers or plain errors
+    assert readings.check_value(case, "TP7", "dc", "0.5") == pytest.approx(0.5)
+    with pytest.raises(DiagError, match="not a value"):
+        readings.check_value(case, "TP7", "dc", "OLD")

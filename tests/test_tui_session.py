@@ -193,6 +193,14 @@ async def test_bad_reading_keeps_the_others(diag_home):
             assert screen.session.readings == before
         # the rejected text stays in the field to be corrected
         assert screen.query_one("#entry").value != ""
+        # a meter's over-range display: the whole message, what to do included, is on
+        # screen, and the point is named once
+        await type_reading(pilot, o2.point, o2.kind, "OL")
+        msg = str(screen.query_one("#entry-msg").content)
+        assert "OL (over range)" in msg and msg.count(f"{o2.point} {o2.kind}") == 1
+        lines = screen.query_one("#entry-msg").region.height
+        assert lines >= 3 and msg.rstrip().endswith("(other readings kept)")
+        assert screen.session.readings == before
 
 
 @sync

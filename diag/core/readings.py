@@ -12,6 +12,7 @@ from __future__ import annotations
 import csv
 import io
 import math
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -78,6 +79,30 @@ def limits(case: Case, rules=None) -> dict[tuple[str, str], tuple[float, float]]
     return out
 
 
+# What a handheld meter shows over its range, as technicians type it ("OL", "O.L.",
+# "-OL", "0L" with a zero for the O, "over", "overload").
+_OVER_RANGE = re.compile(r"[-+]?\s*[O0]\.?\s*L\.?|over(\s*range)?|overload", re.IGNORECASE)
+
+
+def _over_range_hint(case: Case, unit: str, hi: float) -> str:
+    """What to do about an OL display at a point reading volts or amperes (unit); hi the
+    highest reading the circuit can produce there (`limits`)."""
+    top = max(float(x) for x in case.meter["a_ranges" if unit == "A" else "v_ranges"])
+    if unit == "A":
+        return (f"take it on the meter's top current range ({format_value(top, 'A')}); "
+                "if that shows OL too, a short across the supply is likely. Switch off, "
+                "set the bench supply's current limit low, and look for the short with the "
+                "power off (ohms across the rails) before powering it again; leave this "
+                "reading out")
+    if hi <= top:
+        return (f"every voltage this circuit can make fits the meter's top range "
+                f"({format_value(top, 'V')}): check that the meter is on volts (not ohms "
+                "or a current range), on a range above the supply or autoranging, and take "
+                "the reading again")
+    return ("this point can read more than the meter's top range: use a meter rated for "
+            "it, following local codes and licensed practice for that voltage")
+
+
 def check_value(case: Case, point: str, kind: str, text, lim=None, *, file=None,
                 row=None) -> float:
     """Validate one reading typed or read from a file; return the value in volts
@@ -93,11 +118,15 @@ def check_value(case: Case, point: str, kind: str, text, lim=None, *, file=None,
         raise DiagError(f"{pt.id} offers no {kind} reading", file=file, line=row,
                         where=where, hint="offered there: " + ", ".join(pt.reads))
     unit = "A" if pt.supply else "V"
+    lo, hi = (lim or limits(case))[(pt.id, kind)]
+    if _OVER_RANGE.fullmatch(str(text).strip()):
+        raise DiagError(f"{pt.id} {kind}: the meter showed OL (over range), and diag needs "
+                        "a number", file=file, line=row, where=where,
+                        hint=_over_range_hint(case, unit, hi))
     try:
         value = parse_value(text, unit)
     except ValueError as exc:
         raise DiagError(f"{pt.id}: {exc}", file=file, line=row, where=where) from None
-    lo, hi = (lim or limits(case))[(pt.id, kind)]
     if not lo <= value <= hi:
         if value < lo:
             why = ("negative: probes reversed?" if lo >= -1.0 else "below anything the "

@@ -48,7 +48,7 @@ from diag.tui.messages import (
 from diag.tui.points_table import PointsTable, row_key
 from diag.tui.suspects_table import SuspectsTable
 
-_TYPING = set("0123456789.-+")
+_TYPING = set("0123456789.-+O")  # "O": a meter's over-range "OL", typed as shown
 
 
 class SessionScreen(Screen[None]):
@@ -212,7 +212,8 @@ class SessionScreen(Screen[None]):
         self.action_detail()
 
     def on_key(self, event: Key) -> None:
-        # Typing a digit on the table starts the entry in place for the highlighted row.
+        # Typing a digit (or the O of OL) on the table starts the entry in place for the
+        # highlighted row.
         # Keys typed fast reach the table before the focus has moved and bubble up here
         # after it: while an entry is being typed they are appended, not lost.
         if not event.is_printable:
@@ -255,8 +256,10 @@ class SessionScreen(Screen[None]):
 
     def on_reading_rejected(self, msg: ReadingRejected) -> None:
         self.last_error = msg.why
-        self._message(f"✗ {msg.point} {msg.kind}: {msg.why}  (other readings kept)",
-                      error=True)
+        why = msg.why
+        for head in (f"{msg.point} {msg.kind}: ", f"{msg.point}: "):  # said once is enough
+            why = why[len(head):] if why.startswith(head) else why
+        self._message(f"✗ {msg.point} {msg.kind}: {why}  (other readings kept)", error=True)
 
     def on_reading_entered(self, msg: ReadingEntered) -> None:
         self.session.set_reading(msg.reading)
