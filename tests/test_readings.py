@@ -114,3 +114,15 @@ def test_an_over_range_display_is_named_with_what_to_do(case):
     assert readings.check_value(case, "TP7", "dc", "0.5") == pytest.approx(0.5)
     with pytest.raises(DiagError, match="not a value"):
         readings.check_value(case, "TP7", "dc", "OLD")
+
+
+def test_a_decimal_comma_in_a_file_is_named(case):
+    # "0,71" in a CSV splits into two columns: the row is refused with the fix spelled out
+    rf = readings.parse_text("point,value\nTP7,6,4\nTP3,0.5\n", case)
+    assert [r.point for r in rf.single()] == ["TP3"]
+    assert "write 6.4" in str(rf.errors[0]) and "row 2" in str(rf.errors[0])
+    rf = readings.parse_text("point,value\nTP7,6.4,x\n", case)  # not a number: no guess
+    assert "decimal comma" not in str(rf.errors[0])
+    with pytest.raises(DiagError, match="decimal point"):  # typed in the interface
+        readings.check_value(case, "TP7", "dc", "6,4")
+

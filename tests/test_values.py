@@ -146,3 +146,23 @@ def test_format_then_parse_round_trip_examples():
     for x, unit in [(4700.0, "ohm"), (0.312, "V"), (47e-6, "F"), (1.5e-14, "A")]:
         assert parse_value(format_value(x, unit), unit) == pytest.approx(x, rel=5e-3)
         assert math.isfinite(parse_value(format_value(x, unit), unit))
+
+
+def test_readings_typed_in_lower_case_units():
+    # the prefix keeps its case (m milli, M mega); only the unit symbol is forgiven
+    assert parse_value("710mv", "V") == pytest.approx(0.71)
+    assert parse_value("11.9 v", "V") == pytest.approx(11.9)
+    assert parse_value("110 ma", "A") == pytest.approx(0.11)
+    assert parse_value("2a", "A") == pytest.approx(2.0)
+    with pytest.raises(ValueError, match="is in A"):
+        parse_value("12ma", "V")
+
+
+@pytest.mark.parametrize("text,example", [("0,71", "0.71"), ("1,5", "1.5"),
+                                          ("12,6 V", "12.6 V"), (",5", ".5")])
+def test_a_decimal_comma_asks_for_the_point(text, example):
+    with pytest.raises(ValueError) as info:
+        parse_value(text, "V")
+    assert "decimal point" in str(info.value)
+    assert f"e.g. {example}" in str(info.value)
+

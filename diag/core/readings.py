@@ -167,8 +167,13 @@ def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> R
                                 hint="start the file with point,value (or point,kind,value; "
                                 "unit,point,value for a batch)")
         if len(cells) != len(cols):
-            errors.append(DiagError(f"{len(cells)} fields, expected {len(cols)} "
-                                    f"({','.join(cols)})", file=file, line=i, where=f"row {i}"))
+            comma = (len(cells) == len(cols) + 1 and cells[-2].lstrip("+-").isdigit()
+                     and cells[-1][:1].isdigit())
+            errors.append(DiagError(
+                f"{len(cells)} fields, expected {len(cols)} ({','.join(cols)})", file=file,
+                line=i, where=f"row {i}",
+                hint=(f"a decimal comma? The comma separates the columns: write "
+                      f"{cells[-2]}.{cells[-1]}") if comma else None))
             continue
         rec = dict(zip(cols, cells, strict=True))
         unit = rec.get("unit", "")

@@ -10,7 +10,10 @@ Accepted value text (spaces around the number allowed):
   - the IEC 60062 letter-and-digit code, the letter standing for the decimal point:
     "4k7" (4.7 k), "2R2" (2.2 Ω, R = unit point), "R47" (0.47), "1M5", "4n7", "0R1";
     also the zener marking "5V6" (5.6 V);
-  - an optional trailing unit word or symbol: ohm, ohms, Ω, V, A, F, H, Hz, W, s.
+  - an optional trailing unit word or symbol: ohm, ohms, Ω, V, A, F, H, Hz, W, s (v and a
+    too, as readings are often typed: "710mv" is 0.71 V, the prefix keeping its case).
+A decimal comma ("0,71") is refused with a message that asks for the point: in a CSV the
+comma separates columns, and "1,200" could be read either way.
 Booleans, NaN and infinities are rejected. Every failure is a ValueError whose message
 says what is wrong and shows a valid example.
 """
@@ -32,6 +35,8 @@ UNITS: dict[str, str] = {
     "ohm": "ohm", "ohms": "ohm", "Ohm": "ohm", "Ohms": "ohm", "OHM": "ohm", "OHMS": "ohm",
     "\u03a9": "ohm", "\u2126": "ohm",
     "V": "V", "A": "A", "F": "F", "H": "H", "Hz": "Hz", "hz": "Hz", "W": "W", "s": "s",
+    # lower case as readings are often typed ("710mv", "110 ma"); the prefix keeps its case
+    "v": "V", "a": "A",
 }
 
 # Canonical unit -> the symbol `format_value` prints.
@@ -47,6 +52,7 @@ _CODE = re.compile(r"([+-]?)([0-9]*)(R|r|V|meg|Meg|MEG|[pnu\u00b5\u03bcmkKMG])([
 _UNIT_POINT = {"R": "ohm", "r": "ohm", "V": "V"}
 
 _EXAMPLE = "e.g. 4k7, 4.7k, 2R2 or 312 mV"
+_DECIMAL_COMMA = re.compile(r"[+-]?[0-9]*,[0-9]+\s*\S*")
 
 
 def canonical_unit(unit: str) -> str:
@@ -140,6 +146,9 @@ def parse_value(text: object, unit: str | None = None) -> float:
             _check_unit(text, found, want)
             mant = f"{sign}{whole or '0'}.{frac or '0'}"
             return _finite(text, _scale(mant, power))
+    if _DECIMAL_COMMA.fullmatch(s):
+        raise ValueError(f"{text!r} is not a value: write the decimal point as '.', e.g. "
+                         f"{s.replace(',', '.', 1)} (and no separator for thousands)")
     raise ValueError(f"{text!r} is not a value: use a number with one prefix, "
                      f"e.g. 4k7 or 4.7k")
 
