@@ -126,3 +126,11 @@ def test_a_decimal_comma_in_a_file_is_named(case):
     with pytest.raises(DiagError, match="decimal point"):  # typed in the interface
         readings.check_value(case, "TP7", "dc", "6,4")
 
+
+
+def test_a_point_typed_in_another_letter_case_is_the_case_s_point(case):
+    # "tp3" names TP3: the reading is kept under the case's own spelling
+    rf = readings.parse_text("point,value\ntp7,6.4\n Tp3 ,0.5\n", case)
+    assert sorted(r.point for r in rf.single()) == ["TP3", "TP7"] and not rf.errors
+    assert readings.point_of(case, "tp7").id == "TP7"
+    assert readings.point_of(case, "TP77") is None

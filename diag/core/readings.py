@@ -16,7 +16,7 @@ import re
 from dataclasses import dataclass
 from pathlib import Path
 
-from diag.core.case import Case
+from diag.core.case import Case, Point
 from diag.core.engine import Reading
 from diag.core.errors import DiagError
 from diag.core.rules import load_rules
@@ -103,17 +103,27 @@ def _over_range_hint(case: Case, unit: str, hi: float) -> str:
             "it, following local codes and licensed practice for that voltage")
 
 
+def point_of(case: Case, text) -> Point | None:
+    """The case's test point a typed id names: exactly, or else in any letter case when
+    that names one point only ("tp3" for TP3); None when it names none."""
+    t = str(text).strip()
+    try:
+        return case.point(t)
+    except KeyError:
+        same = [p for p in case.points if p.id.casefold() == t.casefold()]
+        return same[0] if len(same) == 1 else None
+
+
 def check_value(case: Case, point: str, kind: str, text, lim=None, *, file=None,
                 row=None) -> float:
     """Validate one reading typed or read from a file; return the value in volts
     (amperes at a supply point). Raises DiagError naming the point (and row)."""
     where = f"row {row}" if row else None
     kind = (kind or "dc").strip().lower()
-    try:
-        pt = case.point(str(point).strip())
-    except KeyError:
+    pt = point_of(case, point)
+    if pt is None:
         raise DiagError(f"unknown point {point!r}", file=file, line=row, where=where,
-                        hint="points: " + ", ".join(p.id for p in case.points)) from None
+                        hint="points: " + ", ".join(p.id for p in case.points))
     if kind not in pt.reads:
         raise DiagError(f"{pt.id} offers no {kind} reading", file=file, line=row,
                         where=where, hint="offered there: " + ", ".join(pt.reads))
@@ -187,7 +197,7 @@ def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> R
         except DiagError as exc:
             errors.append(exc)
             continue
-        key = (rec["point"], kind)
+        key = (point_of(case, rec["point"]).id, kind)  # as the case spells it
         prev = seen_row.get((unit, *key))
         if prev is not None:
             errors.append(DiagError(f"{key[0]} {kind} also given on row {prev}; the later "
