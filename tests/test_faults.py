@@ -109,8 +109,12 @@ def two_stage(tmp_path, rules):
 
 def test_linked_faults_found_by_topology(two_stage, rules):
     ids = {s.id for s in faults.hypotheses(two_stage, rules) if s.origin == "linked"}
-    # shorted transistor takes its collector or emitter resistor with it
-    assert {"Q1:ce-short+R3:open", "Q1:ce-short+R4:open", "Q2:ce-short+R7:open"} <= ids
+    # shorted transistor takes its collector or emitter resistor with it, where that can
+    # overheat: the whole 12 V across R7 (4.7 ohm) is 31 W (P = V^2 / R, Joule's law)
+    assert {"Q2:ce-short+R7:open", "Q2:ce-short+R7:high"} <= ids
+    # 12 V across R4 (1 kohm) is 0.144 W and across R3 (4.7 kohm) 31 mW, under the
+    # 0.25 W default rating (rules/collateral.yaml): neither can overheat
+    assert not [i for i in ids if "+R3:" in i or "+R4:" in i]
     # a resistor on the rail side of the fuse is not a collector resistor of Q2
     assert "Q2:ce-short+R1:open" not in ids
     # the output transistor with its collector on the fused rail blows the fuse
@@ -121,6 +125,48 @@ def test_linked_faults_found_by_topology(two_stage, rules):
     for i in ids:
         refs = [m.split(":")[0] for m in i.split("+")]
         assert refs == sorted(refs, key=faults.ref_key)
+
+
+def test_a_resistor_that_cannot_overheat_is_not_taken_with_a_short(tmp_path, rules,
+                                                                   two_stage):
+    r4 = two_stage.part("R4")  # no rating given: the default decides
+    assert faults.can_overheat(two_stage, r4, 0.125)
+    assert not faults.can_overheat(two_stage, r4, 0.25)
+    # the same circuit with R4 rated 1/8 W: 0.144 W exceeds it, so the pair is back
+    p = tmp_path / "rated.yaml"
+    p.write_text(CASE.replace("ohms: 1k}", "ohms: 1k, watts: 0.125}"))
+    case = load_case(p, rules)
+    ids = {s.id for s in faults.hypotheses(case, rules) if s.origin == "linked"}
+    assert "Q1:ce-short+R4:open" in ids and "Q1:ce-short+R3:open" not in ids
+    assert faults.can_overheat(case, case.part("R4"), 0.25)  # its own rating counts
+
+
+def test_supply_span_is_the_rails_apart(tmp_path, rules):
+    # rails from ground through the supplies, each at the top of its tolerance
+    def span(parts: str) -> float:
+        p = tmp_path / "s.yaml"
+        p.write_text(textwrap.dedent("""\
+            case: 1
+            title: rails
+            about: test circuit
+            parts:
+            """) + textwrap.indent(textwrap.dedent(parts), "  ") + textwrap.dedent("""\
+            points:
+              TP1: {node: a, where: "a"}
+            """))
+        return load_case(p, rules).supply_span
+
+    both = """\
+        V1: {kind: supply, plus: a, minus: gnd, volts: 12, tol: 5%}
+        V2: {kind: supply, plus: gnd, minus: b, volts: 9}
+        R1: {kind: resistor, nodes: [a, b], ohms: 1k}
+        R2: {kind: resistor, nodes: [a, gnd], ohms: 1k}
+        """
+    assert span(both) == pytest.approx(12.6 + 9.0)           # a dual supply: 21.6 V
+    same_side = both.replace("plus: gnd, minus: b", "plus: b, minus: gnd")
+    assert span(same_side) == pytest.approx(12.6)              # 12 V and 9 V rails
+    stacked = both.replace("plus: gnd, minus: b", "plus: b, minus: a")
+    assert span(stacked) == pytest.approx(21.6)                # 9 V on top of 12 V
 
 
 def test_parse_fault_id(two_stage, rules):

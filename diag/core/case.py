@@ -143,6 +143,23 @@ class Case:
                 return p
         return None
 
+    @property
+    def supply_span(self) -> float:
+        """Volts between the highest and the lowest supply rail (ground included), every
+        supply at the top of its tolerance: rails found from the ground through the
+        supplies' terminals, so ±9 V supplies span 18 V and 12 V and 5 V ones 12 V."""
+        pot = {self.ground: 0.0}
+        sup = [p for p in self.parts if p.kind == "supply"]
+        for _ in range(len(sup)):  # enough passes for any chain of stacked supplies
+            for p in sup:
+                v = (p.value or 0.0) * (1 + (p.tol or 0.0))
+                plus, minus = p.nodes
+                if minus in pot and plus not in pot:
+                    pot[plus] = pot[minus] + v
+                elif plus in pot and minus not in pot:
+                    pot[minus] = pot[plus] - v
+        return max(pot.values()) - min(pot.values())
+
     def parts_at(self, node: str) -> tuple[tuple[Part, str], ...]:
         """Parts touching `node`, each with the terminal name that touches it."""
         out = []

@@ -250,9 +250,21 @@ def _effect_parts(case: Case, cause: Part, via: dict) -> list[Part]:
     return [p for p in case.parts if p.ref != cause.ref and set(p.nodes) & start]
 
 
+def can_overheat(case: Case, part: Part, default_watts: float) -> bool:
+    """Whether a resistor could dissipate more than its rating (`watts`, else
+    default_watts) in this circuit under any fault: the whole supply span across it,
+    span² / R in watts. A part of another kind: True (no rating to go by)."""
+    if part.kind != "resistor" or not part.value:
+        return True
+    watts = float(part.fields.get("watts") or default_watts)
+    return case.supply_span ** 2 / float(part.value) > watts
+
+
 def linked(case: Case, rules, singles_: Sequence[FaultSpec]) -> list[FaultSpec]:
-    """Linked faults from rules/collateral.yaml, found by topology."""
+    """Linked faults from rules/collateral.yaml, found by topology (and, for a rule with
+    `overheats`, only effect resistors that `can_overheat`)."""
     by_id = {s.id: s for s in singles_}
+    default_watts = float(rules["collateral"].get("resistor_watts", 0.25))
     out: dict[str, FaultSpec] = {}
     for i, rule in enumerate(rules["collateral"].get("links") or []):
         try:
@@ -266,7 +278,8 @@ def linked(case: Case, rules, singles_: Sequence[FaultSpec]) -> list[FaultSpec]:
             if cause.kind not in cause_k["kinds"]:
                 continue
             effects = [e for e in _effect_parts(case, cause, via)
-                       if e.kind in effect_k["kinds"] and e.ref != cause.ref]
+                       if e.kind in effect_k["kinds"] and e.ref != cause.ref
+                       and (not via.get("overheats") or can_overheat(case, e, default_watts))]
             for cmode in cause_k["modes"]:
                 c = by_id.get(f"{cause.ref}:{cmode}")
                 if c is None:
