@@ -373,6 +373,34 @@ def test_base_resistance_modulation_matches_ngspice(ngspice, extra):
 
 
 @pytest.mark.ngspice
+@pytest.mark.parametrize("model", ["npn-power", "pnp-power"])
+def test_power_cards_drive_a_base_hard_as_ngspice_does(ngspice, model):
+    """The medium-power cards as shipped (rules/models.yaml, IRB and RBM included): a base
+    driven through 100 ohm from 12 V with the collector lead open (about 0.1 A into the
+    base-emitter junction, as in a bc-open fault), and the same part working normally.
+    Every node against ngspice, the reference simulator, with the same card."""
+    from test_parts import MODELS, compiled, part
+
+    card = MODELS[model]["params"]
+    assert "IRB" in card and "RBM" in card
+    npn = model.startswith("npn")
+    rail, base = ("vcc", "gnd") if npn else ("gnd", "vcc")  # pnp: emitter on the rail
+    circuit = compiled(part("V1", "supply", ["vcc", "gnd"], 12.0, r_source=0.2),
+                       part("R1", "resistor", [rail if npn else "gnd", "b"], 100.0),
+                       part("R2", "resistor", ["c", "vcc" if npn else "gnd"], 22.0),
+                       part("Q1", model[:3], ["c", "b", base if npn else "vcc"],
+                            model=card))
+    labels = ["working", "collector open"]
+    params = {"R2.r": np.array([22.0, 1e9])}
+    dc = solver.solve_dc(circuit, params)
+    ref = ngspice.run_ngspice(spice.netlist(circuit, params))
+    for b, label in enumerate(labels):
+        assert dc.ok[b], (label, dc.why[b])
+    bad = _dc_off(circuit.case, circuit, labels, dc, ref)
+    assert not bad, "\n".join(bad)
+
+
+@pytest.mark.ngspice
 def test_emitter_base_breakdown_matches_ngspice(ngspice):
     """The breakdown-only junctions (parts/bjt.py `Breakdown`) against ngspice, the
     reference simulator, solving the netlist diag.core.spice writes (the same diodes):
