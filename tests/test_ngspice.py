@@ -336,6 +336,19 @@ def test_writer_refuses_unusable_values(case_path):
         spice.netlist(case, {f"{r.ref}.r": np.ones(2), f"{r.ref}.r_x": np.ones(3)})
 
 
+def _solves_as_ngspice(ngspice, circuit, labels, params):
+    """Solve the variants (params, one per label) with diag and with ngspice on the
+    netlist diag.core.spice writes; assert every variant solves and every node agrees
+    (`_dc_off`). Returns diag's DCResult."""
+    dc = solver.solve_dc(circuit, params)
+    ref = ngspice.run_ngspice(spice.netlist(circuit, params))
+    for b, label in enumerate(labels):
+        assert dc.ok[b], (label, dc.why[b])
+    bad = _dc_off(circuit.case, circuit, labels, dc, ref)
+    assert not bad, "\n".join(bad)
+    return dc
+
+
 @pytest.mark.ngspice
 @pytest.mark.parametrize("extra", [{"IRB": 1e-3, "RBM": 5.0}, {"RBM": 2.0}],
                          ids=["irb-rbm", "rbm-only"])
@@ -356,13 +369,7 @@ def test_base_resistance_modulation_matches_ngspice(ngspice, extra):
     labels = ["nominal", "R1 shorted", "R1 100 ohm", "load 39 ohm"]
     params = {"R1.r": np.array([2.2e3, 1e-3, 100.0, 2.2e3]),
               "K1.r": np.array([390.0, 390.0, 390.0, 39.0])}
-    dc = solver.solve_dc(circuit, params)
-    ref = ngspice.run_ngspice(spice.netlist(circuit, params))
-    case = circuit.case
-    for b, label in enumerate(labels):
-        assert dc.ok[b], (label, dc.why[b])
-    bad = _dc_off(case, circuit, labels, dc, ref)
-    assert not bad, "\n".join(bad)
+    dc = _solves_as_ngspice(ngspice, circuit, labels, params)
     # and the modulation is not idle here: with RB constant the base reads differently
     plain = solver.solve_dc(compiled(*[p for p in circuit.parts if p.ref != "Q1"],
                                      part("Q1", "npn", ["coil", "base", "gnd"],
@@ -392,12 +399,7 @@ def test_power_cards_drive_a_base_hard_as_ngspice_does(ngspice, model):
                             model=card))
     labels = ["working", "collector open"]
     params = {"R2.r": np.array([22.0, 1e9])}
-    dc = solver.solve_dc(circuit, params)
-    ref = ngspice.run_ngspice(spice.netlist(circuit, params))
-    for b, label in enumerate(labels):
-        assert dc.ok[b], (label, dc.why[b])
-    bad = _dc_off(circuit.case, circuit, labels, dc, ref)
-    assert not bad, "\n".join(bad)
+    _solves_as_ngspice(ngspice, circuit, labels, params)
 
 
 @pytest.mark.ngspice
@@ -421,12 +423,7 @@ def test_emitter_base_breakdown_matches_ngspice(ngspice):
               "Q1.bvebo": np.array([7.5, 7.5, 7.5, 9.0, 7.5]),
               "Q1.k_be": np.array([1.0, 1.0, 1.0, 1.0, 0.0]),
               "Q2.k_be": np.array([1.0, 1.0, 1.0, 1.0, 0.0])}
-    dc = solver.solve_dc(circuit, params)
-    ref = ngspice.run_ngspice(spice.netlist(circuit, params))
-    for b, label in enumerate(labels):
-        assert dc.ok[b], (label, dc.why[b])
-    bad = _dc_off(circuit.case, circuit, labels, dc, ref)
-    assert not bad, "\n".join(bad)
+    dc = _solves_as_ngspice(ngspice, circuit, labels, params)
     # and the breakdown is what sets the emitter: about BVEBO above the base
     en, b = circuit.node_index["en"], circuit.node_index["b"]
     assert 7.5 < dc.v[0, en] - dc.v[0, b] < 8.0
