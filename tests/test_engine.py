@@ -353,8 +353,8 @@ def test_bench_checks_name_every_suspect_close_to_the_leader():
 
     def diag(ps):
         names = ["R4:low", "C2:reversed", "healthy", "C2:leaky", "R1:low"]
-        return Diagnosis(5, True, tuple(Suspect(n, p, 0, n) for n, p in zip(names, ps, strict=True)),
-                         (), extra={"confirm": confirm})
+        sus = tuple(Suspect(n, p, 0, n) for n, p in zip(names, ps, strict=True))
+        return Diagnosis(5, True, sus, (), extra={"confirm": confirm})
 
     assert diag([0.48, 0.40, 0.06, 0.05, 0.01]).bench_checks() == [
         ("R4:low", "measure R4"), ("C2:reversed", "look at C2's stripe"),
