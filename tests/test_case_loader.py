@@ -149,6 +149,10 @@ def test_default_models_and_inline(tmp_path, rules):
     text = mutate("model: npn-small", "model: {IS: 2e-14, bf: 300, VAF: 80}")
     q1 = load_case(write(tmp_path, text), rules).part("Q1")
     assert dict(q1.model) == {"name": "inline", "IS": 2e-14, "BF": 300.0, "VAF": 80.0}
+    # the breakdown voltages a data sheet gives are card parameters too (rules/models.yaml)
+    text = mutate("model: npn-small", "model: {IS: 2e-14, BVEBO: 6.2, BVCBO: 60}")
+    q1 = load_case(write(tmp_path, text), rules).part("Q1")
+    assert q1.model["BVEBO"] == 6.2 and q1.model["BVCBO"] == 60.0
 
 
 def test_semiconductor_defaults_per_kind(tmp_path, rules):
@@ -271,6 +275,9 @@ ERRORS = [
     ("inline model bad parameter", "model: npn-small", "model: {IS: 1e-14, XTI: 3}",
      "unknown model parameter 'XTI'", 12, "Q1"),
     ("model kind mismatch", "model: npn-small", "model: pnp-small", "is for pnp parts", 12,
+     "Q1"),
+    ("inline model as a models.yaml entry", "model: npn-small",
+     "model: {kind: npn, params: {IS: 1e-14}}", "the card's parameters themselves", 12,
      "Q1"),
     ("point without where", 'TP3: {node: base, where: "Q1 base"}', "TP3: {node: base}",
      "where: is missing", 21, "TP3"),

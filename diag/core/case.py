@@ -225,7 +225,7 @@ DEFAULT_MODEL: Mapping[str, str] = MappingProxyType({
     "zener": "zener",
 })
 BIPOLAR_PARAMS = ("IS", "BF", "BR", "NF", "NR", "VAF", "IKF", "ISE", "NE", "RB", "RC", "RE",
-                  "IRB", "RBM")
+                  "IRB", "RBM", "BVEBO", "BVCBO")
 DIODE_PARAMS = ("IS", "N", "RS", "BV", "IBV")
 # Model parameters that must be strictly positive (the others may be 0).
 _POSITIVE_PARAMS = frozenset({"IS", "BF", "NF", "NR", "N", "NE"})
@@ -487,6 +487,13 @@ class _Loader:
     def inline_model(self, kind: str, raw: dict, line: int, ref: str) -> Mapping | None:
         names = model_params(kind)
         out: dict[str, Any] = {"name": "inline"}
+        if "params" in raw:  # the layout of an entry of rules/models.yaml, not a card
+            self.err("an inline model is the card's parameters themselves, not a "
+                     "models.yaml entry", line, ref,
+                     hint=f"write model: {{{', '.join(f'{n}: ...' for n in names[:3])}}}, "
+                          f"from {' '.join(names)} (SI units); or add the entry to "
+                          "rules/models.yaml and name it")
+            return None
         ok = True
         for k, v in raw.items():
             key = str(k).upper()
