@@ -141,6 +141,62 @@ def test_a_resistor_that_cannot_overheat_is_not_taken_with_a_short(tmp_path, rul
     assert faults.can_overheat(case, case.part("R4"), 0.25)  # its own rating counts
 
 
+def test_dissipation_with_the_cause_in_place_follows_joules_law(tmp_path, rules):
+    """Power in each candidate resistor with its cause fault solved (dissipation.py),
+    against Ohm's and Joule's laws by hand (P = I^2 R), every part inside its tolerance."""
+    from diag.core import dissipation
+
+    p = tmp_path / "tol.yaml"
+    p.write_text(CASE.replace("volts: 12,", "volts: 12, tol: 5%,")
+                 .replace("F1: {kind: fuse, nodes: [vcc, vf]}",
+                          "F1: {kind: fuse, nodes: [vcc, vf], ohms: 0.05}"))
+    case = load_case(p, rules)
+    circ = netlist.compile_case(case, rules)
+    specs = {s.id: s for s in faults.singles(case, rules)}
+    w = dissipation.worst(circ, case, {"Q1:ce-short": ("R4",), "Q2:ce-short": ("R7",)},
+                          specs)
+    # Q2 shorted: 12 V (+-5 %) through the 0.5 ohm source, the 0.05 ohm fuse, the short
+    # (1 mohm to 2 ohm, rules/faults.yaml) and R7 (4.7 ohm +-5 %, default tol). The most
+    # P = V^2 R / (r + R)^2 can be is at 12.6 V, no short and R7 at its lowest (P falls
+    # with R while R > r): 28.2 W; at 12 V, nominal R7 and a 0.1 ohm short, 23.6 W.
+    top = 12.6 ** 2 * 4.465 / (0.55 + 4.465) ** 2
+    mid = 12.0 ** 2 * 4.7 / (0.55 + 0.1 + 4.7) ** 2
+    assert mid < w["Q2:ce-short"]["R7"] <= top * 1.001
+    # Q1 shorted: R3 (4.7 kohm) and R4 (1 kohm) in series across the rail, 2.1 mA; R4
+    # takes 4.4 mW at nominal values, at most 5.5 mW inside the tolerances
+    q1 = w["Q1:ce-short"]["R4"]
+    assert 12.0 ** 2 * 1e3 / 5.7e3 ** 2 * 0.9 < q1 <= 12.6 ** 2 * 1050 / (4465 + 1050) ** 2
+
+
+def test_the_engine_keeps_a_burnt_resistor_pair_only_if_the_cause_overloads_it(
+        tmp_path, rules, monkeypatch):
+    """The supply-span bound keeps R4 rated 1/8 W beside a shorted Q1 (12 V across it
+    would be 0.144 W), but with Q1 shorted R4 is in series with R3 and takes 4.4 mW
+    (Joule's law, the test above): the engine drops the pair. R7 beside a shorted Q2
+    takes over 20 W and stays. A second engine reads the solved watts from the cache
+    folder and solves nothing."""
+    from diag.core import dissipation
+    from diag.core.engine import Engine
+
+    p = tmp_path / "rated.yaml"
+    p.write_text(CASE.replace("ohms: 1k}", "ohms: 1k, watts: 0.125}"))
+    case = load_case(p, rules)
+    bound = {s.id for s in faults.hypotheses(case, rules) if s.origin == "linked"}
+    assert "Q1:ce-short+R4:open" in bound
+    ids = [s.id for s in Engine(case, rules).specs]
+    linked = {i for i in ids if "+" in i}
+    assert "Q1:ce-short+R4:open" not in linked and "Q1:bc-short+R4:high" not in linked
+    assert {"Q2:ce-short+R7:open", "Q2:ce-short+R7:high"} <= linked
+    assert bound - linked == {"Q1:ce-short+R4:open", "Q1:ce-short+R4:high",
+                              "Q1:bc-short+R4:open", "Q1:bc-short+R4:high"}
+
+    def no_solve(*a, **k):
+        raise AssertionError("solved again on a warm start")
+
+    monkeypatch.setattr(dissipation, "worst", no_solve)
+    assert [s.id for s in Engine(case, rules).specs] == ids
+
+
 def test_supply_span_is_the_rails_apart(tmp_path, rules):
     # rails from ground through the supplies, each at the top of its tolerance
     def span(parts: str) -> float:

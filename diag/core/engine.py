@@ -239,14 +239,15 @@ class Engine:
         self.K = int(K)
         self.seed = int(seed)
         self.inf = faults.inference(self.rules)
-        self.specs = faults.hypotheses(case, self.rules)
-        self._singles = [s for s in self.specs if s.origin == "single"]
+        self._circuit = None
+        self._singles = faults.singles(case, self.rules)
+        self.specs = [faults.healthy_spec(), *self._singles,
+                      *faults.linked(case, self.rules, self._singles, self._heat())]
         self._pair_scale = faults.pair_weight_scale(self.rules, self._singles)
         self.observables = case.observables
         self._obs_index = {(o.point, o.kind): j for j, o in enumerate(self.observables)}
         self._ens: Ensemble | None = None
         self._lock = threading.RLock()  # one build at a time (interface worker threads)
-        self._circuit = None
         self._extra: dict[str, tuple[Any, np.ndarray]] = {}  # on-demand hypotheses
         self._extra_loaded = False
         self._extra_disk: dict[str, np.ndarray] = {}  # what the extra cache file holds
@@ -258,6 +259,43 @@ class Engine:
         self._fit_refs: dict[tuple, Any] = {}  # (fault id, taken, ref, own spread) -> ref
 
     # -- building ------------------------------------------------------------------------
+
+    def _heat(self) -> dict[str, dict[str, float]]:
+        """Watts in each resistor a linked fault would burn, with its cause in place
+        (faults.linked, dissipation.py): solved once per case and rules, then read from
+        a small file in the cache folder (a warm start solves nothing)."""
+        import json
+
+        from diag import __version__
+        from diag.core import dissipation, ensemble, faults
+
+        need = faults.overheat_candidates(self.case, self.rules, self._singles)
+        if not need:
+            return {}
+        path = ensemble.cache_file(self.case.hash, self.rules.hash, dissipation.DRAWS,
+                                   dissipation.SEED, f"{CACHE_VERSION}-{__version__}",
+                                   kind="heat")
+        try:
+            got = json.loads(path.read_text())
+            if {c: tuple(r) for c, r in got["need"].items()} == need:
+                return {c: {r: float("nan") if w is None else float(w)
+                            for r, w in row.items()}
+                        for c, row in got["watts"].items()}
+        except (OSError, ValueError, KeyError, TypeError, AttributeError):
+            pass
+        specs = {s.id: s for s in self._singles}
+        watts = dissipation.worst(self.circuit, self.case, need, specs)
+        try:
+            path.parent.mkdir(parents=True, exist_ok=True)
+            tmp = path.with_name(path.name + f".{os.getpid()}.tmp")
+            # NaN (no unit solved) is written as null and read back as NaN
+            tmp.write_text(json.dumps({"need": need, "watts": {
+                c: {r: (w if math.isfinite(w) else None) for r, w in row.items()}
+                for c, row in watts.items()}}))
+            os.replace(tmp, path)
+        except OSError:
+            pass  # a read-only cache folder only costs speed
+        return watts
 
     @property
     def circuit(self):

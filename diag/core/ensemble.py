@@ -179,11 +179,14 @@ def reference_draws(R: int, M: int, seed: int, blunders: bool = True
             "ref_b": b if blunders else np.ones((R, M)), "ref_w": rng.uniform(size=(R, M))}
 
 
-def cache_file(case_hash: str, rules_hash: str, K: int, seed: int, version: str) -> Path:
-    """Ensemble cache file for (case, rules, K, seed, code version) in paths.cache_dir()."""
+def cache_file(case_hash: str, rules_hash: str, K: int, seed: int, version: str,
+               kind: str = "ens") -> Path:
+    """Cache file for (case, rules, K, seed, code version) in paths.cache_dir(): the
+    ensemble (`ens`, npz) or the linked faults' resistor dissipation (`heat`, json)."""
     from diag.core.paths import cache_dir
 
-    return cache_dir() / f"ens-{case_hash}-{rules_hash}-K{K}-s{seed}-{version}.npz"
+    ext = "npz" if kind == "ens" else "json"
+    return cache_dir() / f"{kind}-{case_hash}-{rules_hash}-K{K}-s{seed}-{version}.{ext}"
 
 
 def save_cache(path: Path, arrays: dict) -> None:
@@ -201,8 +204,9 @@ CACHE_KEEP = 24
 
 def prune_cache(folder: Path, keep: int = CACHE_KEEP) -> list[Path]:
     """Remove all but the `keep` newest ensemble files (ens-*.npz) in `folder`, each with
-    its -extra.npz companion (pair ensembles); return what was removed. Files that
-    vanish or resist removal meanwhile (another process) are left alone."""
+    its -extra.npz companion (pair ensembles), and all but the `keep` newest
+    dissipation files (heat-*.json); return what was removed. Files that vanish or
+    resist removal meanwhile (another process) are left alone."""
     def mtime(p: Path) -> float:
         try:
             return p.stat().st_mtime
@@ -211,14 +215,15 @@ def prune_cache(folder: Path, keep: int = CACHE_KEEP) -> list[Path]:
 
     main = [p for p in folder.glob("ens-*.npz") if not p.name.endswith("-extra.npz")]
     main.sort(key=mtime, reverse=True)
+    heat = sorted(folder.glob("heat-*.json"), key=mtime, reverse=True)
+    old = [q for p in main[keep:] for q in (p, p.with_name(p.stem + "-extra.npz"))]
     gone = []
-    for p in main[keep:]:
-        for q in (p, p.with_name(p.stem + "-extra.npz")):
-            try:
-                q.unlink()
-                gone.append(q)
-            except OSError:
-                pass
+    for q in old + heat[keep:]:
+        try:
+            q.unlink()
+            gone.append(q)
+        except OSError:
+            pass
     return gone
 
 

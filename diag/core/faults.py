@@ -253,39 +253,88 @@ def _effect_parts(case: Case, cause: Part, via: dict) -> list[Part]:
 def can_overheat(case: Case, part: Part, default_watts: float) -> bool:
     """Whether a resistor could dissipate more than its rating (`watts`, else
     default_watts) in this circuit under any fault: the whole supply span across it,
-    span² / R in watts. A part of another kind: True (no rating to go by)."""
+    span² / R in watts. A part of another kind: True (no rating to go by). The bound
+    that decides which pairs are worth simulating (`overheat_candidates`)."""
     if part.kind != "resistor" or not part.value:
         return True
-    watts = float(part.fields.get("watts") or default_watts)
-    return case.supply_span ** 2 / float(part.value) > watts
+    return case.supply_span ** 2 / float(part.value) > rating(part, default_watts)
 
 
-def linked(case: Case, rules, singles_: Sequence[FaultSpec]) -> list[FaultSpec]:
-    """Linked faults from rules/collateral.yaml, found by topology (and, for a rule with
-    `overheats`, only effect resistors that `can_overheat`)."""
-    by_id = {s.id: s for s in singles_}
-    default_watts = float(rules["collateral"].get("resistor_watts", 0.25))
-    out: dict[str, FaultSpec] = {}
+def rating(part: Part, default_watts: float) -> float:
+    """A resistor's power rating in watts: its `watts`, else default_watts."""
+    return float(part.fields.get("watts") or default_watts)
+
+
+def _link_rules(rules):
+    """(index, rule, cause kinds/modes, effect kinds/modes, p, via) of collateral.yaml."""
     for i, rule in enumerate(rules["collateral"].get("links") or []):
         try:
-            cause_k, effect_k = rule["cause"], rule["effect"]
-            p_link = float(rule["p"])
-            via = rule.get("via") or {}
+            yield i, rule, rule["cause"], rule["effect"], float(rule["p"]), \
+                rule.get("via") or {}
         except (KeyError, TypeError, ValueError):
             raise DiagError(f"link {i + 1}: needs cause, effect, p", file=rules.file(
                 "collateral"), hint="see the header of collateral.yaml") from None
+
+
+def _effects(case: Case, rules, cause: Part, effect_k: dict, via: dict) -> list[Part]:
+    """Parts a rule may take with `cause`: by topology, and for `overheats` only
+    resistors that `can_overheat` at all."""
+    default_watts = float(rules["collateral"].get("resistor_watts", 0.25))
+    return [e for e in _effect_parts(case, cause, via)
+            if e.kind in effect_k["kinds"] and e.ref != cause.ref
+            and (not via.get("overheats") or can_overheat(case, e, default_watts))]
+
+
+def overheat_candidates(case: Case, rules, singles_: Sequence[FaultSpec]
+                        ) -> dict[str, tuple[str, ...]]:
+    """Cause fault id -> resistors that an `overheats` rule would take with it, by
+    topology and the supply-span bound: the pairs whose cause must be solved to see
+    whether the resistor really overheats (diag/core/dissipation.py)."""
+    ids = {s.id for s in singles_}
+    out: dict[str, set[str]] = {}
+    for _i, _rule, cause_k, effect_k, _p, via in _link_rules(rules):
+        if not via.get("overheats"):
+            continue
         for cause in case.parts:
             if cause.kind not in cause_k["kinds"]:
                 continue
-            effects = [e for e in _effect_parts(case, cause, via)
-                       if e.kind in effect_k["kinds"] and e.ref != cause.ref
-                       and (not via.get("overheats") or can_overheat(case, e, default_watts))]
+            refs = {e.ref for e in _effects(case, rules, cause, effect_k, via)
+                    if e.kind == "resistor"}
+            for cmode in cause_k["modes"]:
+                cid = f"{cause.ref}:{cmode}"
+                if refs and cid in ids:
+                    out.setdefault(cid, set()).update(refs)
+    return {k: tuple(sorted(v, key=ref_key)) for k, v in out.items()}
+
+
+def linked(case: Case, rules, singles_: Sequence[FaultSpec],
+           heat: dict[str, dict[str, float]] | None = None) -> list[FaultSpec]:
+    """Linked faults from rules/collateral.yaml, found by topology. For a rule with
+    `overheats`, the effect resistor must be able to overheat: with `heat` (cause id ->
+    resistor -> the most watts it dissipates with that fault, dissipation.py), more than
+    its rating in the faulted circuit; without it (or for a resistor `heat` does not
+    give), by the supply-span bound alone."""
+    by_id = {s.id: s for s in singles_}
+    default_watts = float(rules["collateral"].get("resistor_watts", 0.25))
+    out: dict[str, FaultSpec] = {}
+
+    def hot(cid: str, e: Part) -> bool:
+        w = (heat or {}).get(cid, {}).get(e.ref)
+        return w is None or not w <= rating(e, default_watts)  # NaN (not solved): kept
+
+    for _i, rule, cause_k, effect_k, p_link, via in _link_rules(rules):
+        for cause in case.parts:
+            if cause.kind not in cause_k["kinds"]:
+                continue
+            effects = _effects(case, rules, cause, effect_k, via)
             for cmode in cause_k["modes"]:
                 c = by_id.get(f"{cause.ref}:{cmode}")
                 if c is None:
                     continue
                 emodes = [(e, m) for e in effects for m in effect_k["modes"]
-                          if f"{e.ref}:{m}" in by_id]
+                          if f"{e.ref}:{m}" in by_id
+                          and (not via.get("overheats") or e.kind != "resistor"
+                               or hot(c.id, e))]
                 total = sum(by_id[f"{e.ref}:{m}"].weight for e, m in emodes)
                 for e, m in emodes:
                     eff = by_id[f"{e.ref}:{m}"]
@@ -298,10 +347,12 @@ def linked(case: Case, rules, singles_: Sequence[FaultSpec]) -> list[FaultSpec]:
     return list(out.values())
 
 
-def hypotheses(case: Case, rules) -> list[FaultSpec]:
-    """healthy, every single fault, every linked fault (in that order)."""
+def hypotheses(case: Case, rules, heat: dict[str, dict[str, float]] | None = None
+               ) -> list[FaultSpec]:
+    """healthy, every single fault, every linked fault (in that order); `heat` as in
+    `linked`."""
     s = singles(case, rules)
-    return [healthy_spec(), *s, *linked(case, rules, s)]
+    return [healthy_spec(), *s, *linked(case, rules, s, heat)]
 
 
 def pair_weight_scale(rules, singles_: Sequence[FaultSpec]) -> float:
