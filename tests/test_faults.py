@@ -197,6 +197,22 @@ def test_the_engine_keeps_a_burnt_resistor_pair_only_if_the_cause_overloads_it(
     assert [s.id for s in Engine(case, rules).specs] == ids
 
 
+def test_solved_watts_decide_and_an_unsolved_cause_keeps_its_pairs(two_stage, rules):
+    """`heat` (cause -> resistor -> worst watts) against the rating; NaN (no unit of the
+    cause solved) keeps the pair, as the supply-span bound alone would."""
+    s = faults.singles(two_stage, rules)
+
+    def pairs(heat):
+        return {x.id for x in faults.linked(two_stage, rules, s, heat)
+                if "+R7:" in x.id and x.id.startswith("Q2:ce-short")}
+
+    both = {"Q2:ce-short+R7:open", "Q2:ce-short+R7:high"}
+    assert pairs(None) == both
+    assert pairs({"Q2:ce-short": {"R7": 0.2}}) == set()      # under the 0.25 W default
+    assert pairs({"Q2:ce-short": {"R7": 0.3}}) == both
+    assert pairs({"Q2:ce-short": {"R7": float("nan")}}) == both
+
+
 def test_supply_span_is_the_rails_apart(tmp_path, rules):
     # rails from ground through the supplies, each at the top of its tolerance
     def span(parts: str) -> float:
