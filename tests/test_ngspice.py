@@ -58,8 +58,11 @@ def _variants(circuit) -> list[tuple[str, dict[str, float]]]:
         out.append((f"{d.ref} open", {f"{d.ref}.k": 0.0}))
         out.append((f"{d.ref} shorted", {f"{d.ref}.g_sh": 100.0}))
     for p in case.parts:
-        if p.kind in ("speaker", "inductor", "fuse"):
+        if p.kind in ("inductor", "fuse"):
             out.append((f"{p.ref} open", {f"{p.ref}.r": 1e9}))
+        elif p.kind == "speaker":  # as rules/faults.yaml sets them: r and z each
+            out.append((f"{p.ref} open", {f"{p.ref}.r": 1e9, f"{p.ref}.z": 1e9}))
+            out.append((f"{p.ref} shorted", {f"{p.ref}.r": 0.5, f"{p.ref}.z": 0.2}))
     out.append(("supplies -15 %", {f"{s}.v": 0.85 * nom[f"{s}.v"] for s in circuit.supplies}))
     return out
 

@@ -191,20 +191,23 @@ def test_every_bundled_case_solves_nominal_and_healthy_draws(case_path):
         assert np.isfinite(ac.v).all()
 
 
-def test_pot_divider_and_speaker_fault_carries_to_ac_by_hand():
+def test_pot_divider_and_speaker_faults_in_ac_by_hand():
     # divider formula (handbook): wiper at set 0.25 from a (a on 10 V, b grounded) reads
     # 10 V x 0.75, the wiper contact adding nothing without load
     c = compiled(part("V1", "supply", ["vcc", "gnd"], 10.0, r_source=0.0),
                  part("RV1", "pot", ["vcc", "w", "gnd"], 10e3, set=0.25),
                  part("V2", "signal", ["in", "gnd"], 1.0, r_source=8.0),
                  part("LS1", "speaker", ["in", "gnd"], 8.0))
-    params = {"LS1.r": np.array([6.4, 1e9])}
+    # a fault sets the coil's DC resistance and its AC impedance each (rules/faults.yaml)
+    params = {"LS1.r": np.array([6.4, 1e9, 0.5]), "LS1.z": np.array([8.0, 1e9, 0.2])}
     dc = solver.solve_dc(c, params)
     assert_allclose(dc.v[:, c.node_index["w"]], 7.5, rtol=1e-6)
     ac = solver.solve_ac(c, params, dc)
-    # healthy: 8 Ω source into the rated 8 Ω: half the signal; an open coil: all of it
+    # divider formula: healthy, 8 Ω source into the rated 8 Ω: half the signal; an open
+    # coil: all of it; a coil shorted to 0.2 Ω: 0.2 / 8.2 of it (not scaled again by r)
     assert_allclose(abs(ac.v[0, c.node_index["in"]]), 0.5, rtol=1e-9)
     assert_allclose(abs(ac.v[1, c.node_index["in"]]), 1.0, rtol=1e-6)
+    assert_allclose(abs(ac.v[2, c.node_index["in"]]), 0.2 / 8.2, rtol=1e-9)
 
 
 def test_a_variant_that_does_not_converge_is_flagged_never_answered(monkeypatch):

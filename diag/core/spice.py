@@ -19,10 +19,11 @@ How each part and fault hook maps (element names are <letter>_<ref>[_<role>]):
 - capacitor, electrolytic: capacitor `c` in series with `esr` (omitted when 0), and the
   DC leakage resistance `leak` across the two terminals.
 - inductor: inductor `l` in series with its DC resistance `r`.
-- speaker: DC resistance `r` in series with `z' - r` that is shunted by a 1 MH inductor,
-  so the speaker measures `r` at DC and z' (resistive) at the signal frequency, where
-  z' = z · r / r_nominal as in diag's speaker model (the error of the trick is
-  (z' - r) / (2 pi f 1 MH), below 1e-8 of z' at 20 Hz and up).
+- speaker: measures `r` at DC and `z` (resistive) at the signal frequency. With z >= r:
+  `r` in series with `z - r` that is shunted by a 1 MH inductor (the error of the trick
+  is (z - r) / (2 pi f 1 MH), below 1e-8 of z at 20 Hz and up); with z < r (a shorted
+  coil drawn with its own r and z): `r` in parallel with r z / (r - z) behind a 1 MF
+  capacitor (its reactance, under 1e-8 ohm at 20 Hz, is left out).
 - supply: DC source `v` behind its source resistance `r`; signal: 0 V DC, AC `vac`
   (volts rms, so ngspice's AC phasors are rms too) behind `r`.
 - diode, led, zener: ngspice diode with IS N RS BV IBV. `k = 0` (open) opens the anode
@@ -61,6 +62,7 @@ import numpy as np
 
 OPEN_LEAD_OHMS = 1e12  # a lifted diode lead (k = 0)
 SPEAKER_L_HENRIES = 1e6  # shunts the AC-only part of a speaker at DC
+SPEAKER_C_FARADS = 1e6   # passes the AC-only branch of a speaker whose z is below its r
 
 _BJT_PARAMS = ("is", "bf", "br", "nf", "nr", "vaf", "ikf", "ise", "ne", "rb", "rc", "re",
                "irb", "rbm")
@@ -153,9 +155,6 @@ def netlist(source: Any, params: Mapping[str, Any] | None = None, *, rules: Any 
 
     lines = [f"* {title or case.title} -- written by diag.core.spice from {case.path}",
              "* values and models are diag's own (circuit.nominal overridden by params)"]
-    def nominal_of(key: str) -> float:
-        return float(nominal[key])
-
     from diag.core.solver import GSHUNT as gshunt
 
     for b in range(B):
@@ -173,7 +172,7 @@ def netlist(source: Any, params: Mapping[str, Any] | None = None, *, rules: Any 
         if suffixed:
             lines.append(f"* ---- variant {b}")
         for part in case.parts:
-            lines.extend(_part_lines(case, part, val, nominal_of, var))
+            lines.extend(_part_lines(case, part, val, var))
         if node_shunts and gshunt > 0:
             lines.append(f"* diag's node shunts (solver.GSHUNT = {gshunt:g} S)")
             for node in case.nodes:
@@ -189,7 +188,7 @@ def netlist(source: Any, params: Mapping[str, Any] | None = None, *, rules: Any 
     return "\n".join(lines) + "\n"
 
 
-def _part_lines(case, part, val, nominal_of, var) -> list[str]:
+def _part_lines(case, part, val, var) -> list[str]:
     ref = part.ref
     sfx = "" if var is None else f"__v{var}"
     tag = _sanitize(ref)
@@ -234,16 +233,18 @@ def _part_lines(case, part, val, nominal_of, var) -> list[str]:
     elif k == "speaker":
         a, b = n(nodes[0]), n(nodes[1])
         r = val(f"{ref}.r")
-        # diag scales the AC impedance with r (a fault set on r carries over to AC):
-        # z_used = z · r / r_nominal (diag.core.parts.passive.Speaker)
-        z = val(f"{ref}.z") * r / nominal_of(f"{ref}.r")
+        z = val(f"{ref}.z")
+        x = inner("z")
         if z == r:
             out.append(res(el("R"), a, b, r))
-        else:
-            x = inner("z")
+        elif z > r:
             out += [res(el("R"), a, x, r),
                     f"{el('R', 'ac')} {x} {b} {_fmt(z - r)}",
                     f"{el('L', 'ac')} {x} {b} {_fmt(SPEAKER_L_HENRIES)}"]
+        else:
+            out += [res(el("R"), a, b, r),
+                    res(el("R", "ac"), a, x, r * z / (r - z)),
+                    f"{el('C', 'ac')} {x} {b} {_fmt(SPEAKER_C_FARADS)}"]
     elif k in ("supply", "signal"):
         plus, minus = n(nodes[0]), n(nodes[1])
         r = val(f"{ref}.r", 0.0)

@@ -146,8 +146,9 @@ class Inductor(PartKind):
 
 
 class Speaker(PartKind):
-    """DC: voice-coil resistance r (default 0.8 × rated); AC: resistive z (default rated),
-    scaled by r / r_nominal so that a fault set on r (open, short) shows in AC too."""
+    """DC: voice-coil resistance r (default 0.8 × rated); AC: resistive z (default rated).
+    One tolerance factor moves both (a coil wound long reads high on both); a fault sets
+    each of them (rules/faults.yaml: open and short set r and z)."""
 
     kinds = ("speaker",)
     names = ("r", "z")
@@ -158,16 +159,13 @@ class Speaker(PartKind):
         return {"r": float(r) if r is not None else SPK_RDC * z, "z": z}
 
     def spreads(self, part, nominal, ctx):
-        return [Spread((f"{part.ref}.r",), "uniform", -SPK_R_TOL, SPK_R_TOL)]
+        return [Spread((f"{part.ref}.r", f"{part.ref}.z"), "uniform", -SPK_R_TOL, SPK_R_TOL)]
 
     def dc_stamps(self, part, p, t):
         return [(t["a"], t["b"], _g(p["r"]))], []
 
     def ac_stamps(self, part, p, t, omega):
-        # z is the healthy coil's impedance; an open or short set on r carries over to AC
-        # in the same ratio: z_used = z * r / r_nominal
-        z = p["z"] * p["r"] / self.nominal(part, None)["r"]
-        return [(t["a"], t["b"], _g(z))], []
+        return [(t["a"], t["b"], _g(p["z"]))], []
 
 
 class FuseLink(PartKind):
