@@ -142,9 +142,10 @@ def test_a_resistor_that_cannot_overheat_is_not_taken_with_a_short(tmp_path, rul
 
 
 def test_dissipation_with_the_cause_in_place_follows_joules_law(tmp_path, rules):
-    """Power in each candidate resistor with its cause fault solved (dissipation.py),
-    against Ohm's and Joule's laws by hand (P = I^2 R), every part inside its tolerance."""
-    from diag.core import dissipation
+    """Power in each candidate resistor with its cause fault solved (stress.py),
+    against Ohm's and Joule's laws by hand (P = I^2 R), every part inside its tolerance;
+    the current through the fuse likewise (I = V / R)."""
+    from diag.core import stress
 
     p = tmp_path / "tol.yaml"
     p.write_text(CASE.replace("volts: 12,", "volts: 12, tol: 5%,")
@@ -153,8 +154,8 @@ def test_dissipation_with_the_cause_in_place_follows_joules_law(tmp_path, rules)
     case = load_case(p, rules)
     circ = netlist.compile_case(case, rules)
     specs = {s.id: s for s in faults.singles(case, rules)}
-    w = dissipation.worst(circ, case, {"Q1:ce-short": ("R4",), "Q2:ce-short": ("R7",)},
-                          specs)
+    w = stress.worst(circ, case, {"Q1:ce-short": ("R4",), "Q2:ce-short": ("F1", "R7")},
+                     specs)
     # Q2 shorted: 12 V (+-5 %) through the 0.5 ohm source, the 0.05 ohm fuse, the short
     # (1 mohm to 2 ohm, rules/faults.yaml) and R7 (4.7 ohm +-5 %, default tol). The most
     # P = V^2 R / (r + R)^2 can be is at 12.6 V, no short and R7 at its lowest (P falls
@@ -162,6 +163,9 @@ def test_dissipation_with_the_cause_in_place_follows_joules_law(tmp_path, rules)
     top = 12.6 ** 2 * 4.465 / (0.55 + 4.465) ** 2
     mid = 12.0 ** 2 * 4.7 / (0.55 + 0.1 + 4.7) ** 2
     assert mid < w["Q2:ce-short"]["R7"] <= top * 1.001
+    # the same current through the fuse: at most 12.6 / 5.015 = 2.51 A, and above
+    # 12 / 5.35 = 2.24 A (a 0.1 ohm short, nominal parts)
+    assert 12.0 / 5.35 < w["Q2:ce-short"]["F1"] <= 12.6 / (0.55 + 4.465) * 1.001
     # Q1 shorted: R3 (4.7 kohm) and R4 (1 kohm) in series across the rail, 2.1 mA; R4
     # takes 4.4 mW at nominal values, at most 5.5 mW inside the tolerances
     q1 = w["Q1:ce-short"]["R4"]
@@ -175,7 +179,7 @@ def test_the_engine_keeps_a_burnt_resistor_pair_only_if_the_cause_overloads_it(
     (Joule's law, the test above): the engine drops the pair. R7 beside a shorted Q2
     takes over 20 W and stays. A second engine reads the solved watts from the cache
     folder and solves nothing."""
-    from diag.core import dissipation
+    from diag.core import stress
     from diag.core.engine import Engine
 
     p = tmp_path / "rated.yaml"
@@ -193,17 +197,17 @@ def test_the_engine_keeps_a_burnt_resistor_pair_only_if_the_cause_overloads_it(
     def no_solve(*a, **k):
         raise AssertionError("solved again on a warm start")
 
-    monkeypatch.setattr(dissipation, "worst", no_solve)
+    monkeypatch.setattr(stress, "worst", no_solve)
     assert [s.id for s in Engine(case, rules).specs] == ids
 
 
 def test_solved_watts_decide_and_an_unsolved_cause_keeps_its_pairs(two_stage, rules):
-    """`heat` (cause -> resistor -> worst watts) against the rating; NaN (no unit of the
-    cause solved) keeps the pair, as the supply-span bound alone would."""
+    """`stress` (cause -> resistor -> worst watts) against the rating; NaN (no unit of
+    the cause solved) keeps the pair, as the supply-span bound alone would."""
     s = faults.singles(two_stage, rules)
 
-    def pairs(heat):
-        return {x.id for x in faults.linked(two_stage, rules, s, heat)
+    def pairs(stress):
+        return {x.id for x in faults.linked(two_stage, rules, s, stress)
                 if "+R7:" in x.id and x.id.startswith("Q2:ce-short")}
 
     both = {"Q2:ce-short+R7:open", "Q2:ce-short+R7:high"}
@@ -211,6 +215,30 @@ def test_solved_watts_decide_and_an_unsolved_cause_keeps_its_pairs(two_stage, ru
     assert pairs({"Q2:ce-short": {"R7": 0.2}}) == set()      # under the 0.25 W default
     assert pairs({"Q2:ce-short": {"R7": 0.3}}) == both
     assert pairs({"Q2:ce-short": {"R7": float("nan")}}) == both
+
+
+def test_a_fuse_blows_only_past_twice_its_rating_with_the_cause_in_place(tmp_path, rules):
+    """With Q2 shorted 2.24 to 2.51 A flow through F1 (Ohm's law, the test above). A fuse
+    rated 1 A blows past 2.1 A (IEC 60127-2, rules/collateral.yaml): the pair is kept;
+    one rated 2 A (4.2 A) holds: no pair, though the topology rule would have paired it.
+    Not only a collector-emitter short: a shorted R6 or base-collector junction puts
+    Q2's base on the rail, and its emitter follows about a volt below into R7 (4.7 ohm),
+    roughly 2 A: past a 0.5 A fuse's 1.05 A. A shorted R7 leaves Q2 a follower biased
+    from 47 kohm: tens of milliamperes, no pair."""
+    from diag.core.engine import Engine
+
+    def linked_with_fuse(amps: str) -> set[str]:
+        p = tmp_path / f"f{amps}.yaml"
+        p.write_text(CASE.replace("F1: {kind: fuse, nodes: [vcc, vf]}",
+                                  f"F1: {{kind: fuse, nodes: [vcc, vf], amps: {amps}}}"))
+        ids = {s.id for s in Engine(load_case(p, rules), rules).specs if "F1:" in s.id}
+        return ids - {"F1:open"}
+
+    assert "F1:open+Q2:ce-short" in linked_with_fuse("1")
+    assert linked_with_fuse("2") == set()
+    half = linked_with_fuse("0.5")
+    assert {"F1:open+Q2:ce-short", "F1:open+Q2:bc-short", "F1:open+R6:short"} <= half
+    assert not {"F1:open+R7:short", "F1:open+Q1:ce-short"} & half
 
 
 def test_supply_span_is_the_rails_apart(tmp_path, rules):

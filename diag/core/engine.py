@@ -242,7 +242,7 @@ class Engine:
         self._circuit = None
         self._singles = faults.singles(case, self.rules)
         self.specs = [faults.healthy_spec(), *self._singles,
-                      *faults.linked(case, self.rules, self._singles, self._heat())]
+                      *faults.linked(case, self.rules, self._singles, self._stress())]
         self._pair_scale = faults.pair_weight_scale(self.rules, self._singles)
         self.observables = case.observables
         self._obs_index = {(o.point, o.kind): j for j, o in enumerate(self.observables)}
@@ -260,42 +260,43 @@ class Engine:
 
     # -- building ------------------------------------------------------------------------
 
-    def _heat(self) -> dict[str, dict[str, float]]:
-        """Watts in each resistor a linked fault would burn, with its cause in place
-        (faults.linked, dissipation.py): solved once per case and rules, then read from
-        a small file in the cache folder (a warm start solves nothing)."""
+    def _stress(self) -> dict[str, dict[str, float]]:
+        """Watts in each resistor and amperes through each fuse that a linked fault would
+        take with its cause, with the cause in place (faults.linked, stress.py): solved
+        once per case and rules, then read from a small file in the cache folder (a warm
+        start solves nothing)."""
         import json
 
         from diag import __version__
-        from diag.core import dissipation, ensemble, faults
+        from diag.core import ensemble, faults, stress
 
-        need = faults.overheat_candidates(self.case, self.rules, self._singles)
+        need = faults.stress_candidates(self.case, self.rules, self._singles)
         if not need:
             return {}
-        path = ensemble.cache_file(self.case.hash, self.rules.hash, dissipation.DRAWS,
-                                   dissipation.SEED, f"{CACHE_VERSION}-{__version__}",
-                                   kind="heat")
+        path = ensemble.cache_file(self.case.hash, self.rules.hash, stress.DRAWS,
+                                   stress.SEED, f"{CACHE_VERSION}-{__version__}",
+                                   kind="stress")
         try:
             got = json.loads(path.read_text())
             if {c: tuple(r) for c, r in got["need"].items()} == need:
-                return {c: {r: float("nan") if w is None else float(w)
-                            for r, w in row.items()}
-                        for c, row in got["watts"].items()}
+                return {c: {r: float("nan") if x is None else float(x)
+                            for r, x in row.items()}
+                        for c, row in got["worst"].items()}
         except (OSError, ValueError, KeyError, TypeError, AttributeError):
             pass
         specs = {s.id: s for s in self._singles}
-        watts = dissipation.worst(self.circuit, self.case, need, specs)
+        worst = stress.worst(self.circuit, self.case, need, specs)
         try:
             path.parent.mkdir(parents=True, exist_ok=True)
             tmp = path.with_name(path.name + f".{os.getpid()}.tmp")
             # NaN (no unit solved) is written as null and read back as NaN
-            tmp.write_text(json.dumps({"need": need, "watts": {
-                c: {r: (w if math.isfinite(w) else None) for r, w in row.items()}
-                for c, row in watts.items()}}))
+            tmp.write_text(json.dumps({"need": need, "worst": {
+                c: {r: (x if math.isfinite(x) else None) for r, x in row.items()}
+                for c, row in worst.items()}}))
             os.replace(tmp, path)
         except OSError:
             pass  # a read-only cache folder only costs speed
-        return watts
+        return worst
 
     @property
     def circuit(self):

@@ -182,7 +182,7 @@ def reference_draws(R: int, M: int, seed: int, blunders: bool = True
 def cache_file(case_hash: str, rules_hash: str, K: int, seed: int, version: str,
                kind: str = "ens") -> Path:
     """Cache file for (case, rules, K, seed, code version) in paths.cache_dir(): the
-    ensemble (`ens`, npz) or the linked faults' resistor dissipation (`heat`, json)."""
+    ensemble (`ens`, npz) or the stress on linked faults' parts (`stress`, json)."""
     from diag.core.paths import cache_dir
 
     ext = "npz" if kind == "ens" else "json"
@@ -205,7 +205,7 @@ CACHE_KEEP = 24
 def prune_cache(folder: Path, keep: int = CACHE_KEEP) -> list[Path]:
     """Remove all but the `keep` newest ensemble files (ens-*.npz) in `folder`, each with
     its -extra.npz companion (pair ensembles), and all but the `keep` newest
-    dissipation files (heat-*.json); return what was removed. Files that vanish or
+    stress files (stress-*.json); return what was removed. Files that vanish or
     resist removal meanwhile (another process) are left alone."""
     def mtime(p: Path) -> float:
         try:
@@ -215,10 +215,10 @@ def prune_cache(folder: Path, keep: int = CACHE_KEEP) -> list[Path]:
 
     main = [p for p in folder.glob("ens-*.npz") if not p.name.endswith("-extra.npz")]
     main.sort(key=mtime, reverse=True)
-    heat = sorted(folder.glob("heat-*.json"), key=mtime, reverse=True)
+    stress = sorted(folder.glob("stress-*.json"), key=mtime, reverse=True)
     old = [q for p in main[keep:] for q in (p, p.with_name(p.stem + "-extra.npz"))]
     gone = []
-    for q in old + heat[keep:]:
+    for q in old + stress[keep:]:
         try:
             q.unlink()
             gone.append(q)

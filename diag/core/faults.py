@@ -254,7 +254,7 @@ def can_overheat(case: Case, part: Part, default_watts: float) -> bool:
     """Whether a resistor could dissipate more than its rating (`watts`, else
     default_watts) in this circuit under any fault: the whole supply span across it,
     span² / R in watts. A part of another kind: True (no rating to go by). The bound
-    that decides which pairs are worth simulating (`overheat_candidates`)."""
+    that decides which pairs are worth simulating (`stress_candidates`)."""
     if part.kind != "resistor" or not part.value:
         return True
     return case.supply_span ** 2 / float(part.value) > rating(part, default_watts)
@@ -277,29 +277,47 @@ def _link_rules(rules):
 
 
 def _effects(case: Case, rules, cause: Part, effect_k: dict, via: dict) -> list[Part]:
-    """Parts a rule may take with `cause`: by topology, and for `overheats` only
-    resistors that `can_overheat` at all."""
+    """Parts a rule may take with `cause`: by topology; for `overheats` only resistors
+    that `can_overheat` at all; for `overcurrent` every fuse with a rating (`amps`); for
+    `unrated` only fuses without one."""
     default_watts = float(rules["collateral"].get("resistor_watts", 0.25))
-    return [e for e in _effect_parts(case, cause, via)
+    if via.get("overcurrent"):
+        found = [p for p in case.parts if p.kind == "fuse" and p.fields.get("amps")]
+    else:
+        found = _effect_parts(case, cause, via)
+    return [e for e in found
             if e.kind in effect_k["kinds"] and e.ref != cause.ref
-            and (not via.get("overheats") or can_overheat(case, e, default_watts))]
+            and (not via.get("overheats") or can_overheat(case, e, default_watts))
+            and not (via.get("unrated") and e.fields.get("amps"))]
 
 
-def overheat_candidates(case: Case, rules, singles_: Sequence[FaultSpec]
-                        ) -> dict[str, tuple[str, ...]]:
-    """Cause fault id -> resistors that an `overheats` rule would take with it, by
-    topology and the supply-span bound: the pairs whose cause must be solved to see
-    whether the resistor really overheats (diag/core/dissipation.py)."""
+def _limit(rules, via: dict, part: Part) -> float | None:
+    """What a part of a stress-checked rule must exceed with the cause in place: the
+    resistor's rating in watts (`overheats`), the fuse's blowing current in amperes
+    (`overcurrent`: `fuse_blows_at` times its `amps`); None when the rule checks none."""
+    col = rules["collateral"]
+    if via.get("overheats") and part.kind == "resistor":
+        return rating(part, float(col.get("resistor_watts", 0.25)))
+    if via.get("overcurrent") and part.kind == "fuse":
+        return float(col.get("fuse_blows_at", 2.1)) * float(part.fields["amps"])
+    return None
+
+
+def stress_candidates(case: Case, rules, singles_: Sequence[FaultSpec]
+                      ) -> dict[str, tuple[str, ...]]:
+    """Cause fault id -> parts that an `overheats` or `overcurrent` rule would take with
+    it by topology and the bounds: the pairs whose cause must be solved to see whether
+    the part is really overloaded (diag/core/stress.py)."""
     ids = {s.id for s in singles_}
     out: dict[str, set[str]] = {}
     for _i, _rule, cause_k, effect_k, _p, via in _link_rules(rules):
-        if not via.get("overheats"):
+        if not (via.get("overheats") or via.get("overcurrent")):
             continue
         for cause in case.parts:
             if cause.kind not in cause_k["kinds"]:
                 continue
             refs = {e.ref for e in _effects(case, rules, cause, effect_k, via)
-                    if e.kind == "resistor"}
+                    if _limit(rules, via, e) is not None}
             for cmode in cause_k["modes"]:
                 cid = f"{cause.ref}:{cmode}"
                 if refs and cid in ids:
@@ -308,19 +326,19 @@ def overheat_candidates(case: Case, rules, singles_: Sequence[FaultSpec]
 
 
 def linked(case: Case, rules, singles_: Sequence[FaultSpec],
-           heat: dict[str, dict[str, float]] | None = None) -> list[FaultSpec]:
+           stress: dict[str, dict[str, float]] | None = None) -> list[FaultSpec]:
     """Linked faults from rules/collateral.yaml, found by topology. For a rule with
-    `overheats`, the effect resistor must be able to overheat: with `heat` (cause id ->
-    resistor -> the most watts it dissipates with that fault, dissipation.py), more than
-    its rating in the faulted circuit; without it (or for a resistor `heat` does not
-    give), by the supply-span bound alone."""
+    `overheats` or `overcurrent`, the effect part must be overloaded: with `stress`
+    (cause id -> part -> the most watts or amperes with that fault, stress.py), beyond
+    its `_limit` in the faulted circuit; without it (or for a part `stress` does not
+    give), by the bounds alone."""
     by_id = {s.id: s for s in singles_}
-    default_watts = float(rules["collateral"].get("resistor_watts", 0.25))
     out: dict[str, FaultSpec] = {}
 
-    def hot(cid: str, e: Part) -> bool:
-        w = (heat or {}).get(cid, {}).get(e.ref)
-        return w is None or not w <= rating(e, default_watts)  # NaN (not solved): kept
+    def overloaded(cid: str, e: Part, via: dict) -> bool:
+        limit = _limit(rules, via, e)
+        x = (stress or {}).get(cid, {}).get(e.ref)
+        return limit is None or x is None or not x <= limit  # NaN (not solved): kept
 
     for _i, rule, cause_k, effect_k, p_link, via in _link_rules(rules):
         for cause in case.parts:
@@ -332,9 +350,7 @@ def linked(case: Case, rules, singles_: Sequence[FaultSpec],
                 if c is None:
                     continue
                 emodes = [(e, m) for e in effects for m in effect_k["modes"]
-                          if f"{e.ref}:{m}" in by_id
-                          and (not via.get("overheats") or e.kind != "resistor"
-                               or hot(c.id, e))]
+                          if f"{e.ref}:{m}" in by_id and overloaded(c.id, e, via)]
                 total = sum(by_id[f"{e.ref}:{m}"].weight for e, m in emodes)
                 for e, m in emodes:
                     eff = by_id[f"{e.ref}:{m}"]
@@ -347,12 +363,12 @@ def linked(case: Case, rules, singles_: Sequence[FaultSpec],
     return list(out.values())
 
 
-def hypotheses(case: Case, rules, heat: dict[str, dict[str, float]] | None = None
+def hypotheses(case: Case, rules, stress: dict[str, dict[str, float]] | None = None
                ) -> list[FaultSpec]:
-    """healthy, every single fault, every linked fault (in that order); `heat` as in
+    """healthy, every single fault, every linked fault (in that order); `stress` as in
     `linked`."""
     s = singles(case, rules)
-    return [healthy_spec(), *s, *linked(case, rules, s, heat)]
+    return [healthy_spec(), *s, *linked(case, rules, s, stress)]
 
 
 def pair_weight_scale(rules, singles_: Sequence[FaultSpec]) -> float:
