@@ -141,3 +141,13 @@ def test_fast_length_is_the_next_5_smooth_number():
     # 5-smooth (Hamming) numbers by hand: 1 2 3 4 5 6 8 9 10 12 15 16 ... 1000 1024 1080
     assert [advise._fast_len(n) for n in (1, 7, 11, 13, 17, 1001, 1025, 1081)] == \
         [1, 8, 12, 15, 18, 1024, 1080, 1125]
+
+
+def test_a_gain_too_small_for_two_decimals_is_shown_as_under_one_hundredth():
+    """Two decimals would print 0.004 bits as "0.00 bits": a reading that seems to
+    promise nothing is listed; it is shown as under 0.01 bits instead."""
+    from diag.core.advise import format_bits
+
+    assert format_bits(1.694) == "1.69 bits"
+    assert format_bits(0.006) == "0.01 bits"
+    assert format_bits(0.0049) == "under 0.01 bits"

@@ -187,6 +187,32 @@ def test_bench_notes_from_readings_alone(eng):
     assert d.to_json("x")["notes"] == list(d.notes)
 
 
+def test_a_note_is_stated_only_when_the_meter_band_lies_inside_its_range(eng):
+    """The handheld meter's DC bound is 0.5 % of the reading + 2 counts (SPEC section 1,
+    from memory): at 14 V on the 20 V range (10 mV counts), 0.09 V. V_CE worked out as
+    14.00 - 13.85 V is 0.15 V ± 0.18 V,
+    a band reaching past the saturation range's -0.05 V (rules/checks.yaml): no finding,
+    and the note names the reading that settles it. A reading straight across collector
+    and emitter (series-regulator's TP7) is used before the two readings to ground."""
+    reg = Engine(load_case(cases_dir() / "series-regulator.yaml"), K=16)
+    two = [Reading("TP3", "dc", 14.0), Reading("TP5", "dc", 13.85)]
+    text = " ".join(reg.diagnose(two).notes)
+    assert "saturated" not in text
+    assert "Q1: collector-emitter works out at 0.15 V (± 0.18 V, from two readings)" in text
+    assert "red probe on the collector, black on the emitter" in text
+    text = " ".join(reg.diagnose([*two, Reading("TP7", "dc", 0.15)]).notes)
+    assert "Q1: collector-emitter reads 0.15 V: saturated" in text
+    assert "from two readings" not in text and "too coarse" not in text
+    # a power transistor passing amperes drops up to about 1.5 V base to emitter (data
+    # sheets' VBE(on), from memory): 1.2 V across it read straight is no finding ...
+    text = " ".join(reg.diagnose([Reading("TP4", "dc", 10.2), Reading("TP5", "dc", 9.0)]
+                                 ).notes)
+    assert "likely open" not in text
+    # ... while a small-signal junction reading 1.2 V (relay-switch's emitter is on
+    # ground, so TP4 reads V_BE straight) is past what it drops
+    assert "likely open" in " ".join(eng.diagnose([Reading("TP4", "dc", 1.2)]).notes)
+
+
 def test_a_pnp_collector_at_ground_is_named_so():
     """A high-side PNP whose load returns to ground carries no collector current when
     its collector sits at ground (common practice, no source)."""

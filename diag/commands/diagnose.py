@@ -59,6 +59,8 @@ def run(args) -> int:
 
 def format_text(case, d, top: int, rejected=()) -> str:
     """The diagnosis for people: fit verdict, ranked suspects, next readings, notes."""
+    from diag.core.advise import SHOWN_BITS, format_bits
+
     lines = [f"{case.title}  ({case.path})", f"Readings used: {d.readings_used}", ""]
     if not d.fits:
         lines += ["*** NO MODELLED FAULT FITS THESE READINGS ***", d.fit_text, ""]
@@ -84,7 +86,10 @@ def format_text(case, d, top: int, rejected=()) -> str:
     if not d.next:
         lines.append("  nothing left to learn from the offered readings")
     for n in d.next[:5]:
-        lines.append(f"  {n.point:<6} {n.kind:<3} {n.bits:5.2f} bits   {n.why}")
+        lines.append(f"  {n.point:<6} {n.kind:<3} {format_bits(n.bits):>15}   {n.why}")
+    if d.next and all(n.bits < SHOWN_BITS for n in d.next):
+        lines.append("  (each of these would barely tell the suspects apart: check the "
+                     "leaders at the bench)")
     if d.notes:
         lines += ["", "Bench notes:"] + [f"  - {t}" for t in d.notes]
     rej = list(rejected) + list(d.rejected)

@@ -22,7 +22,14 @@ import functools
 import numpy as np
 
 BIN = 0.5          # histogram bin, in noise widths
+SHOWN_BITS = 0.01  # gains are shown to two decimals; below this, as "under 0.01 bits"
 MAX_BINS = 4000    # wider ranges use wider bins (the gain is then slightly underrated)
+
+
+def format_bits(bits: float) -> str:
+    """An expected gain for people: "1.69 bits", or "under 0.01 bits" where two decimals
+    would show 0.00."""
+    return f"{bits:.2f} bits" if bits >= SHOWN_BITS - 0.005 else f"under {SHOWN_BITS:g} bits"
 
 
 def unit_weights(loglik_k: np.ndarray, posterior: np.ndarray) -> np.ndarray:

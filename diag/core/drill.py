@@ -27,6 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
+from diag.core.advise import format_bits
 from diag.core.case import SEMICONDUCTORS, Case
 from diag.core.engine import Diagnosis, Engine, Reading
 from diag.core.errors import DiagError
@@ -263,7 +264,7 @@ def telling_readings(engine: Engine, truth: str, named: str,
                                f"{truth}: {_fmt(a.mid, u)}; {named}: {_fmt(b.mid, u)}"))
         if out:
             return tuple(out)
-    return tuple(Telling(p, k, f"diag's advice, {bits:.2f} bits expected")
+    return tuple(Telling(p, k, f"diag's advice, {format_bits(bits)} expected")
                  for p, k, bits in steps[:N_TELLING])
 
 

@@ -947,7 +947,8 @@ class Engine:
             if any(n.startswith("ac") for n in found):
                 out[g] = f"an AC reading (signal applied) at node {_first(found, 'ac')}"
             elif any(n.startswith("current") for n in found):
-                out[g] = f"the supply current ({_first(found, 'current')})"
+                out[g] = (f"the current drawn from {_first(found, 'current')} (an ammeter "
+                          f"in series with its lead)")
             elif found:
                 out[g] = f"a DC reading at node {_first(found, 'dc')} (no test point there yet)"
             else:

@@ -1,8 +1,12 @@
 """Bench notes: plain-language findings from the readings alone (rules/checks.yaml).
 
-A note needs DC readings at both nodes a check looks across (a terminal on the ground node
-reads 0 V). Nothing here consults the model: these are what a technician would say
-looking at the meter.
+A note needs the voltage a check looks across: a DC reading taken straight across those
+two nodes (a point with `minus:`), or DC readings of both to ground (a terminal on the
+ground node reads 0 V). With the meter's accuracy given, a finding is stated only when
+the whole band the reading could be in (value ± the meter's bound, summed over the
+readings used) lies inside the check's range; a difference of two readings too coarse
+for that says so, and names the reading that would settle it. Nothing here consults the
+model: these are what a technician would say looking at the meter.
 """
 
 from __future__ import annotations
@@ -30,6 +34,21 @@ def node_volts(case: Case, readings: Sequence) -> dict[str, float]:
     return out
 
 
+def direct_volts(case: Case, readings: Sequence) -> dict[tuple[str, str], float]:
+    """(node, minus node) -> DC volts from points measured straight across two nodes."""
+    out = {}
+    for r in readings:
+        if r.kind != "dc":
+            continue
+        try:
+            pt = case.point(r.point)
+        except KeyError:
+            continue
+        if pt.node and pt.minus not in (None, case.ground):
+            out[(pt.node, pt.minus)] = float(r.value)
+    return out
+
+
 def bench_notes(case: Case, rules, readings: Sequence, meter_accuracy=None) -> list[str]:
     """Notes for these readings, in case part order then checks order.
 
@@ -46,7 +65,10 @@ def bench_notes_many(case: Case, rules, units: Sequence[Sequence], meter_accurac
     checks = _applicable(case, rules)
     rails = [p for p in case.parts if p.kind == "supply"]
     fixed = {case.ground, *(n for p in rails for n in p.nodes)}
-    return [_notes(checks, rails, fixed, node_volts(case, rs), meter_accuracy, case.ground)
+    ctx = (rules["checks"].get("terminal_names") or {},
+           rules["checks"].get("uncertain") or "")
+    return [_notes(checks, rails, fixed, node_volts(case, rs), meter_accuracy, case.ground,
+                   direct_volts(case, rs), ctx)
             for rs in units]
 
 
@@ -56,8 +78,13 @@ def _applicable(case: Case, rules) -> list[tuple]:
     checks = rules["checks"].get("checks") or []
     out = []
     for part in case.parts:
+        model = (part.model or {}).get("name")  # the card's name in rules/models.yaml
         for chk in checks:
             if part.kind not in chk.get("kinds", ()):
+                continue
+            if "models" in chk and model not in chk["models"]:
+                continue
+            if model in (chk.get("not_models") or ()):
                 continue
             try:
                 t1, t2 = chk["across"]
@@ -70,19 +97,42 @@ def _applicable(case: Case, rules) -> list[tuple]:
     return out
 
 
-def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy, ground: str
-           ) -> list[str]:
-    """The notes of one unit's node volts `v` (see `bench_notes`). `{rail}` in a
-    near-supply text names the rail the collector sits at: the supply's node for an NPN,
-    ground for a PNP (whose load returns there)."""
-    out = []
+def _across(v: dict[str, float], direct: dict[tuple[str, str], float], n1: str, n2: str,
+            acc, ground: str) -> tuple[float, float, int] | None:
+    """V(n1) - V(n2), its meter bound (0 without `acc`) and how many readings it takes:
+    a reading straight across the two nodes first, else the two readings to ground."""
+    a = acc or (lambda x: 0.0)
+    if (n1, n2) in direct:
+        x = direct[(n1, n2)]
+        return x, a(abs(x)), 1
+    if (n2, n1) in direct:
+        x = -direct[(n2, n1)]
+        return x, a(abs(x)), 1
+    if n1 not in v or n2 not in v:
+        return None
+    used = [n for n in (n1, n2) if n != ground]
+    return v[n1] - v[n2], sum(a(abs(v[n])) for n in used), len(used)
+
+
+def _round_up(err: float) -> float:
+    """A meter bound rounded up to two significant figures."""
+    if err <= 0:
+        return err
+    step = 10.0 ** (math.floor(math.log10(err)) - 1)
+    return math.ceil(err / step - 1e-9) * step
+
+
+def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy, ground: str,
+           direct: dict[tuple[str, str], float] | None = None, ctx=({}, "")) -> list[str]:
+    """The notes of one unit's node volts `v` and direct readings `direct` (see
+    `bench_notes`). `{rail}` in a near-supply text names the rail the collector sits at:
+    the supply's node for an NPN, ground for a PNP (whose load returns there)."""
+    names, uncertain = ctx
+    direct = direct or {}
+    out, doubtful = [], {}
     for part, chk, n1, n2 in checks:
-        if n1 not in v or n2 not in v:
-            continue
-        flip = -1.0 if (chk.get("pnp_flip") and part.kind == "pnp") else 1.0
-        val = flip * (v[n1] - v[n2])
         if chk.get("near_supply"):
-            if n1 in fixed:  # wired straight to a rail: says nothing
+            if n1 not in v or n2 not in v or n1 in fixed:  # wired to a rail: says nothing
                 continue
             hit, rail_name = False, ""
             for sp in rails:
@@ -95,20 +145,26 @@ def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy, ground: st
                     rail_name = sp.nodes[0] if part.kind != "pnp" else ground
             if not hit:
                 continue
-            shown = v[n1]
-        else:
-            lo, hi = chk["range"]
-            if not lo <= val <= hi:
-                continue
-            shown, rail_name = val, ""
-        text = format_value(shown, "V")
-        if meter_accuracy and not chk.get("near_supply") and ground not in (n1, n2):
-            # the difference of two readings: each carries the meter's error
-            err = meter_accuracy(abs(v[n1])) + meter_accuracy(abs(v[n2]))
-            if err > 0:  # rounded up to two significant figures
-                step = 10.0 ** (math.floor(math.log10(err)) - 1)
-                err = math.ceil(err / step - 1e-9) * step
-            text += f" (± {format_value(err, 'V')}, from two readings)"
-        out.append(chk["text"].format(ref=part.ref, kind=part.kind, rail=rail_name,
-                                      v=text))
-    return out
+            out.append(chk["text"].format(ref=part.ref, kind=part.kind, rail=rail_name,
+                                          v=format_value(v[n1], "V")))
+            continue
+        got = _across(v, direct, n1, n2, meter_accuracy, ground)
+        if got is None:
+            continue
+        flip = -1.0 if (chk.get("pnp_flip") and part.kind == "pnp") else 1.0
+        val, err, used = flip * got[0], got[1], got[2]
+        lo, hi = chk["range"]
+        if not lo <= val <= hi:
+            continue
+        text = format_value(val, "V")
+        if used == 2:  # the difference of two readings: each carries the meter's error
+            text += f" (± {format_value(_round_up(err), 'V')}, from two readings)"
+        if not lo <= val - err <= val + err <= hi:  # the band reaches past the range
+            if used == 2 and uncertain:
+                t1, t2 = chk["across"][::-1] if flip < 0 else chk["across"]
+                doubtful.setdefault((part.ref, t1, t2), uncertain.format(
+                    ref=part.ref, v=text, across=f"{names.get(t1, t1)}-{names.get(t2, t2)}",
+                    t1=names.get(t1, t1), t2=names.get(t2, t2)))
+            continue
+        out.append(chk["text"].format(ref=part.ref, kind=part.kind, rail="", v=text))
+    return out + list(doubtful.values())

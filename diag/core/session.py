@@ -23,6 +23,7 @@ from pathlib import Path
 from typing import Any
 
 from diag.core import paths
+from diag.core.advise import format_bits
 from diag.core.engine import Band, Diagnosis, Reading
 from diag.core.errors import DiagError
 
@@ -326,7 +327,7 @@ def report_markdown(case, session: Session, diagnosis: Diagnosis | None,
         lines.append("")
         if diagnosis.next:
             n = diagnosis.next[0]
-            lines += [f"Next reading: **{n.point} {n.kind}** ({n.bits:.2f} bits): "
+            lines += [f"Next reading: **{n.point} {n.kind}** ({format_bits(n.bits)}): "
                       f"{_md(n.why)}", ""]
         checks = diagnosis.bench_checks()
         if checks:

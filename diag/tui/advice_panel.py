@@ -5,6 +5,7 @@ from __future__ import annotations
 
 from textual.widgets import Static
 
+from diag.core.advise import format_bits
 from diag.core.engine import Diagnosis
 from diag.tui.fmt import esc
 
@@ -28,7 +29,7 @@ class NextReadingPanel(Static):
         more = ", ".join(f"{esc(x.point)} {x.kind}" for x in diagnosis.next[1:3])
         tail = f"\n[dim]then: {more}[/dim]" if more else ""
         self.update(f"[b]next reading ▸ {esc(n.point)} {n.kind}[/b]  "
-                    f"[dim]({n.bits:.2f} bits)[/dim]\n{esc(n.why)}{tail}")
+                    f"[dim]({format_bits(n.bits)})[/dim]\n{esc(n.why)}{tail}")
 
 
 class BenchNotesPanel(Static):
