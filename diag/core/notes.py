@@ -19,34 +19,30 @@ from diag.core.errors import DiagError
 from diag.core.values import format_value
 
 
-def node_volts(case: Case, readings: Sequence) -> dict[str, float]:
-    """Node -> DC volts to ground from the readings (points measured to ground)."""
-    out = {case.ground: 0.0}
+def _dc_points(case: Case, readings: Sequence):
+    """(point, volts) of each DC reading at a point of the case."""
     for r in readings:
         if r.kind != "dc":
             continue
         try:
-            pt = case.point(r.point)
+            yield case.point(r.point), float(r.value)
         except KeyError:
             continue
+
+
+def node_volts(case: Case, readings: Sequence) -> dict[str, float]:
+    """Node -> DC volts to ground from the readings (points measured to ground)."""
+    out = {case.ground: 0.0}
+    for pt, x in _dc_points(case, readings):
         if pt.node and pt.minus in (None, case.ground):
-            out[pt.node] = float(r.value)
+            out[pt.node] = x
     return out
 
 
 def direct_volts(case: Case, readings: Sequence) -> dict[tuple[str, str], float]:
     """(node, minus node) -> DC volts from points measured straight across two nodes."""
-    out = {}
-    for r in readings:
-        if r.kind != "dc":
-            continue
-        try:
-            pt = case.point(r.point)
-        except KeyError:
-            continue
-        if pt.node and pt.minus not in (None, case.ground):
-            out[(pt.node, pt.minus)] = float(r.value)
-    return out
+    return {(pt.node, pt.minus): x for pt, x in _dc_points(case, readings)
+            if pt.node and pt.minus not in (None, case.ground)}
 
 
 def bench_notes(case: Case, rules, readings: Sequence, meter_accuracy=None) -> list[str]:
