@@ -199,7 +199,8 @@ def test_a_note_is_stated_only_when_the_meter_band_lies_inside_its_range(eng):
     text = " ".join(reg.diagnose(two).notes)
     assert "saturated" not in text
     assert "Q1: collector-emitter works out at 0.15 V (± 0.18 V, from two readings)" in text
-    assert "red probe on the collector, black on the emitter" in text
+    assert "straight across, red probe on the collector and black on the emitter (the " \
+        "case's TP7), would settle it" in text
     text = " ".join(reg.diagnose([*two, Reading("TP7", "dc", 0.15)]).notes)
     assert "Q1: collector-emitter reads 0.15 V: saturated" in text
     assert "from two readings" not in text and "too coarse" not in text

@@ -61,8 +61,10 @@ def bench_notes_many(case: Case, rules, units: Sequence[Sequence], meter_accurac
     checks = _applicable(case, rules)
     rails = [p for p in case.parts if p.kind == "supply"]
     fixed = {case.ground, *(n for p in rails for n in p.nodes)}
+    across = {frozenset((pt.node, pt.minus)): pt.id for pt in case.points
+              if pt.node and pt.minus not in (None, case.ground) and "dc" in pt.reads}
     ctx = (rules["checks"].get("terminal_names") or {},
-           rules["checks"].get("uncertain") or "")
+           rules["checks"].get("uncertain") or "", across)
     return [_notes(checks, rails, fixed, node_volts(case, rs), meter_accuracy, case.ground,
                    direct_volts(case, rs), ctx)
             for rs in units]
@@ -119,11 +121,12 @@ def _round_up(err: float) -> float:
 
 
 def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy, ground: str,
-           direct: dict[tuple[str, str], float] | None = None, ctx=({}, "")) -> list[str]:
+           direct: dict[tuple[str, str], float] | None = None, ctx=({}, "", {})
+           ) -> list[str]:
     """The notes of one unit's node volts `v` and direct readings `direct` (see
     `bench_notes`). `{rail}` in a near-supply text names the rail the collector sits at:
     the supply's node for an NPN, ground for a PNP (whose load returns there)."""
-    names, uncertain = ctx
+    names, uncertain, across = ctx
     direct = direct or {}
     out, doubtful = [], {}
     for part, chk, n1, n2 in checks:
@@ -158,9 +161,11 @@ def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy, ground: st
         if not lo <= val - err <= val + err <= hi:  # the band reaches past the range
             if used == 2 and uncertain:
                 t1, t2 = chk["across"][::-1] if flip < 0 else chk["across"]
+                pid = across.get(frozenset((n1, n2)))
                 doubtful.setdefault((part.ref, t1, t2), uncertain.format(
                     ref=part.ref, v=text, across=f"{names.get(t1, t1)}-{names.get(t2, t2)}",
-                    t1=names.get(t1, t1), t2=names.get(t2, t2)))
+                    t1=names.get(t1, t1), t2=names.get(t2, t2),
+                    point=f" (the case's {pid})" if pid else ""))
             continue
         out.append(chk["text"].format(ref=part.ref, kind=part.kind, rail="", v=text))
     return out + list(doubtful.values())
