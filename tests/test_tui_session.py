@@ -390,3 +390,28 @@ def test_advice_panel_names_each_close_suspect_when_no_reading_is_left():
                       extra={"confirm": confirm})
     panel.show(alone)
     assert "confirm the leader at the bench" in str(panel.content)
+
+
+@sync
+async def test_bench_notes_in_full_on_a_small_terminal(diag_home):
+    """At 80x24 the bench-notes panel shows a line or two; `b` opens every note whole.
+    Readings: TP3 14.00 V and TP5 13.85 V on series-regulator give the too-coarse note
+    about Q1's collector-emitter (tests/test_engine.py works out its band)."""
+    from diag.tui.bench_notes_screen import BenchNotesScreen
+
+    app = DiagApp(case_path=str(CASES[0].parent / "series-regulator.yaml"))
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await _open(pilot)
+        await type_reading(pilot, "TP3", "dc", "14.0")
+        await type_reading(pilot, "TP5", "dc", "13.85")
+        await settle(pilot)
+        panel = str(screen.query_one("#bench-notes").content)
+        assert "(b: in full)" in panel and "too coarse" in panel
+        await pilot.press("escape", "b")
+        await pilot.pause()
+        assert isinstance(app.screen, BenchNotesScreen)
+        full = str(app.screen.query_one("#bench-notes-full").content)
+        assert "would settle it" in full and "TP7" in full
+        await pilot.press("escape")
+        await pilot.pause()
+        assert app.screen is screen

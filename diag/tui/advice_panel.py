@@ -32,17 +32,25 @@ class NextReadingPanel(Static):
                     f"[dim]({format_bits(n.bits)})[/dim]\n{esc(n.why)}{tail}")
 
 
+def bench_note_lines(diagnosis: Diagnosis) -> list[str]:
+    """The fit warning, the good-unit sentence, the bench notes and the readings not
+    used, as marked-up lines (the panel and the full-notes screen show the same)."""
+    lines = [] if diagnosis.fits else [f"[b $error]⚠ {esc(diagnosis.fit_text)}[/]"]
+    if diagnosis.healthy_alike():
+        lines.append(f"[b]{esc(diagnosis.healthy_alike(short=True))}[/b]")
+    lines += [f"• {esc(t)}" for t in diagnosis.notes]
+    lines += [f"[yellow]✗ {esc(t)}[/yellow]" for t in diagnosis.rejected]
+    return lines
+
+
 class BenchNotesPanel(Static):
-    """Plain-language findings from the readings alone, and readings not used."""
+    """Plain-language findings from the readings alone, and readings not used; `b`
+    shows them in full where the panel is too short."""
 
     def show(self, diagnosis: Diagnosis | None) -> None:
         if diagnosis is None:
             self.update("")
             return
-        lines = [] if diagnosis.fits else [f"[b $error]⚠ {esc(diagnosis.fit_text)}[/]"]
-        if diagnosis.healthy_alike():
-            lines.append(f"[b]{esc(diagnosis.healthy_alike(short=True))}[/b]")
-        lines += [f"• {esc(t)}" for t in diagnosis.notes]
-        lines += [f"[yellow]✗ {esc(t)}[/yellow]" for t in diagnosis.rejected]
-        self.update("[b]bench notes[/b]\n" + ("\n".join(lines) if lines
-                                              else "[dim]none yet[/dim]"))
+        lines = bench_note_lines(diagnosis)
+        title = "[b]bench notes[/b]" + ("  [dim](b: in full)[/dim]" if lines else "")
+        self.update(title + "\n" + ("\n".join(lines) if lines else "[dim]none yet[/dim]"))

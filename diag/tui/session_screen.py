@@ -63,6 +63,9 @@ class SessionScreen(Screen[None]):
         Binding("n", "node", "Around node", id="session.node"),
         Binding("o", "notes", "Notes", id="session.notes"),
         Binding("w", "export", "Write report", id="session.export"),
+        # hinted in the bench-notes panel itself; listed in help (?)
+        Binding("b", "bench_notes", "Bench notes in full", id="session.bench_notes",
+                show=False),
         Binding("s", "focus_suspects", "Suspects", id="session.suspects"),
         Binding("p", "focus_points", "Points", id="session.points"),
         Binding("escape", "leave_entry", "Back to table", id="session.leave_entry", show=False),
@@ -349,6 +352,13 @@ class SessionScreen(Screen[None]):
         from diag.tui.node_screen import NodeScreen
 
         self.app.push_screen(NodeScreen(self.case, o.point))
+
+    def action_bench_notes(self) -> None:
+        from diag.tui.advice_panel import bench_note_lines
+        from diag.tui.bench_notes_screen import BenchNotesScreen
+
+        if self.diagnosis is not None:
+            self.app.push_screen(BenchNotesScreen(bench_note_lines(self.diagnosis)))
 
     def action_notes(self) -> None:
         from diag.tui.notes_dialog import NotesDialog
