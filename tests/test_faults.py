@@ -235,6 +235,12 @@ def test_a_fuse_blows_only_past_twice_its_rating_with_the_cause_in_place(tmp_pat
         return ids - {"F1:open"}
 
     assert "F1:open+Q2:ce-short" in linked_with_fuse("1")
+    # the sentence says what the solved cause puts through the fuse against its rating
+    p = tmp_path / "f1.yaml"
+    text = next(s.text for s in Engine(load_case(p, rules), rules).specs
+                if s.id == "F1:open+Q2:ce-short")
+    amps = float(re.search(r"up to ([0-9.]+) A through a fuse rated 1 A", text).group(1))
+    assert 12.0 / 5.35 < amps <= 12.6 / 5.015 * 1.01  # Ohm's law, the test above
     assert linked_with_fuse("2") == set()
     half = linked_with_fuse("0.5")
     assert {"F1:open+Q2:ce-short", "F1:open+Q2:bc-short", "F1:open+R6:short"} <= half

@@ -159,7 +159,7 @@ def combine(specs: Sequence[FaultSpec], weight: float, origin: str,
             why: str = "") -> FaultSpec:
     """A multiple fault from single ones (members in reference order)."""
     members = sorted(specs, key=lambda s: ref_key(s.parts[0]))
-    fid = "+".join(s.id for s in members)
+    fid = spec_id(*members)
     text = "; and ".join(s.text for s in members) + (f" ({why})" if why else "")
     confirm = " Then: ".join(s.confirm for s in members if s.confirm)
     return FaultSpec(fid, tuple(p for s in members for p in s.parts),
@@ -303,6 +303,23 @@ def _limit(rules, via: dict, part: Part) -> float | None:
     return None
 
 
+def _stress_words(rules, via: dict, part: Part, x: float | None) -> str:
+    """The `{stress}` of a linked fault's sentence: what the solved cause puts on the
+    part against its limit (": up to 1.6 A through a fuse rated 0.5 A"), or nothing."""
+    if x is None or not x == x or _limit(rules, via, part) is None:  # none, or NaN
+        return ""
+    if part.kind == "fuse":
+        return (f": up to {format_value(x, 'A')} through a fuse rated "
+                f"{format_value(float(part.fields['amps']), 'A')}")
+    watts = rating(part, float(rules["collateral"].get("resistor_watts", 0.25)))
+    return f": up to {format_value(x, 'W')} in a part rated {format_value(watts, 'W')}"
+
+
+def spec_id(*specs: FaultSpec) -> str:
+    """The id `combine` gives these members (reference order, SPEC section 3)."""
+    return "+".join(s.id for s in sorted(specs, key=lambda s: ref_key(s.parts[0])))
+
+
 def stress_candidates(case: Case, rules, singles_: Sequence[FaultSpec]
                       ) -> dict[str, tuple[str, ...]]:
     """Cause fault id -> parts that an `overheats` or `overcurrent` rule would take with
@@ -355,11 +372,12 @@ def linked(case: Case, rules, singles_: Sequence[FaultSpec],
                 for e, m in emodes:
                     eff = by_id[f"{e.ref}:{m}"]
                     w = c.weight * p_link * eff.weight / total
-                    spec = combine([c, eff], w, "linked", rule.get("why", ""))
-                    if spec.id in out:
-                        w += out[spec.id].weight
-                        spec = combine([c, eff], w, "linked", rule.get("why", ""))
-                    out[spec.id] = spec
+                    why = rule.get("why", "").replace(
+                        "{stress}", _stress_words(rules, via, e, (stress or {}).get(
+                            c.id, {}).get(e.ref)))
+                    if spec_id(c, eff) in out:
+                        w += out[spec_id(c, eff)].weight
+                    out[spec_id(c, eff)] = combine([c, eff], w, "linked", why)
     return list(out.values())
 
 
