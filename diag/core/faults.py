@@ -260,6 +260,11 @@ def can_overheat(case: Case, part: Part, default_watts: float) -> bool:
     return case.supply_span ** 2 / float(part.value) > rating(part, default_watts)
 
 
+def _resistor_watts(rules) -> float:
+    """The rating of a resistor that gives no `watts` (rules/collateral.yaml), in W."""
+    return float(rules["collateral"].get("resistor_watts", 0.25))
+
+
 def rating(part: Part, default_watts: float) -> float:
     """A resistor's power rating in watts: its `watts`, else default_watts."""
     return float(part.fields.get("watts") or default_watts)
@@ -280,7 +285,7 @@ def _effects(case: Case, rules, cause: Part, effect_k: dict, via: dict) -> list[
     """Parts a rule may take with `cause`: by topology; for `overheats` only resistors
     that `can_overheat` at all; for `overcurrent` every fuse with a rating (`amps`); for
     `unrated` only fuses without one."""
-    default_watts = float(rules["collateral"].get("resistor_watts", 0.25))
+    default_watts = _resistor_watts(rules)
     if via.get("overcurrent"):
         found = [p for p in case.parts if p.kind == "fuse" and p.fields.get("amps")]
     else:
@@ -297,7 +302,7 @@ def _limit(rules, via: dict, part: Part) -> float | None:
     (`overcurrent`: `fuse_blows_at` times its `amps`); None when the rule checks none."""
     col = rules["collateral"]
     if via.get("overheats") and part.kind == "resistor":
-        return rating(part, float(col.get("resistor_watts", 0.25)))
+        return rating(part, _resistor_watts(rules))
     if via.get("overcurrent") and part.kind == "fuse":
         return float(col.get("fuse_blows_at", 2.1)) * float(part.fields["amps"])
     return None
@@ -306,13 +311,13 @@ def _limit(rules, via: dict, part: Part) -> float | None:
 def _stress_words(rules, via: dict, part: Part, x: float | None) -> str:
     """The `{stress}` of a linked fault's sentence: what the solved cause puts on the
     part against its limit (": up to 1.6 A through a fuse rated 0.5 A"), or nothing."""
-    if x is None or not x == x or _limit(rules, via, part) is None:  # none, or NaN
+    limit = _limit(rules, via, part)
+    if x is None or not x == x or limit is None:  # nothing solved, or NaN
         return ""
     if part.kind == "fuse":
         return (f": up to {format_value(x, 'A')} through a fuse rated "
                 f"{format_value(float(part.fields['amps']), 'A')}")
-    watts = rating(part, float(rules["collateral"].get("resistor_watts", 0.25)))
-    return f": up to {format_value(x, 'W')} in a part rated {format_value(watts, 'W')}"
+    return f": up to {format_value(x, 'W')} in a part rated {format_value(limit, 'W')}"
 
 
 def spec_id(*specs: FaultSpec) -> str:
