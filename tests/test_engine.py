@@ -214,6 +214,24 @@ def test_a_note_is_stated_only_when_the_meter_band_lies_inside_its_range(eng):
     assert "likely open" in " ".join(eng.diagnose([Reading("TP4", "dc", 1.2)]).notes)
 
 
+def test_a_unit_slip_is_named_not_the_good_reading_beside_it():
+    """series-regulator, a healthy unit's supply current and output, with the output
+    typed in millivolts for volts. No modelled state gives a dead output with a normal
+    supply current, so nothing fits; the note must name TP5 (the slipped reading, as
+    volts it fits) and not blame TP1, which was read right. Readings drawn by the
+    engine itself (nothing hard-coded)."""
+    reg = Engine(load_case(cases_dir() / "series-regulator.yaml"), K=32)
+    unit = {r.point: r for r in reg.simulate("healthy", np.random.default_rng(2))}
+    slip = Reading("TP5", "dc", unit["TP5"].value / 1000)
+    d = reg.diagnose([unit["TP1"], slip])
+    assert not d.fits
+    assert [x.split(" reads ")[0] for x in d.extra["unit_slips"]] == ["TP5 dc"]
+    assert "a slip of the unit" in d.fit_text and d.extra["odd_readings"] == []
+    # read right, the same unit fits and no slip is suggested
+    d = reg.diagnose([unit["TP1"], unit["TP5"]])
+    assert d.fits and d.extra["unit_slips"] == []
+
+
 def test_a_pnp_collector_at_ground_is_named_so():
     """A high-side PNP whose load returns to ground carries no collector current when
     its collector sits at ground (common practice, no source)."""

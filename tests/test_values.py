@@ -166,3 +166,11 @@ def test_a_decimal_comma_asks_for_the_point(text, example):
     assert "decimal point" in str(info.value)
     assert f"e.g. {example}" in str(info.value)
 
+
+
+def test_an_unreadable_reading_is_shown_an_example_in_its_own_unit():
+    """A voltage typed as text gets a voltage example, not a resistor code."""
+    with pytest.raises(ValueError, match=r"e\.g\. 12 or 312 mV"):
+        parse_value("abc", "V")
+    with pytest.raises(ValueError, match=r"e\.g\. 1\.2 mA"):
+        parse_value("abc", "A")

@@ -750,6 +750,10 @@ class Engine:
             for j, v in zip(idx, vals, strict=True)], acc))
         fit_text = self._fit_text(fits, pval, len(idx), specs[order[0]], pairs_tried)
         odd = self._odd_readings(U, specs, order[0], idx, u_read)
+        slips = [] if fits else self._unit_slips(U, specs, idx, vals, hp, alpha)
+        if slips:  # one reading read with the wrong unit: name it, not the others
+            odd = []
+            fit_text = " ".join(slips) + " " + fit_text
         if odd:
             fit_text += (f" {', '.join(odd)} {'does' if len(odd) == 1 else 'do'} not fit the "
                          f"leading suspect: a slip of the probe or range, or a fault outside "
@@ -760,6 +764,7 @@ class Engine:
         return Diagnosis(len(idx), bool(fits), tuple(suspects), tuple(nxt), nts, fit_text,
                          tuple(rejected), {"p_value": pval, "pairs_tried": pairs_tried,
                                            "confirm": confirm, "odd_readings": odd,
+                                           "unit_slips": slips,
                                            "healthy_fits": healthy_fits})
 
     def groups_for(self, order: np.ndarray, U: np.ndarray | None = None) -> np.ndarray:
@@ -781,6 +786,31 @@ class Engine:
             else:
                 ap = infer.apart(U, q, sig, share)
         return infer.groups_from(ap, order)
+
+    def _unit_slips(self, U, specs, idx, vals, hp: float, alpha: float) -> list[str]:
+        """When no hypothesis fits: each taken reading that, a thousand times larger or
+        smaller (a prefix slip, mV typed for V or back), would let the readings fit,
+        with the sentence that says so. Only one reading is changed at a time."""
+        out = []
+        noise = self._noise_obj
+        for i, j in enumerate(idx):
+            for f in (1e3, 1e-3):
+                v = np.array(vals, dtype=float)
+                v[i] *= f
+                u2 = noise.u(v, idx)
+                sc, _ = self._score(U, specs, idx, u2, hp)
+                p = self._fit(U, sc, idx, u2, specs=specs)
+                if p >= alpha:
+                    from diag.core.values import format_value
+
+                    o = self.observables[j]
+                    out.append(f"{o.point} {o.kind} reads {format_value(vals[i], o.unit)}, "
+                               f"but {format_value(v[i], o.unit)} would fit the others "
+                               f"(goodness of "
+                               f"fit p = {p:.2f}): a slip of the unit? Check the meter's "
+                               f"display and take {o.point} again.")
+                    break
+        return out
 
     def _odd_readings(self, U, specs, best: int, idx, u_read) -> list[str]:
         """Taken readings the leading hypothesis explains only as blunders ("TP5 dc")."""

@@ -84,10 +84,13 @@ def _check_unit(text: str, found: str | None, want: str | None) -> None:
                          f"{_unit_example(want)}")
 
 
+_EXAMPLES = {"ohm": "4k7 or 4.7 k\u03a9", "V": "12 or 312 mV", "A": "1.2 mA",
+             "F": "220n or 2u2", "H": "10 mH", "Hz": "1k or 50 Hz", "W": "0.25 W",
+             "s": "10 ms"}
+
+
 def _unit_example(unit: str) -> str:
-    return {"ohm": "4k7 or 4.7 k\u03a9", "V": "12 or 312 mV", "A": "1.2 mA",
-            "F": "220n or 2u2", "H": "10 mH", "Hz": "1k or 50 Hz", "W": "0.25 W",
-            "s": "10 ms"}[unit]
+    return _EXAMPLES[unit]
 
 
 def _finite(text: str, x: float) -> float:
@@ -149,8 +152,8 @@ def parse_value(text: object, unit: str | None = None) -> float:
     if _DECIMAL_COMMA.fullmatch(s):
         raise ValueError(f"{text!r} is not a value: write the decimal point as '.', e.g. "
                          f"{s.replace(',', '.', 1)} (and no separator for thousands)")
-    raise ValueError(f"{text!r} is not a value: use a number with one prefix, "
-                     f"e.g. 4k7 or 4.7k")
+    eg = _unit_example(want) if want in _EXAMPLES else "4k7 or 4.7k"  # in the unit asked for
+    raise ValueError(f"{text!r} is not a value: use a number with one prefix, e.g. {eg}")
 
 
 _TOL = re.compile(r"(?:\u00b1|\+/-|\+-)?\s*([0-9]+\.?[0-9]*|\.[0-9]+)\s*(%?)")
