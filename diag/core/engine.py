@@ -241,8 +241,7 @@ class Engine:
         self.inf = faults.inference(self.rules)
         self._circuit = None
         self._singles = faults.singles(case, self.rules)
-        self.specs = [faults.healthy_spec(), *self._singles,
-                      *faults.linked(case, self.rules, self._singles, self._stress())]
+        self.specs = faults.hypotheses(case, self.rules, self._stress(), self._singles)
         self._pair_scale = faults.pair_weight_scale(self.rules, self._singles)
         self.observables = case.observables
         self._obs_index = {(o.point, o.kind): j for j, o in enumerate(self.observables)}
@@ -265,8 +264,6 @@ class Engine:
         take with its cause, with the cause in place (faults.linked, stress.py): solved
         once per case and rules, then read from a small file in the cache folder (a warm
         start solves nothing)."""
-        import json
-
         from diag import __version__
         from diag.core import ensemble, faults, stress
 
@@ -276,24 +273,20 @@ class Engine:
         path = ensemble.cache_file(self.case.hash, self.rules.hash, stress.DRAWS,
                                    stress.SEED, f"{CACHE_VERSION}-{__version__}",
                                    kind="stress")
+        got = ensemble.load_json_cache(path)
         try:
-            got = json.loads(path.read_text())
             if {c: tuple(r) for c, r in got["need"].items()} == need:
                 return {c: {r: float("nan") if x is None else float(x)
                             for r, x in row.items()}
                         for c, row in got["worst"].items()}
-        except (OSError, ValueError, KeyError, TypeError, AttributeError):
-            pass
+        except (KeyError, TypeError, AttributeError, ValueError):
+            pass  # missing or not what this version writes: solve again
         specs = {s.id: s for s in self._singles}
         worst = stress.worst(self.circuit, self.case, need, specs)
-        try:
-            path.parent.mkdir(parents=True, exist_ok=True)
-            tmp = path.with_name(path.name + f".{os.getpid()}.tmp")
-            # NaN (no unit solved) is written as null and read back as NaN
-            tmp.write_text(json.dumps({"need": need, "worst": {
+        try:  # NaN (no unit solved) is written as null and read back as NaN
+            ensemble.save_json_cache(path, {"need": need, "worst": {
                 c: {r: (x if math.isfinite(x) else None) for r, x in row.items()}
-                for c, row in worst.items()}}))
-            os.replace(tmp, path)
+                for c, row in worst.items()}})
         except OSError:
             pass  # a read-only cache folder only costs speed
         return worst
@@ -791,6 +784,8 @@ class Engine:
         """When no hypothesis fits: each taken reading that, a thousand times larger or
         smaller (a prefix slip, mV typed for V or back), would let the readings fit,
         with the sentence that says so. Only one reading is changed at a time."""
+        from diag.core.values import format_value
+
         out = []
         noise = self._noise_obj
         for i, j in enumerate(idx):
@@ -801,14 +796,11 @@ class Engine:
                 sc, _ = self._score(U, specs, idx, u2, hp)
                 p = self._fit(U, sc, idx, u2, specs=specs)
                 if p >= alpha:
-                    from diag.core.values import format_value
-
                     o = self.observables[j]
                     out.append(f"{o.point} {o.kind} reads {format_value(vals[i], o.unit)}, "
                                f"but {format_value(v[i], o.unit)} would fit the others "
-                               f"(goodness of "
-                               f"fit p = {p:.2f}): a slip of the unit? Check the meter's "
-                               f"display and take {o.point} again.")
+                               f"(goodness of fit p = {p:.2f}): a slip of the unit? Check "
+                               f"the meter's display and take {o.point} again.")
                     break
         return out
 

@@ -191,9 +191,32 @@ def cache_file(case_hash: str, rules_hash: str, K: int, seed: int, version: str,
 
 def save_cache(path: Path, arrays: dict) -> None:
     """Write arrays to an npz file atomically (a partial file is never read)."""
+    _atomic(path, lambda fh: np.savez(fh, **arrays))
+
+
+def save_json_cache(path: Path, obj) -> None:
+    """Write a JSON-able object to a cache file atomically, its folder made if need be."""
+    import json
+
+    path.parent.mkdir(parents=True, exist_ok=True)
+    _atomic(path, lambda fh: fh.write(json.dumps(obj).encode()))
+
+
+def load_json_cache(path: Path):
+    """The object of a JSON cache file, or None when it is missing or unreadable."""
+    import json
+
+    try:
+        return json.loads(path.read_text())
+    except (OSError, ValueError):
+        return None
+
+
+def _atomic(path: Path, write) -> None:
+    """Write a file through `write(binary file)` into a temporary name, then rename."""
     tmp = path.with_name(path.name + f".{os.getpid()}.tmp")
     with open(tmp, "wb") as fh:
-        np.savez(fh, **arrays)
+        write(fh)
     os.replace(tmp, path)
 
 

@@ -386,11 +386,11 @@ def linked(case: Case, rules, singles_: Sequence[FaultSpec],
     return list(out.values())
 
 
-def hypotheses(case: Case, rules, stress: dict[str, dict[str, float]] | None = None
-               ) -> list[FaultSpec]:
+def hypotheses(case: Case, rules, stress: dict[str, dict[str, float]] | None = None,
+               singles_: Sequence[FaultSpec] | None = None) -> list[FaultSpec]:
     """healthy, every single fault, every linked fault (in that order); `stress` as in
-    `linked`."""
-    s = singles(case, rules)
+    `linked`; `singles_` the case's single faults when already formed."""
+    s = list(singles(case, rules) if singles_ is None else singles_)
     return [healthy_spec(), *s, *linked(case, rules, s, stress)]
 
 
