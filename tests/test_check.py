@@ -105,10 +105,14 @@ def test_band_is_about_the_1st_to_99th_percentile(tmp_path):
     case = load_case(str(_write(tmp_path, SMALL.replace("VOLTS", "12"))))
     first = healthy_bands(case, K=400, seed=1)
     second = healthy_bands(case, K=400, seed=2)
-    from diag.core import ensemble, meter, netlist, solver
+    from diag.core import ensemble, faults, meter, netlist, solver
 
-    circuit = netlist.compile_case(case, load_rules())
-    params = ensemble.draw_healthy(circuit, 400, np.random.default_rng(2))
+    rules = load_rules()
+    circuit = netlist.compile_case(case, rules)
+    # drawn as the engine draws a healthy unit: tolerances, then its ambient temperature
+    params = ensemble.draw_unit(circuit, faults.healthy_spec(), 400,
+                                np.random.default_rng(2),
+                                faults.inference(rules)["ambient"])
     dc = solver.solve_dc(circuit, params)
     r = meter.observe(circuit, params, dc, None, case.observables, case.meter)
     for m, pb in enumerate(first.points):
@@ -158,3 +162,27 @@ def test_band_shows_no_digit_the_meter_does_not(tmp_path, capsys):
     base = [ln for ln in out.splitlines() if ln.startswith("TP2")][0].split()
     # about 2 V at the base: the 2 V range (1 mV) or the 20 V range (10 mV) shows it
     assert all(len(x.split(".")[1]) <= 3 for x in base[-5:-1] if "." in x)
+
+
+def test_the_interface_shows_the_check_band(tmp_path, capsys):
+    # One healthy band in diag: the interface's (Engine.bands) is `diag check`'s, only
+    # rounded outward to the meter's display; a technician comparing the two screens
+    # must see the same figures.
+    from diag.core import meter
+    from diag.core.engine import Engine
+
+    path = _write(tmp_path, SMALL.replace("VOLTS", "12"))
+    case = load_case(str(path))
+    doc = json.loads(_run(capsys, path, "--json")[1])
+    shown = Engine(case, K=16).bands("healthy")
+    assert len(shown) == len(doc["points"])
+    for band, pb in zip(shown, doc["points"], strict=True):
+        assert (band.observable.point, band.observable.kind) == (pb["point"], pb["kind"])
+        lo, hi = meter.shown_band(pb["low"], pb["high"], case.meter, pb["unit"])
+        assert (band.low, band.high) == (float(lo), float(hi))
+
+
+def test_the_check_header_names_the_ambient_range(tmp_path, capsys):
+    path = _write(tmp_path, SMALL.replace("VOLTS", "12"))
+    lo, hi = load_rules()["faults"]["inference"]["ambient"]["celsius"]
+    assert f"at {lo:g} to {hi:g} °C" in _run(capsys, path)[1]

@@ -66,6 +66,17 @@ def _num(x: float, scale: float, decimals: int) -> str:
     return f"{x / scale:.{decimals}f}"
 
 
+def _ambient_words(rules) -> str:
+    """'at 20 to 40 °C, ' from the rules' ambient range (empty when none is set)."""
+    from diag.core.faults import inference
+
+    amb = inference(rules).get("ambient")
+    if not amb:
+        return ""
+    lo, hi = (float(x) for x in amb["celsius"])
+    return f"at {lo:g} to {hi:g} °C, "
+
+
 def format_text(result, case_path: str, rules) -> str:
     """People's view of a CheckResult: header, nodes, aligned band table, regions,
     failed draws and cautions."""
@@ -73,7 +84,8 @@ def format_text(result, case_path: str, rules) -> str:
     out = [f"{case.title}", f"  case: {case_path}   meter: {case.meter.get('name', 'inline')}",
            f"  band: about the 1st to 99th percentile of {result.K} healthy units drawn "
            f"within tolerance (seed {result.seed}),",
-           "        as the meter reads them (its loading included, its error not)", ""]
+           f"        {_ambient_words(rules)}as the meter reads them (its loading "
+           "included, its error not)", ""]
     nodes = ", ".join(f"{n} {v:.3f} V" for n, v in result.nodes.items())
     out.append("Nodes, nominal values, no meter attached:")
     line = " "

@@ -2,10 +2,12 @@
 
 `healthy_bands(case, rules, K, seed)` solves the case with nominal part values (node
 voltages without a meter, meter readings with its loading, transistor regions), then K
-healthy units drawn within tolerance (ensemble.draw_healthy) and gives, per observable,
-the band from about the 1st to the 99th percentile of the meter reading (loading included,
-meter error excluded). Draws that did not converge are listed with the solver's reason and
-left out of the bands.
+healthy units drawn within tolerance, each at its own ambient temperature in the range of
+rules/faults.yaml (ensemble.draw_unit, as the engine draws them), and gives, per
+observable, the band from about the 1st to the 99th percentile of the meter reading
+(loading included, meter error excluded). It is the one healthy band of diag: `diag check`
+prints it and the interface shows it (Engine.bands). Draws that did not converge are
+listed with the solver's reason and left out of the bands.
 """
 
 from __future__ import annotations
@@ -94,12 +96,13 @@ def healthy_bands(case: Case, rules: Any = None, K: int = 400, seed: int = 0) ->
     """Nominal operating point and healthy bands of `case` over K tolerance draws.
 
     rules: a Rules (default: the bundled rules). The draws come from
-    ensemble.draw_healthy with numpy.random.default_rng(seed); the band of each observable
+    ensemble.draw_unit (tolerances, then the ambient temperature of the rules'
+    `inference.ambient`) with numpy.random.default_rng(seed); the band of each observable
     is the 1st..99th percentile of the converged draws' meter readings (volts or
     amperes). Raises DiagError through the loader/compiler for a bad case; a nominal
     solution that does not converge is reported in `nominal_ok` / `nominal_why`.
     """
-    from diag.core import ensemble, meter, netlist, solver
+    from diag.core import ensemble, faults, meter, netlist, solver
     from diag.core.rules import load_rules
 
     rules = rules if rules is not None else load_rules()
@@ -118,7 +121,8 @@ def healthy_bands(case: Case, rules: Any = None, K: int = 400, seed: int = 0) ->
     failed: list[tuple[int, str]] = []
     if K > 0:
         rng = np.random.default_rng(seed)
-        params = ensemble.draw_healthy(circuit, K, rng)
+        params = ensemble.draw_unit(circuit, faults.healthy_spec(), K, rng,
+                                    faults.inference(rules).get("ambient"))
         dc = solver.solve_dc(circuit, params)
         ac = solver.solve_ac(circuit, params, dc) if has_ac else None
         readings = meter.observe(circuit, params, dc, ac, obs, case.meter)

@@ -251,6 +251,7 @@ class Engine:
         self._extra_loaded = False
         self._extra_disk: dict[str, np.ndarray] = {}  # what the extra cache file holds
         self._limits = None
+        self._healthy_bands: tuple[Band, ...] | None = None  # bands()'s, once worked out
         self._ref_slip = None
         self._boxes = None  # infer.boxes of the built hypotheses (groups with pairs)
         self._extra_spread: dict = {}  # kernel spreads of sets with pairs (_spread_for)
@@ -558,14 +559,30 @@ class Engine:
     def bands(self, fault_id: str = "healthy") -> tuple[Band, ...]:
         """About the 1st, 50th and 99th percentile of each observable's reading, as the
         meter shows them (rounded to its display resolution, meter.shown_band): a reading
-        the meter shows for a unit inside the band is never off it by rounding alone."""
+        the meter shows for a unit inside the band is never off it by rounding alone.
+        The healthy band is `diag check`'s (bands.healthy_bands: more draws than the
+        ensemble's K, so its tails are steadier), with the nominal reading as middle."""
+        from diag.core import meter
+
+        if fault_id == "healthy":
+            if self._healthy_bands is None:
+                from diag.core.bands import healthy_bands
+
+                out = []
+                chk = healthy_bands(self.case, self.rules)
+                for o, pb in zip(self.observables, chk.points, strict=True):
+                    lo, hi = meter.shown_band(pb.low, pb.high, self.case.meter, o.unit)
+                    mid = meter.shown(pb.nominal, self.case.meter, o.unit)
+                    out.append(Band(o, float(lo), float(mid), float(hi)))
+                self._healthy_bands = tuple(out)
+            return self._healthy_bands
         ens = self.ensemble
         ids = [h.id for h in ens.hypotheses]
         if fault_id in ids:
             x = ens.samples[ids.index(fault_id)]
         else:
             x = self._samples_of([self._spec(fault_id)])[0]
-        from diag.core import infer, meter
+        from diag.core import infer
 
         q = infer.nan_quantile(x, [0.01, 0.5, 0.99], axis=0)
         out = []
