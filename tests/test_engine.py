@@ -214,6 +214,26 @@ def test_a_note_is_stated_only_when_the_meter_band_lies_inside_its_range(eng):
     assert "likely open" in " ".join(eng.diagnose([Reading("TP4", "dc", 1.2)]).notes)
 
 
+def test_a_reading_below_ground_past_the_meter_error_is_named(eng):
+    """relay-switch: every supply positive and returned to ground, so no node sits below
+    ground in DC. The handheld meter's DC bound is 0.5 % of the reading + 2 counts (SPEC
+    section 1, from memory): at 50 mV on the 200 mV range (0.1 mV counts) 0.45 mV.
+    -50 mV is past it (probes reversed on a node near 0 V): named, used as typed;
+    -0.1 mV is inside it (a meter's offset at 0 V): nothing said."""
+    note = [t for t in eng.diagnose([Reading("TP4", "dc", -0.05)]).notes
+            if "below ground" in t]
+    assert note == [note[0]] and note[0].startswith("TP4 reads -50 mV")
+    assert "(± 450 µV)" in note[0] and "Used as typed" in note[0]
+    assert not [t for t in eng.diagnose([Reading("TP4", "dc", -1e-4)]).notes
+                if "below ground" in t]
+    # a circuit with a supply below ground (diff-receiver's split rails) says nothing
+    diff = Engine(load_case(cases_dir() / "diff-receiver.yaml"), K=16)
+    node = next(p for p in diff.case.points if p.node and "dc" in p.reads)
+    assert not diff.case.nothing_below_ground
+    assert not [t for t in diff.diagnose([Reading(node.id, "dc", -0.05)]).notes
+                if "below ground" in t]
+
+
 def test_a_unit_slip_is_named_not_the_good_reading_beside_it():
     """series-regulator, a healthy unit's supply current and output, with the output
     typed in millivolts for volts. No modelled state gives a dead output with a normal

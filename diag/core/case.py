@@ -160,6 +160,14 @@ class Case:
                     pot[minus] = pot[plus] - v
         return max(pot.values()) - min(pot.values())
 
+    @property
+    def nothing_below_ground(self) -> bool:
+        """True when every supply is positive and returned to ground: then no node of
+        the circuit sits below ground in DC (a negative DC reading to ground is the
+        probes' doing)."""
+        return all((p.value or 0) >= 0 and p.nodes[1] == self.ground
+                   for p in self.parts if p.kind == "supply")
+
     def parts_at(self, node: str) -> tuple[tuple[Part, str], ...]:
         """Parts touching `node`, each with the terminal name that touches it."""
         out = []

@@ -5,8 +5,9 @@ two nodes (a point with `minus:`), or DC readings of both to ground (a terminal 
 ground node reads 0 V). With the meter's accuracy given, a finding is stated only when
 the whole band the reading could be in (value ± the meter's bound, summed over the
 readings used) lies inside the check's range; a difference of two readings too coarse
-for that says so, and names the reading that would settle it. Nothing here consults the
-model: these are what a technician would say looking at the meter.
+for that says so, and names the reading that would settle it. In a circuit with nothing
+below ground, a DC reading below 0 V by more than the meter's bound is named first.
+Nothing here consults the model: these are what a technician would say looking at the meter.
 """
 
 from __future__ import annotations
@@ -65,9 +66,28 @@ def bench_notes_many(case: Case, rules, units: Sequence[Sequence], meter_accurac
               if pt.node and pt.minus not in (None, case.ground) and "dc" in pt.reads}
     ctx = (rules["checks"].get("terminal_names") or {},
            rules["checks"].get("uncertain") or "", across)
-    return [_notes(checks, rails, fixed, node_volts(case, rs), meter_accuracy, case.ground,
-                   direct_volts(case, rs), ctx)
+    below = rules["checks"].get("below_ground") if case.nothing_below_ground else None
+    return [_below_ground(case, rs, meter_accuracy, below)
+            + _notes(checks, rails, fixed, node_volts(case, rs), meter_accuracy,
+                     case.ground, direct_volts(case, rs), ctx)
             for rs in units]
+
+
+def _below_ground(case: Case, readings: Sequence, meter_accuracy, text: str | None
+                  ) -> list[str]:
+    """A note for each DC reading to ground below 0 V by more than the meter's bound, in
+    a circuit with no node below ground (Case.nothing_below_ground): the reading is
+    used as typed, and the note asks for it again the right way round."""
+    if not text or meter_accuracy is None:
+        return []
+    out = []
+    for pt, x in _dc_points(case, readings):
+        if pt.node and pt.minus in (None, case.ground):
+            err = meter_accuracy(abs(x))
+            if x < -err:
+                out.append(text.format(point=pt.id, v=format_value(x, "V"),
+                                       err=format_value(_round_up(err), "V")))
+    return out
 
 
 def _applicable(case: Case, rules) -> list[tuple]:

@@ -61,7 +61,7 @@ def limits(case: Case, rules=None) -> dict[tuple[str, str], tuple[float, float]]
     sig = case.signal
     vpk = (sig.value or 0.0) * math.sqrt(2) if sig is not None else 0.0
     vmax = (vsum + vpk) * (1 + over) + neg_v
-    positive = all((p.value or 0) >= 0 and p.nodes[1] == case.ground for p in supplies)
+    positive = case.nothing_below_ground
     out = {}
     for pt in case.points:
         for kind in pt.reads:
