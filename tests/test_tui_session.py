@@ -144,6 +144,15 @@ async def test_full_session(diag_home, tmp_path):
         await pilot.press(*"bridge on R4", "ctrl+s")
         await settle(pilot)
         assert screen.session.notes == "bridge on R4"
+        # escape closes the notes and keeps what was typed (a reflex escape loses nothing)
+        await pilot.press("o")
+        await settle(pilot)
+        await pilot.press("end", *"; R5 warm", "escape")
+        await settle(pilot)
+        assert app.screen is screen
+        assert screen.session.notes == "bridge on R4; R5 warm"
+        saved = json.loads(session_file(case).read_text(encoding="utf-8"))
+        assert saved["notes"] == "bridge on R4; R5 warm"
 
         # export a report to a path the user types, and read it back
         target = tmp_path / "out" / "bench-report.md"
@@ -415,3 +424,51 @@ async def test_bench_notes_in_full_on_a_small_terminal(diag_home):
         await pilot.press("escape")
         await pilot.pause()
         assert app.screen is screen
+
+
+@sync
+async def test_the_advised_reading_is_marked_in_the_points_table(diag_home):
+    """The arrow sits on the advice's first reading, on that row only, and moves with it;
+    `g` takes the cursor there. The figures come before the description, so a 120-column
+    terminal shows the "off healthy" column whole."""
+    app = DiagApp(case_path=CASE)
+    async with app.run_test(size=(120, 36)) as pilot:
+        screen = await _open(pilot)
+        table = screen.query_one(PointsTable)
+
+        def marked():
+            return [(o.point, o.kind) for o in table.observables
+                    if str(table.get_cell(row_key(o.point, o.kind), "next")) == "→"]
+
+        first = screen.diagnosis.next[0]
+        assert marked() == [(first.point, first.kind)]
+        await pilot.press("g")
+        assert table.observable_at_cursor() == table.observables[
+            table.get_row_index(row_key(first.point, first.kind))]
+        _, _, unit = _unit(screen)
+        r = next(r for r in unit if (r.point, r.kind) == (first.point, first.kind))
+        await type_reading(pilot, r.point, r.kind, value_text(r.value))
+        await settle(pilot)
+        now = screen.diagnosis.next[0] if screen.diagnosis.next else None
+        assert marked() == ([(now.point, now.kind)] if now else [])
+        keys = [c.key.value for c in table.ordered_columns]
+        assert keys.index("off") < keys.index("where") == len(keys) - 1
+        off = sum(c.get_render_width(table) for c in table.ordered_columns[:keys.index("off") + 1])
+        assert off <= table.size.width, "the off-healthy column is cut at 120 columns"
+        if now:
+            assert f"next reading → {now.point} {now.kind}" in str(
+                screen.query_one("#next").content)
+
+
+def test_resume_dialog_says_when_in_words():
+    """The resume dialog's time is said as a person says it, in local time."""
+    from datetime import datetime, timedelta
+
+    from diag.tui.fmt import when
+
+    now = datetime(2026, 12, 4, 21, 0).astimezone()
+    assert when(now.replace(hour=14, minute=5).isoformat(), now) == "today at 14:05"
+    assert when((now - timedelta(days=1)).replace(hour=9, minute=30).isoformat(),
+                now) == "yesterday at 09:30"
+    assert when(now.replace(day=1, hour=8, minute=0).isoformat(), now) == "1 Dec 2026 at 08:00"
+    assert when("not a time", now) == "not a time"

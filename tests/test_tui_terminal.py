@@ -92,7 +92,7 @@ def test_diag_open_in_a_real_terminal(server, home, tmp_path):
         pane.wait_for("Before you power anything up")       # first start: cautions
         pane.wait_for("Charged capacitors")
         pane.keys("Enter")
-        screen = pane.wait_for("next reading ▸")             # predictions built, ranked
+        screen = pane.wait_for("next reading →")             # predictions built, ranked
         assert c.title in screen
         for p in c.points:
             assert p.id in screen
@@ -116,7 +116,7 @@ def test_diag_open_in_a_real_terminal(server, home, tmp_path):
         assert "with 1 reading" in screen
         assert "Before you power anything up" not in screen  # the marker was kept
         pane.keys("y")
-        screen = pane.wait_for("next reading ▸")
+        screen = pane.wait_for("next reading →")
         assert "1.25" in screen
         pane.keys("C-q")                                      # quits cleanly
         deadline = time.monotonic() + 15

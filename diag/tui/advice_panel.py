@@ -28,7 +28,7 @@ class NextReadingPanel(Static):
         n = diagnosis.next[0]
         more = ", ".join(f"{esc(x.point)} {x.kind}" for x in diagnosis.next[1:3])
         tail = f"\n[dim]then: {more}[/dim]" if more else ""
-        self.update(f"[b]next reading ▸ {esc(n.point)} {n.kind}[/b]  "
+        self.update(f"[b]next reading → {esc(n.point)} {n.kind}[/b]  "
                     f"[dim]({format_bits(n.bits)})[/dim]\n{esc(n.why)}{tail}")
 
 

@@ -164,7 +164,8 @@ class DiagApp(App[None]):
                 self.push_screen(CautionsScreen(cautions, defer))
 
         self.push_screen(HelpScreen(type(screen).__name__.replace("Screen", "").lower()
-                                    or "screen", keys), after)
+                                    or "screen", keys, getattr(screen, "HELP_WORDS", ())),
+                         after)
 
     def action_pick(self) -> None:
         from diag.tui.picker_screen import PickerScreen

@@ -3,6 +3,8 @@ user or case text for Textual markup (a part reference such as `I[R1]` is not ma
 
 from __future__ import annotations
 
+from datetime import datetime, timedelta
+
 from diag.core.values import format_value
 
 
@@ -35,3 +37,24 @@ def reading(x: float | None, unit: str) -> str:
             if ax >= scale:
                 break
     return f"{x / scale:.4g} {prefix}{sym}"
+
+
+def when(iso: str | None, now: datetime | None = None) -> str:
+    """An ISO 8601 time as a person says it, in local time: "today at 14:05",
+    "yesterday at 09:30", "3 Dec 2026 at 14:05"; the text itself when unreadable."""
+    try:
+        t = datetime.fromisoformat(str(iso))
+    except ValueError:
+        return str(iso)
+    now = now or datetime.now().astimezone()
+    if t.tzinfo is None:
+        t = t.astimezone()  # a naive time is taken as local
+    t = t.astimezone(now.tzinfo)
+    day = t.date()
+    if day == now.date():
+        head = "today"
+    elif day == now.date() - timedelta(days=1):
+        head = "yesterday"
+    else:
+        head = f"{t.day} {t:%b %Y}"
+    return f"{head} at {t:%H:%M}"

@@ -1,5 +1,5 @@
-"""The help screen: every key of the screen beneath with what it does, and the way to
-the safety cautions."""
+"""The help screen: every key of the screen beneath with what it does, what the words and
+marks on that screen mean (its HELP_WORDS), and the way to the safety cautions."""
 
 from __future__ import annotations
 
@@ -10,6 +10,8 @@ from textual.containers import VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import DataTable, Footer, Static
 
+from diag.tui.fmt import esc
+
 
 class HelpScreen(ModalScreen[str | None]):
     """Dismisses with "cautions" when the user asks for the cautions, else None."""
@@ -19,16 +21,21 @@ class HelpScreen(ModalScreen[str | None]):
         Binding("c", "cautions", "Safety cautions", id="help.cautions"),
     ]
 
-    def __init__(self, title: str, keys: list[tuple[str, str]]) -> None:
+    def __init__(self, title: str, keys: list[tuple[str, str]],
+                 words: tuple[tuple[str, str], ...] = ()) -> None:
         super().__init__()
         self.title_text = title
         self.keys = keys
+        self.words = words
 
     def compose(self) -> ComposeResult:
         with VerticalScroll(id="help-box", classes="dialog"):
-            yield Static(f"[b]Keys: {self.title_text}[/b]", classes="dialog-title")
-            table = DataTable(id="help-keys", cursor_type="none", show_header=True)
-            yield table
+            yield Static(f"[b]Help: {self.title_text}[/b]", classes="dialog-title")
+            if self.words:
+                yield Static("\n".join(f"[b]{esc(w)}[/b]  {esc(m)}" for w, m in self.words),
+                             id="help-words")
+                yield Static("[b]Keys[/b]", classes="dialog-title")
+            yield DataTable(id="help-keys", cursor_type="none", show_header=True)
             yield Static("ctrl+p opens the command palette with every action by name. "
                          "The mouse works on tables and buttons.\n"
                          "[b]c[/b] shows the safety cautions; esc closes this help.",

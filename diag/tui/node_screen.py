@@ -38,7 +38,7 @@ class NodeScreen(ModalScreen[None]):
             how = (f"current drawn from {esc(p.supply)}" if p.supply
                    else f"node [b]{esc(p.node)}[/b]" +
                    (f" against {esc(p.minus)}" if p.minus else ""))
-            yield Static(f"[b]Around {esc(p.id)}[/b]: {how}; probe at {esc(p.where)}",
+            yield Static(f"[b]Around {esc(p.id)}[/b]: {how}; probe: {esc(p.where)}",
                          classes="dialog-title")
             yield DataTable(id="node-parts", cursor_type="row", zebra_stripes=True)
             yield Static("[dim]esc: close[/dim]", classes="dialog-keys")

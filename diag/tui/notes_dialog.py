@@ -1,4 +1,7 @@
-"""Edits the session's free-text notes; returns the new text, or None to keep the old."""
+"""Edits the session's free-text notes; returns the new text (None when unchanged).
+
+Closing keeps what was typed, whichever key closes it: notes written at the bench are not
+lost to a reflex press of escape. ctrl+z in the text undoes edits."""
 
 from __future__ import annotations
 
@@ -11,8 +14,8 @@ from textual.widgets import Footer, Static, TextArea
 
 class NotesDialog(ModalScreen[str | None]):
     BINDINGS = [
-        Binding("ctrl+s", "keep", "Keep notes", id="notes.keep", priority=True),
-        Binding("escape", "cancel", "Cancel", id="notes.cancel"),
+        Binding("ctrl+s,escape", "keep", "Keep notes and close", id="notes.keep",
+                priority=True),
     ]
 
     def __init__(self, text: str) -> None:
@@ -23,11 +26,10 @@ class NotesDialog(ModalScreen[str | None]):
         with Vertical(id="notes-box", classes="dialog"):
             yield Static("[b]Session notes[/b]", classes="dialog-title")
             yield TextArea(self.text, id="notes-text", soft_wrap=True)
-            yield Static("[dim]ctrl+s: keep   esc: cancel[/dim]", classes="dialog-keys")
+            yield Static("[dim]esc or ctrl+s: keep and close   ctrl+z: undo an edit[/dim]",
+                         classes="dialog-keys")
         yield Footer()
 
     def action_keep(self) -> None:
-        self.dismiss(self.query_one("#notes-text", TextArea).text)
-
-    def action_cancel(self) -> None:
-        self.dismiss(None)
+        text = self.query_one("#notes-text", TextArea).text
+        self.dismiss(text if text != self.text else None)

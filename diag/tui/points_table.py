@@ -1,5 +1,7 @@
-"""The test-point table of the session screen: where to probe, the healthy band, the
-reading taken and how far it sits from healthy. Rows are keyed "POINT/kind"."""
+"""The test-point table of the session screen: the healthy band, the reading taken, how far
+it sits from healthy and where to probe (last, so that a narrow panel cuts the description
+rather than the figures). An arrow marks the advised next reading. Rows are keyed
+"POINT/kind"."""
 
 from __future__ import annotations
 
@@ -20,25 +22,40 @@ class PointsTable(DataTable):
     """One row per offered reading (point, kind), in case order. Given immutable data
     through `show`; the screen decides what to do when a row is selected."""
 
-    COLUMNS = (("point", "point"), ("kind", "kind"), ("where to probe", "where"),
-               ("healthy", "healthy"), ("reading", "reading"), ("off healthy", "off"))
+    COLUMNS = (("", "next"), ("point", "point"), ("kind", "kind"), ("healthy", "healthy"),
+               ("reading", "reading"), ("off healthy", "off"), ("where to probe", "where"))
+    NEXT_MARK = "→"
 
     def __init__(self, case: Case, **kwargs) -> None:
         super().__init__(cursor_type="row", zebra_stripes=True, **kwargs)
         self.case = case
         self.observables: tuple[Observable, ...] = case.observables
         self._shown: dict[str, tuple] = {}
+        self._marked: str | None = None
 
     def on_mount(self) -> None:
         for label, key in self.COLUMNS:
             if key == "where":
                 self.add_column(label, key=key, width=30 if self.app.size.width >= 110 else 14)
+            elif key == "next":
+                self.add_column(label, key=key, width=1)
             else:
                 self.add_column(label, key=key)
         for o in self.observables:
             where = self.case.point(o.point).where
-            self.add_row(Text(o.point, style="bold"), o.kind, Text(where, overflow="ellipsis"),
-                         "…", "", "", key=row_key(o.point, o.kind))
+            self.add_row("", Text(o.point, style="bold"), o.kind, "…", "", "",
+                         Text(where, overflow="ellipsis"), key=row_key(o.point, o.kind))
+
+    def mark_next(self, point: str | None, kind: str | None = None) -> None:
+        """Put the arrow on the advised next reading's row (None: on no row)."""
+        key = row_key(point, kind) if point else None
+        if key == self._marked:
+            return
+        if self._marked is not None:
+            self.update_cell(self._marked, "next", "")
+        if key is not None:
+            self.update_cell(key, "next", Text(self.NEXT_MARK, style="bold"))
+        self._marked = key
 
     def observable_at_cursor(self) -> Observable | None:
         if not self.row_count:

@@ -10,7 +10,7 @@ from textual.screen import ModalScreen
 from textual.widgets import Button, Footer, Static
 
 from diag.core.session import Session
-from diag.tui.fmt import esc
+from diag.tui.fmt import esc, when
 
 
 class ResumeDialog(ModalScreen[bool]):
@@ -28,7 +28,7 @@ class ResumeDialog(ModalScreen[bool]):
         n = len(s.readings)
         with Vertical(id="resume-box", classes="dialog"):
             yield Static("[b]Pick up where you left off?[/b]", classes="dialog-title")
-            yield Static(f"A session on this case was saved {esc(s.saved or s.started)} "
+            yield Static(f"A session on this case was saved {esc(when(s.saved or s.started))} "
                          f"with {n} reading{'s' if n != 1 else ''}"
                          f"{' and notes' if s.notes.strip() else ''}.")
             with Horizontal(classes="dialog-buttons"):

@@ -53,6 +53,22 @@ _TYPING = set("0123456789.-+O")  # "O": a meter's over-range "OL", typed as show
 
 class SessionScreen(Screen[None]):
     HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
+    # what the columns and marks mean, shown under the keys by help (?)
+    HELP_WORDS = (
+        ("healthy", "the band (about 1st to 99th percentile) a good unit reads, parts "
+                    "anywhere in tolerance, as this meter reads it (`diag check` prints "
+                    "the same)"),
+        ("off healthy", "how far the reading sits above (▲) or below (▼) that band"),
+        ("→", "the advised next reading; g moves the cursor to it"),
+        ("p, posterior", "how likely each suspect is, given the readings taken and how "
+                         "often each part fails; the rows, healthy included, add up to "
+                         "100 %"),
+        ("grp, ≡", "suspects with the same group number read alike at every point this "
+                   "case offers; ≡ marks a group of two or more, which only a bench check "
+                   "(d) or another kind of reading can split"),
+        ("bits", "what the next reading is expected to tell: 1 bit halves the doubt "
+                 "between suspects, under 0.01 bits tells almost nothing"),
+    )
 
     BINDINGS = [
         Binding("e", "enter_reading", "Type reading", id="session.enter"),
@@ -183,18 +199,18 @@ class SessionScreen(Screen[None]):
             # the same ranking as on screen, now with its next readings
             self._awaiting_advice = False
             self.diagnosis = msg.diagnosis
-            self.query_one(NextReadingPanel).show(msg.diagnosis)
+            self._show_next(msg.diagnosis)
             self._sync_bindings()
             return
         self.shown_serial = msg.serial
         self.diagnosis = msg.diagnosis
         self._awaiting_advice = not msg.advised
         self.query_one(SuspectsTable).show(msg.diagnosis)
-        panel = self.query_one(NextReadingPanel)
         if msg.advised:
-            panel.show(msg.diagnosis)
+            self._show_next(msg.diagnosis)
         else:
-            panel.update("[dim]next reading: working it out…[/dim]")
+            self.query_one(NextReadingPanel).update("[dim]next reading: working it out…[/dim]")
+            self.query_one("#points", PointsTable).mark_next(None)
         self.query_one(BenchNotesPanel).show(msg.diagnosis)
         self.query_one(FitBanner).show(msg.diagnosis)
         self._sync_bindings()
@@ -409,6 +425,13 @@ class SessionScreen(Screen[None]):
         self._autosave()
         self._message(what)
         self._sync_bindings()
+
+    def _show_next(self, d: Diagnosis) -> None:
+        """The advice panel, and the arrow on the advised row of the points table."""
+        self.query_one(NextReadingPanel).show(d)
+        first = d.next[0] if d.next else None
+        self.query_one("#points", PointsTable).mark_next(
+            first.point if first else None, first.kind if first else None)
 
     def _sync_bindings(self) -> None:
         """Refresh the footer only when what applies has changed (a footer refresh
