@@ -472,3 +472,44 @@ def test_resume_dialog_says_when_in_words():
                 now) == "yesterday at 09:30"
     assert when(now.replace(day=1, hour=8, minute=0).isoformat(), now) == "1 Dec 2026 at 08:00"
     assert when("not a time", now) == "not a time"
+
+
+@sync
+async def test_a_report_does_not_replace_an_earlier_one_unasked(diag_home, tmp_path):
+    """The default report name carries the date and time, so successive units' reports
+    sit side by side; typing the path of a file that exists asks for a second enter."""
+    import re
+    from pathlib import Path
+
+    app = DiagApp(case_path=CASE)
+    async with app.run_test(size=(120, 40)) as pilot:
+        screen = await _open(pilot)
+        await pilot.press("w")
+        await settle(pilot)
+        dialog = app.screen
+        assert isinstance(dialog, ExportDialog)
+        default = Path(dialog.query_one("#export-path").value)
+        assert re.fullmatch(rf"{Path(CASE).stem}-report-\d{{8}}-\d{{4}}\.md", default.name)
+        old = tmp_path / "unit-7.md"
+        old.write_text("earlier report", encoding="utf-8")
+        dialog.query_one("#export-path").value = ""
+        await pilot.press(*str(old), "enter")
+        await settle(pilot)
+        assert app.screen is dialog and old.read_text(encoding="utf-8") == "earlier report"
+        assert "already exists" in str(dialog.query_one("#export-error").content)
+        await pilot.press("enter")                     # asked twice: replaced
+        await settle(pilot)
+        assert app.screen is screen and app.last_report == old
+        assert "earlier report" not in old.read_text(encoding="utf-8")
+
+
+@sync
+async def test_help_explains_the_marks_of_the_session_screen(diag_home):
+    app = DiagApp(case_path=CASE)
+    async with app.run_test(size=(120, 40)) as pilot:
+        await _open(pilot)
+        await pilot.press("question_mark")
+        await settle(pilot)
+        words = str(app.screen.query_one("#help-words").content)
+        for term in ("healthy", "off healthy", "→", "posterior", "grp, ≡", "bits"):
+            assert term in words

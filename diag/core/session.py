@@ -347,6 +347,15 @@ def report_markdown(case, session: Session, diagnosis: Diagnosis | None,
     return "\n".join(lines) + "\n"
 
 
+def report_name(case_path: str, label: str | None = None, when: datetime | None = None
+                ) -> str:
+    """The default report file name: `<case stem>[-label]-report-<YYYYMMDD-HHMM>.md`,
+    local time, so that reports of successive units do not overwrite each other."""
+    when = when or datetime.now()
+    tail = "-" + re.sub(r"[^A-Za-z0-9_.-]+", "_", label) if label else ""
+    return f"{Path(case_path).stem}{tail}-report-{when:%Y%m%d-%H%M}.md"
+
+
 def export_report(path: Path | str, text: str) -> Path:
     """Write the report atomically; `~` is expanded. Raises DiagError when the folder
     cannot be written."""
@@ -361,4 +370,4 @@ def export_report(path: Path | str, text: str) -> Path:
 
 __all__ = ["Caution", "Session", "atomic_write_text", "band_offset", "export_report",
            "find_resumable", "load_cautions", "load_session", "new_session", "now_iso",
-           "report_markdown", "session_file"]
+           "report_markdown", "report_name", "session_file"]

@@ -1,6 +1,10 @@
-"""Asks where to write the Markdown report; returns the path typed, or None."""
+"""Asks where to write the Markdown report; returns the path typed, or None. A file that
+already exists is replaced only when enter is pressed again on the same path (the report
+of the previous unit is not lost to a reflex enter)."""
 
 from __future__ import annotations
+
+from pathlib import Path
 
 from textual import on
 from textual.app import ComposeResult
@@ -17,6 +21,7 @@ class ExportDialog(ModalScreen[str | None]):
         super().__init__()
         self.default_path = default_path
         self.error = error
+        self._replace: str | None = None  # the existing path enter was pressed on once
 
     def compose(self) -> ComposeResult:
         with Vertical(id="export-box", classes="dialog"):
@@ -31,6 +36,11 @@ class ExportDialog(ModalScreen[str | None]):
         path = event.value.strip()
         if not path:
             self.query_one("#export-error", Static).update("type a file path")
+            return
+        if Path(path).expanduser().exists() and path != self._replace:
+            self._replace = path
+            self.query_one("#export-error", Static).update(
+                f"{path} already exists: enter again to replace it, or change the name")
             return
         self.dismiss(path)
 

@@ -33,7 +33,7 @@ from textual.worker import get_current_worker
 
 from diag.core.engine import Band, Diagnosis, Engine, Reading
 from diag.core.errors import DiagError
-from diag.core.session import Session, new_session
+from diag.core.session import Session, new_session, report_name
 from diag.tui.advice_panel import BenchNotesPanel, NextReadingPanel
 from diag.tui.fit_banner import FitBanner
 from diag.tui.fmt import esc
@@ -92,6 +92,7 @@ class SessionScreen(Screen[None]):
         super().__init__()
         self.engine = engine
         self.case = engine.case
+        self.label = label
         self.session = session if session is not None else new_session(
             self.case, readings, label=label)
         self.bands: dict[tuple[str, str], Band] | None = None
@@ -390,7 +391,7 @@ class SessionScreen(Screen[None]):
     def action_export(self, error: str = "") -> None:
         from diag.tui.export_dialog import ExportDialog
 
-        default = str(Path.cwd() / f"{Path(self.case.path).stem}-report.md")
+        default = str(Path.cwd() / report_name(self.case.path, self.label))
         self.app.push_screen(ExportDialog(default, error), self._write_report)
 
     def _write_report(self, path: str | None) -> None:
