@@ -6,11 +6,13 @@ from __future__ import annotations
 import csv
 import io
 import json
+import re
 from pathlib import Path
 
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
+from tui_support import fixture_diag_home, fixture_shared_cache, settle, sync  # noqa: F401
 
 from diag.cli import main
 from diag.core.case import load_case
@@ -18,10 +20,14 @@ from diag.core.engine import Engine, Reading
 from diag.core.readings import parse_file
 from diag.core.rules import load_rules
 from diag.core.triage import (
+    CSV_CAUTION,
+    CSV_FIELDS,
+    CSV_REFUSED,
     BatchScorer,
     caution_lines,
     groups_batch,
     kernel_loglik,
+    refused_rows,
     table_loglik,
     to_csv,
     to_json,
@@ -299,9 +305,7 @@ def test_reports_carry_the_cautions_and_spec_json(engine):
         assert c in md
     assert "row 4" in md
     text = to_csv(res, cautions)
-    lines = text.splitlines()
-    assert lines[:len(cautions)] == [f"# caution: {c}" for c in cautions]
-    rows = list(csv.DictReader(io.StringIO("\n".join(lines[len(cautions):]))))
+    rows = [r for r in csv.DictReader(io.StringIO(text)) if not r["unit"].startswith("#")]
     assert [r["unit"] for r in rows] == list(units)
     obj = to_json(res, "cases/sounder-driver.yaml", cautions)
     assert obj["cautions"] == cautions
@@ -333,11 +337,14 @@ def test_cli_json_reports_bad_rows_and_triages_the_rest(engine, tmp_path, capsys
     out = capsys.readouterr()
     obj = json.loads(out.out)
     assert [u["unit"] for u in obj["units"]] == list(units)
-    assert "row 4: unknown point 'TP99'" in out.err  # header is row 1
-    assert "row 5: TP3: '4kk' is not a value" in out.err
+    assert "row 4 (unit A00): unknown point 'TP99'" in out.err  # header is row 1
+    assert "row 5 (unit A01): TP3: '4kk' is not a value" in out.err
     rf = parse_file(batch, engine.case)
     assert obj["summary"]["rows_rejected"] == len(rf.errors) >= 2
-    assert obj["summary"]["rejected"] == list(rf.rejected)
+    # every refused row names a unit of the batch, so each is listed with its unit
+    assert obj["summary"]["rejected"] == []
+    listed = [m for u in obj["units"] for m in u["rejected"]]
+    assert len(listed) == len(rf.errors)
     for u in obj["units"]:
         d = engine.diagnose(rf.units[u["unit"]])
         assert [s["fault"] for s in u["suspects"][:3]] == [s.fault for s in d.suspects[:3]]
@@ -355,7 +362,8 @@ def test_cli_out_formats(engine, tmp_path, capsys):
     assert json.loads((tmp_path / "report.json").read_text())["summary"]["units"] == len(units)
     assert main(["triage", str(CASE), str(batch), "--out", str(tmp_path / "r.txt"),
                  "--format", "csv"]) == 0
-    assert (tmp_path / "r.txt").read_text().startswith("# caution:")
+    assert (tmp_path / "r.txt").read_text().startswith("unit,status,")
+    assert (tmp_path / "r.txt").read_text().splitlines()[-1].startswith("# caution,")
     capsys.readouterr()
 
 
@@ -365,6 +373,215 @@ def test_cli_errors(tmp_path, capsys):
     with pytest.raises(SystemExit) as exc:
         main(["triage", str(CASE), str(tmp_path / "x.csv"), "--format", "xml"])
     assert exc.value.code == 2
+
+
+def _batch_with_refused_rows(path: Path, units: dict[str, list[Reading]]
+                             ) -> dict[int, str | None]:
+    """Write `units` unit by unit with rows the readings parser refuses, at row numbers
+    counted here as the file is written (header = row 1); return {row: the unit the row
+    names, None for a row that names none}. Z77 is a unit none of whose rows is usable."""
+    lines = ["unit,point,kind,value"]
+    bad: dict[int, str | None] = {}
+    first: dict[str, int] = {}
+    for n, rs in units.items():
+        for r in rs:
+            lines.append(f"{n},{r.point},{r.kind},{r.value!r}")
+            first.setdefault(n, len(lines))
+        if n == "A01":
+            lines.append("A01,TP99,dc,1.0")  # unknown point
+            bad[len(lines)] = "A01"
+        if n == "A03":
+            lines.append("A03,TP4,dc,1,25")  # a decimal comma: five fields
+            bad[len(lines)] = "A03"
+        if n == "A02":
+            r = rs[0]  # given again: the first row of A02 is the one left out
+            lines.append(f"A02,{r.point},{r.kind},{r.value!r}")
+            bad[first["A02"]] = "A02"
+    lines.append(",TP2,dc,12.0")  # no unit name
+    bad[len(lines)] = None
+    lines.append("Z77,TP2,dc,abc")  # the only row of Z77, not a value
+    bad[len(lines)] = "Z77"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return bad
+
+
+def _row_of(message: str) -> int:
+    return int(re.search(r"row (\d+)", message).group(1))
+
+
+def test_refused_rows_name_their_unit_in_every_output(engine, tmp_path, capsys):
+    # The row numbers and units come from the file as written above, not from the code.
+    units = _units(engine)
+    batch = tmp_path / "batch.csv"
+    bad = _batch_with_refused_rows(batch, units)
+    assert main(["triage", str(CASE), str(batch), "--json"]) == 0
+    out = capsys.readouterr()
+    obj = json.loads(out.out)
+    err = out.err.splitlines()
+    assert len(err) == len(bad)  # one line per refused row
+    for row, unit in bad.items():
+        want = f"row {row} (unit {unit}): " if unit else f"row {row}: no unit name"
+        assert sum(want in line for line in err) == 1, want
+    # JSON: each unit's refused rows with the unit; the others in the summary
+    by_unit = {u["unit"]: sorted(_row_of(m) for m in u["rejected"]) for u in obj["units"]}
+    for name in units:
+        assert by_unit[name] == sorted(r for r, u in bad.items() if u == name)
+    s = obj["summary"]
+    assert s["rows_rejected"] == len(bad)
+    assert s["units_with_rows_rejected"] == ["A01", "A02", "A03"]  # batch order
+    assert s["not_triaged"] == ["Z77"]
+    assert sorted(_row_of(m) for m in s["rejected"]) == sorted(
+        r for r, u in bad.items() if u not in units)
+    assert "Z77" not in by_unit
+    # --out reports carry the messages with their units, once each
+    for fmt in ("md", "csv", "json"):
+        rep = tmp_path / f"report.{fmt}"
+        assert main(["triage", str(CASE), str(batch), "--out", str(rep)]) == 0
+        text = rep.read_text(encoding="utf-8")
+        for row, unit in bad.items():
+            if unit:
+                assert text.count(f"row {row} (unit {unit}): ") == 1, (fmt, row)
+        assert f"{len(bad)} refused rows listed in it" in capsys.readouterr().err
+    md = (tmp_path / "report.md").read_text(encoding="utf-8")
+    a01 = next(line for line in md.splitlines() if line.startswith("| A01 |"))
+    row_a01 = next(r for r, u in bad.items() if u == "A01")
+    assert f"row {row_a01} refused" in a01
+    assert "Not triaged, no row of theirs could be used: Z77." in md
+    rows = list(csv.DictReader(io.StringIO((tmp_path / "report.csv").read_text())))
+    a03 = next(r for r in rows if r["unit"] == "A03")
+    assert a03["rows_refused"] == str(next(r for r, u in bad.items() if u == "A03"))
+
+
+def test_refused_rows_shown_once_on_a_terminal(engine, tmp_path, capsys, monkeypatch):
+    # On a terminal the messages go to stderr once and the report counts them; with
+    # stdout sent elsewhere (a file, a pipe) the report lists them itself.
+    import sys
+
+    units = _units(engine)
+    batch = tmp_path / "batch.csv"
+    bad = _batch_with_refused_rows(batch, units)
+    assert main(["triage", str(CASE), str(batch)]) == 0
+    piped = capsys.readouterr()
+    monkeypatch.setattr(sys.stdout, "isatty", lambda: True)
+    monkeypatch.setattr(sys.stderr, "isatty", lambda: True)
+    assert main(["triage", str(CASE), str(batch)]) == 0
+    tty = capsys.readouterr()
+    assert tty.err == piped.err
+    for line in tty.err.splitlines():
+        msg = line.removeprefix("diag: ")
+        assert (tty.err + tty.out).count(msg) == 1
+        assert piped.out.count(msg) == 1
+    assert f"{len(bad)} rows refused, each shown above with its row and unit" in tty.out
+    assert f"{len(bad)} rows of the batch file refused" in tty.out
+
+
+def test_single_unit_file_refused_rows_belong_to_the_unit(engine, tmp_path, capsys):
+    # A one-unit readings file given to triage: its refused rows are the unit's, as
+    # `diagnose --json` lists them for the same file.
+    rs = _units(engine)["A00"]
+    f = tmp_path / "bench7.csv"
+    f.write_text("point,kind,value\n" + "".join(f"{r.point},{r.kind},{r.value!r}\n"
+                                                for r in rs) + "TP99,dc,1\n", "utf-8")
+    assert main(["triage", str(CASE), str(f), "--json"]) == 0
+    out = capsys.readouterr()
+    tri = json.loads(out.out)
+    assert f"row {len(rs) + 2} (unit bench7): unknown point 'TP99'" in out.err
+    main(["diagnose", str(CASE), str(f), "--json"])
+    diag_json = json.loads(capsys.readouterr().out)
+    unit = tri["units"][0]
+    assert set(diag_json) <= set(unit)  # the same fields as diagnose, and more
+    assert [_row_of(m) for m in unit["rejected"]] == [_row_of(m) for m in
+                                                       diag_json["rejected"]]
+    assert tri["summary"]["rejected"] == []
+
+
+def test_refused_rows_tie_only_what_the_row_names(engine):
+    # A row that names no unit, and a wrong-length row whose unit column is not the
+    # first (its cells cannot be trusted), stay unplaced; a plain message too.
+    from diag.core.readings import parse_text
+
+    text = "point,unit,value\nTP2,B1,12.0\nTP3,B1,2,5\nTP2,,12\nTP99,B2,1\nTP98,B1,1\n"
+    rf = parse_text(text, engine.case, file="b.csv")
+    got = {r.row: r.unit for r in refused_rows(rf.errors, text)}
+    assert got == {3: None, 4: None, 5: "B2", 6: "B1"}
+    assert refused_rows(["b.csv: something"])[0].unit is None
+    res = triage(engine, rf.units, refused_rows(rf.errors, text))
+    assert [r.row for r in res.unit("B1").refused] == [6]
+    assert [r.row for r in res.unplaced] == [3, 4, 5]
+    assert res.summary["not_triaged"] == ["B2"]
+
+    from diag.tui.batch_screen import summary_text
+    assert "Rows refused (left out): row 3, row 4, row 5 (B2), row 6 (B1)" in summary_text(res)
+
+
+def test_csv_report_reads_back_cell_by_cell(engine):
+    # Python's csv module as the outside reader: every line parses, the header comes
+    # first, each caution (they hold commas) and each refused row arrive whole in one
+    # cell, and the cautions close the file.
+    units = _units(engine)
+    cautions = caution_lines(load_rules())
+    assert any("," in c for c in cautions)
+    msg = "batch.csv:4: row 4 (unit A00): unknown point 'TP99' (points: TP1, TP2)"
+    res = triage(engine, units, rejected=refused_rows([msg]))
+    rows = list(csv.reader(io.StringIO(to_csv(res, cautions))))
+    assert tuple(rows[0]) == CSV_FIELDS
+    body = [r for r in rows[1:] if r]
+    units_rows = [r for r in body if not r[0].startswith("#")]
+    assert [r[0] for r in units_rows] == list(units)
+    assert all(len(r) == len(CSV_FIELDS) for r in units_rows)
+    tail = body[len(units_rows):]
+    assert tail == [[CSV_REFUSED, msg]] + [[CSV_CAUTION, c] for c in cautions]
+
+
+def test_every_report_closes_with_the_cautions(engine):
+    # README: the cautions "close every exported report". The session report is the
+    # reference the triage reports follow: Safety is its last section.
+    from diag.core.session import load_cautions, new_session, report_markdown
+
+    rules = load_rules()
+    units = _units(engine)
+    res = triage(engine, units)
+    cautions = caution_lines(rules)
+    md = to_markdown(res, "cases/sounder-driver.yaml", cautions)
+    heads = [line for line in md.splitlines() if line.startswith("## ")]
+    assert heads[-1] == "## Safety" and "## Units" in heads
+    tail = md.split("## Safety")[1]
+    assert all(c in tail for c in cautions)
+    assert md.rstrip().endswith(cautions[-1])
+    assert list(to_json(res, "x.yaml", cautions))[-1] == "cautions"
+    lines = to_csv(res, cautions).splitlines()
+    assert [next(csv.reader([line]))[1] for line in lines[-len(cautions):]] == cautions
+    c, defer = load_cautions(rules)
+    session = report_markdown(engine.case, new_session(engine.case),
+                              engine.diagnose(units["A00"]), c, defer)
+    assert [x for x in session.splitlines() if x.startswith("## ")][-1] == "## Safety"
+
+
+def test_markdown_names_the_units_of_each_fault(engine):
+    # Bookkeeping against the per-unit results: each fault's row lists the units it
+    # leads, a healthy unit reads "no fault found", suspects below SHOWN_P are left out.
+    from diag.core.triage import SHOWN_P
+
+    res = triage(engine, _units(engine))
+    md = to_markdown(res, "cases/sounder-driver.yaml")
+    for r in res.summary["by_fault"]:
+        want = [u.unit for u in res.units if u.status == "fault" and u.top.fault == r["fault"]]
+        line = next(x for x in md.splitlines() if x.startswith(f"| {r['fault']} |"))
+        assert line.rstrip(" |").endswith(", ".join(want))
+    for u in res.units:
+        line = next(x for x in md.splitlines() if x.startswith(f"| {u.unit} |"))
+        if u.status == "healthy":
+            assert "| no fault found" in line
+        for sus in u.diagnosis.suspects[1:3]:
+            assert (f"{sus.fault} {sus.p:.2f}" in line) == (sus.p >= SHOWN_P)
+    # look-alikes of a good unit are named while they round to at least 0.1 unit
+    look = res.summary["healthy_lookalikes"]
+    para = next(x for x in md.splitlines() if x.startswith("These units read like"))
+    named = re.findall(r"(\S+:\S+) (\d+\.\d)", para.split("sum of p over them): ")[1])
+    assert named and all(float(e) >= 0.1 for _, e in named)
+    assert [f for f, _ in named] == [r["fault"] for r in look[:len(named)]]
+    rest = len(look) - len(named)
+    assert (f" and {rest} more." in para) == (rest > 0)
 
 
 @pytest.mark.ngspice
@@ -411,3 +628,24 @@ def test_progress_bar_on_a_terminal(engine, tmp_path, capsys, monkeypatch):
     assert main(["triage", str(CASE), str(batch), "--json"]) == 0
     err = capsys.readouterr().err
     assert f"triage {len(units)} units [" in err and "100%" in err
+
+
+@sync
+async def test_batch_screen_marks_a_unit_that_lost_rows(engine, diag_home):
+    # The interface shows which unit a refused row belonged to (Pilot, no sleeps).
+    from textual.widgets import DataTable
+
+    from diag.core.triage import RefusedRow
+    from diag.tui.app import DiagApp
+    from diag.tui.batch_screen import BatchScreen
+
+    msg = "b.csv:9: row 9 (unit A01): unknown point 'TP99'"
+    res = triage(engine, _units(engine), rejected=[RefusedRow(9, "A01", msg)])
+    app = DiagApp(batch=res)
+    async with app.run_test(size=(160, 40)) as pilot:
+        await settle(pilot)
+        assert isinstance(app.screen, BatchScreen)
+        table = app.screen.query_one("#batch-units", DataTable)
+        status = {str(k.value): str(table.get_cell(k, "status")) for k in table.rows}
+        assert status["A01"].endswith(" · 1 row refused")
+        assert all("refused" not in v for k, v in status.items() if k != "A01")

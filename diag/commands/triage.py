@@ -3,9 +3,11 @@
 
 Markdown to stdout by default, `--json` for scripts (SPEC section 5). `--out FILE` writes
 the report there instead (format from `--format`, else from the file's extension).
-Malformed rows are reported on stderr with their row numbers and the rest is triaged.
-A progress bar goes to stderr when it is a terminal and the batch is long. Every report
-carries the safety cautions. The core is diag/core/triage.py.
+Refused rows are reported on stderr, once each, with their row number and unit, and the
+rest is triaged. The report lists them too, except when it goes to the same terminal as
+stderr: it then counts them and points to the messages above. A progress bar goes to
+stderr when it is a terminal and the batch is long. Every report closes with the safety
+cautions. The core is diag/core/triage.py.
 """
 
 from __future__ import annotations
@@ -73,7 +75,14 @@ def run(args: argparse.Namespace) -> int:
     from diag.core.engine import Engine
     from diag.core.readings import parse_file
     from diag.core.rules import load_rules
-    from diag.core.triage import caution_lines, to_csv, to_json, to_markdown, triage
+    from diag.core.triage import (
+        caution_lines,
+        refused_rows,
+        to_csv,
+        to_json,
+        to_markdown,
+        triage,
+    )
 
     if args.top is not None and args.top < 1:
         args._parser.error("--top must be at least 1")
@@ -83,10 +92,17 @@ def run(args: argparse.Namespace) -> int:
     case = load_case(args.case)
     eng = Engine(case, rules, K=args.draws, seed=args.seed)
     rf = parse_file(args.batch, case, rules)
-    units = rf.units if rf.batch else {Path(args.batch).stem: rf.single()}
-    rejected = rf.rejected
-    for msg in rejected:
-        print(f"diag: {msg}", file=sys.stderr)
+    if rf.batch:
+        units = rf.units
+        # the unit each refused row names (parse_file has read the file as UTF-8 text)
+        text = Path(args.batch).read_text(encoding="utf-8") if rf.errors else None
+        rejected = refused_rows(rf.errors, text)
+    else:
+        name = Path(args.batch).stem
+        units = {name: rf.single()}
+        rejected = refused_rows(rf.errors, unit=name)
+    for r in rejected:
+        print(f"diag: {r.text}", file=sys.stderr)
     bar = None
     if sys.stderr.isatty() and len(units) >= PROGRESS_MIN_UNITS:
         pre = _Bar("predictions")
@@ -104,10 +120,15 @@ def run(args: argparse.Namespace) -> int:
     elif fmt == "csv":
         text = to_csv(res, cautions)
     else:
-        text = to_markdown(res, args.case, cautions, top=args.top or 3)
+        # on a terminal the refused rows are on screen already (stderr, above)
+        shown = not args.out and sys.stdout.isatty() and sys.stderr.isatty()
+        text = to_markdown(res, args.case, cautions, top=args.top or 3,
+                           list_refused=not shown)
     if args.out:
         Path(args.out).write_text(text, encoding="utf-8")
-        print(f"wrote {args.out} ({len(res.units)} units)", file=sys.stderr)
+        refused = (f"; {len(rejected)} refused row{'s' if len(rejected) != 1 else ''} "
+                   "listed in it" if rejected else "")
+        print(f"wrote {args.out} ({len(res.units)} units{refused})", file=sys.stderr)
     else:
         sys.stdout.write(text)
     if args.browse:

@@ -13,9 +13,13 @@ cached, in about 0.3 GiB. Most of it is the kernel product over units x hypothes
 readings; a meter shows a few digits, so readings repeat across a batch and
 `table_loglik` computes each distinct reading's kernel factors once and gathers them.
 
-`to_json`, `to_markdown` and `to_csv` render a TriageResult; every rendering carries the
-safety cautions given to it (rules/cautions.yaml through load_rules()["cautions"]).
-Values are volts (amperes at supply points); p are posterior probabilities.
+Refused rows of the batch file (`refused_rows`) are tied to the unit their row names and
+kept with that unit; rows that belong to no triaged unit are kept in the summary.
+
+`to_json`, `to_markdown` and `to_csv` render a TriageResult; every rendering closes with
+the safety cautions given to it (rules/cautions.yaml through load_rules()["cautions"]),
+as the session report does. Values are volts (amperes at supply points); p are posterior
+probabilities.
 """
 
 from __future__ import annotations
@@ -46,14 +50,16 @@ LOOKALIKES = 5  # look-alike faults named under "No fault found" in the Markdown
 class UnitResult:
     """One unit: its readings, its diagnosis, its status (`fault`; `healthy`: the leading
     suspect is the healthy circuit or cannot be told from it by the offered readings, so
-    no fault is found; `no-fit`: no hypothesis explains the readings) and the
-    observables it lacks that the rest of the batch measured (`missing`)."""
+    no fault is found; `no-fit`: no hypothesis explains the readings), the
+    observables it lacks that the rest of the batch measured (`missing`) and the rows of
+    the batch file refused for it (`refused`)."""
 
     unit: str
     readings: tuple[Reading, ...]
     diagnosis: Diagnosis
     status: str
     missing: tuple[tuple[str, str], ...] = ()
+    refused: tuple[RefusedRow, ...] = ()
 
     @property
     def incomplete(self) -> bool:
@@ -66,14 +72,14 @@ class UnitResult:
 
 @dataclass(frozen=True)
 class TriageResult:
-    """A triaged batch. `units` in order of first appearance; `rejected` holds the
-    malformed rows of the batch file as messages naming their row; `summary` is the
-    JSON-ready summary (see `summarise`)."""
+    """A triaged batch. `units` in order of first appearance; `rejected` holds every
+    refused row of the batch file, in file order (each unit's own are also on the unit);
+    `summary` is the JSON-ready summary (see `summarise`)."""
 
     case: Case
     engine: Engine
     units: tuple[UnitResult, ...]
-    rejected: tuple[str, ...] = ()
+    rejected: tuple[RefusedRow, ...] = ()
     summary: dict = field(default_factory=dict)
 
     def unit(self, name: str) -> UnitResult:
@@ -81,6 +87,72 @@ class TriageResult:
             if u.unit == name:
                 return u
         raise KeyError(name)
+
+    @property
+    def unplaced(self) -> tuple[RefusedRow, ...]:
+        """Refused rows that belong to no triaged unit: rows that name no unit, and rows
+        of a unit none of whose rows could be used."""
+        names = {u.unit for u in self.units}
+        return tuple(r for r in self.rejected if r.unit not in names)
+
+
+@dataclass(frozen=True)
+class RefusedRow:
+    """A row of the batch file that was left out. `row` is its number (header = row 1;
+    None when the message gives none), `unit` the unit name the row gives (None when it
+    gives none) and `text` the message: file, row, unit, what is wrong, what to do."""
+
+    row: int | None
+    unit: str | None
+    text: str
+
+
+def refused_rows(errors: Sequence[DiagError | RefusedRow | str], text: str | None = None,
+                 unit: str | None = None) -> tuple[RefusedRow, ...]:
+    """The refused rows of a readings file, each tied to the unit its row names.
+
+    `errors` are readings.ReadingsFile.errors (DiagError, `line` = row); `text` is the
+    batch file's content, whose `unit` column names each row's unit; `unit` ties every
+    row to one unit instead (a one-unit file). A plain message string stays unplaced.
+    The message gains the unit: "batch.csv:37: row 37 (unit U014): ..."."""
+    units = _row_units(text) if text is not None and unit is None else {}
+    out = []
+    for e in errors:
+        if isinstance(e, RefusedRow):
+            out.append(e)
+        elif isinstance(e, DiagError):
+            name = unit if unit is not None else units.get(e.line or 0)
+            where = e.where or (f"row {e.line}" if e.line else None)
+            if name:
+                where = f"{where} (unit {name})" if where else f"unit {name}"
+            msg = DiagError(e.message, file=e.file, line=e.line, where=where, hint=e.hint)
+            out.append(RefusedRow(e.line, name or None, str(msg)))
+        else:
+            out.append(RefusedRow(None, None, str(e)))
+    return tuple(sorted(out, key=lambda r: (r.row is None, r.row or 0)))
+
+
+def _row_units(text: str) -> dict[int, str]:
+    """Row number (header = row 1, as readings.py counts) -> the unit name in the row's
+    `unit` column, for a batch file's text; {} when it has no `unit` column. Blank rows
+    and `#` comment rows name no unit. A row with the wrong number of fields still names
+    its unit when the unit is the first column."""
+    header: list[str] | None = None
+    col = -1
+    out: dict[int, str] = {}
+    for i, raw in enumerate(csv.reader(io.StringIO(text.lstrip("\ufeff"))), start=1):
+        cells = [c.strip() for c in raw]
+        if not any(cells) or cells[0].startswith("#"):
+            continue
+        if header is None:
+            header = [c.lower() for c in cells]
+            if "unit" not in header:
+                return {}
+            col = header.index("unit")
+            continue
+        if col < len(cells) and cells[col] and (col == 0 or len(cells) == len(header)):
+            out[i] = cells[col]
+    return out
 
 
 def _status(d: Diagnosis) -> str:
@@ -612,13 +684,15 @@ class BatchScorer:
 
 
 def triage(engine: Engine, units: Mapping[str, Sequence[Reading]],
-           rejected: Sequence[str] = (),
+           rejected: Sequence[RefusedRow | DiagError | str] = (),
            progress: Callable[[float], None] | None = None,
            cancelled: Callable[[], bool] | None = None,
            healthy_prior: float | None = None, threads: int | None = None) -> TriageResult:
     """Triage a batch: `units` maps unit id -> its readings (insertion order = order of
-    first appearance in the file); `rejected` are the row messages of malformed rows;
-    `threads` as in `rank_batch`."""
+    first appearance in the file); `rejected` are the refused rows of the file
+    (`refused_rows`, which ties each to its unit; a DiagError or a message given here
+    stays unplaced); `threads` as in `rank_batch`."""
+    refused = refused_rows(rejected)
     names = list(units)
     readings = [tuple(units[n]) for n in names]
     measured = set()
@@ -629,14 +703,19 @@ def triage(engine: Engine, units: Mapping[str, Sequence[Reading]],
     with _gc_paused():
         diags = rank_batch(engine, readings, progress=progress, cancelled=cancelled,
                            healthy_prior=healthy_prior, threads=threads)
+        own: dict[str, list[RefusedRow]] = {}
+        for r in refused:
+            if r.unit is not None:
+                own.setdefault(r.unit, []).append(r)
         results = []
         for name, rs, d in zip(names, readings, diags, strict=True):
             have = {(r.point, r.kind) for r in rs}
             results.append(UnitResult(unit=name, readings=rs, diagnosis=d,
                                       status=_status(d),
-                                      missing=tuple(k for k in order if k not in have)))
+                                      missing=tuple(k for k in order if k not in have),
+                                      refused=tuple(own.get(name, ()))))
         res = TriageResult(case=engine.case, engine=engine, units=tuple(results),
-                           rejected=tuple(rejected))
+                           rejected=refused)
         object.__setattr__(res, "summary", summarise(res))
     return res
 
@@ -646,17 +725,23 @@ def summarise(res: TriageResult) -> dict[str, Any]:
 
     by_fault / by_part: units whose leading suspect is that fault / involves that part
     (units that fit and are not healthy), with `expected`, the sum over those units of the
-    posterior p of the fault (of every fault involving the part); most units first.
+    posterior p of the fault (of every fault involving the part), and by_fault with the
+    units' names (`unit_names`, batch order); most units first. Refused rows:
+    `rows_rejected` counts them all, `units_with_rows_rejected` names the units that lost
+    rows (each unit's own rows are in its `rejected` list), `not_triaged` the units none
+    of whose rows could be used, `rejected` the rows that belong to no triaged unit.
     """
     hyps = {h.id: h for h in res.engine.ensemble.hypotheses}
     by_fault: Counter = Counter()
     by_part: Counter = Counter()
+    names: dict[str, list[str]] = {}  # fault id -> the units it leads, in batch order
     exp: dict[str, float] = {}  # fault id -> sum of its p over the faulty units
     for u in res.units:
         if u.status != "fault":
             continue
         top = u.top.fault
         by_fault[top] += 1
+        names.setdefault(top, []).append(u.unit)
         for ref in _parts(hyps, top):
             by_part[ref] += 1
         get = exp.get
@@ -675,6 +760,10 @@ def summarise(res: TriageResult) -> dict[str, Any]:
                 for k, n in counts.items()]
         rows.sort(key=lambda r: (-r["units"], -r["expected"], r[key]))
         return rows
+
+    fault_rows = table(by_fault, exp_fault, "fault")
+    for r in fault_rows:
+        r["unit_names"] = names[r["fault"]]
 
     # faults a "no fault found" unit may still have: those its readings cannot tell from
     # the healthy circuit (healthy's group in its diagnosis), p summed over those units
@@ -695,7 +784,7 @@ def summarise(res: TriageResult) -> dict[str, Any]:
         "units": len(res.units),
         "rows_rejected": len(res.rejected),
         "faulty": sum(u.status == "fault" for u in res.units),
-        "by_fault": table(by_fault, exp_fault, "fault"),
+        "by_fault": fault_rows,
         "by_part": table(by_part, exp_part, "part"),
         "no_fit": [u.unit for u in res.units if u.status == "no-fit"],
         "healthy": [u.unit for u in res.units if u.status == "healthy"],
@@ -705,7 +794,9 @@ def summarise(res: TriageResult) -> dict[str, Any]:
         "healthy_split_by": split,
         "incomplete": [{"unit": u.unit, "missing": [f"{p} {k}" for p, k in u.missing]}
                        for u in res.units if u.incomplete],
-        "rejected": list(res.rejected),
+        "units_with_rows_rejected": [u.unit for u in res.units if u.refused],
+        "not_triaged": list(dict.fromkeys(r.unit for r in res.unplaced if r.unit)),
+        "rejected": [r.text for r in res.unplaced],
     }
 
 
@@ -737,7 +828,9 @@ def caution_lines(rules) -> list[str]:
 def to_json(res: TriageResult, case_path: str, cautions: Sequence[str] = (),
             top: int | None = None) -> dict[str, Any]:
     """SPEC section 5: {"case", "units": [diagnose object + "unit"], "summary"}; extra
-    per-unit fields `status` and `missing`, and a top-level `cautions` list."""
+    per-unit fields `status` and `missing`, the unit's refused rows at the head of its
+    `rejected` list (as `diagnose --json` gives a file's refused rows), and a top-level
+    `cautions` list, last."""
     units = []
     for u in res.units:
         obj = {"unit": u.unit}
@@ -745,9 +838,19 @@ def to_json(res: TriageResult, case_path: str, cautions: Sequence[str] = (),
         obj["unit"] = u.unit
         obj["status"] = u.status
         obj["missing"] = [f"{p} {k}" for p, k in u.missing]
+        obj["rejected"] = [r.text for r in u.refused] + obj["rejected"]
         units.append(obj)
     return {"case": case_path, "units": units, "summary": res.summary,
             "cautions": list(cautions)}
+
+
+# How each status reads in the Markdown report (the JSON keeps the STATUSES words).
+STATUS_TEXT = {"fault": "fault", "healthy": "no fault found", "no-fit": "no fit"}
+# Suspects after the first are listed in the Markdown units table from this p up (below
+# it they would show as 0.00).
+SHOWN_P = 0.005
+# Unit names listed per fault in the Markdown report before "and N more".
+NAMES_SHOWN = 12
 
 
 def _next_text(d: Diagnosis) -> str:
@@ -755,38 +858,76 @@ def _next_text(d: Diagnosis) -> str:
 
 
 def _suspects_text(d: Diagnosis, top: int) -> str:
-    return ", ".join(f"{s.fault} {s.p:.2f}" for s in d.suspects[:top])
+    shown = [s for i, s in enumerate(d.suspects[:top]) if i == 0 or s.p >= SHOWN_P]
+    return ", ".join(f"{s.fault} {s.p:.2f}" for s in shown)
+
+
+def _names(names: Sequence[str], most: int = NAMES_SHOWN) -> str:
+    more = f" and {len(names) - most} more" if len(names) > most else ""
+    return ", ".join(names[:most]) + more
+
+
+def _rows_word(n: int) -> str:
+    return f"{n} row{'s' if n != 1 else ''}"
+
+
+def _row_mark(rows: Sequence[RefusedRow]) -> str:
+    """'row 50 refused', 'rows 50, 61 refused' for a unit's refused rows."""
+    nums = [str(r.row) for r in rows if r.row is not None]
+    if not nums:
+        return f"{_rows_word(len(rows))} refused"
+    return f"row{'s' if len(nums) > 1 else ''} {', '.join(nums)} refused"
 
 
 def to_markdown(res: TriageResult, case_path: str, cautions: Sequence[str] = (),
-                top: int = 3) -> str:
-    """A Markdown report: summary tables, the lists to act on, then one row per unit."""
+                top: int = 3, list_refused: bool = True) -> str:
+    """A Markdown report: what was found, the parts to have at hand, the lists to act on,
+    one row per unit, and the safety cautions last. Sections with nothing in them are
+    left out (the opening counts say so). `list_refused`: list every refused row with
+    its message; False when the messages are already on the same screen (a terminal's
+    stderr), and the report then counts them and says where they are."""
     s = res.summary
     w = io.StringIO()
-    w.write(f"# Batch triage: {res.case.title}\n\nCase `{case_path}`; {s['units']} units, "
-            f"{s['faulty']} with a fault found, {len(s['healthy'])} healthy, "
-            f"{len(s['no_fit'])} fit no hypothesis, {len(s['incomplete'])} incomplete; "
-            f"{s['rows_rejected']} rows rejected.\n\n")
-    if cautions:
-        w.write("## Safety\n\n")
-        for c in cautions:
-            w.write(f"- {c}\n")
+    n_ref = s["rows_rejected"]
+    w.write(f"# Batch triage: {res.case.title}\n\nCase `{case_path}`: {s['units']} units; "
+            f"{s['faulty']} with a fault found, {len(s['no_fit'])} fit no modelled fault, "
+            f"{len(s['healthy'])} with no fault found, {len(s['incomplete'])} with "
+            "readings missing.")
+    if n_ref:
+        w.write(f" {_rows_word(n_ref)} of the batch file refused (see Refused rows).")
+    w.write("\n\n")
+    if s["by_fault"]:
+        w.write("## Faults found\n\nMost frequent first. units: the units whose leading "
+                "suspect it is; expected: its p summed over the units with a fault found "
+                "(how many units to expect it in).\n\n"
+                "| fault | units | expected | which units |\n|---|---:|---:|---|\n")
+        for r in s["by_fault"]:
+            w.write(f"| {r['fault']} | {r['units']} | {r['expected']:.1f} | "
+                    f"{_names(r['unit_names'])} |\n")
+        w.write("\n## Parts to have at hand\n\nunits: the units whose leading suspect "
+                "involves the part; expected: the p of every fault involving it, summed "
+                "over the units with a fault found.\n\n"
+                "| part | units | expected |\n|---|---:|---:|\n")
+        for r in s["by_part"]:
+            w.write(f"| {r['part']} | {r['units']} | {r['expected']:.1f} |\n")
         w.write("\n")
-    for title, key, col in (("Faults found", "by_fault", "fault"),
-                            ("Parts involved", "by_part", "part")):
-        w.write(f"## {title}\n\n| {col} | units | expected |\n|---|---:|---:|\n")
-        for r in s[key]:
-            w.write(f"| {r[col]} | {r['units']} | {r['expected']:.1f} |\n")
-        if not s[key]:
-            w.write("| (none) | 0 | 0.0 |\n")
+    if s["no_fit"]:
+        w.write("## Send to engineering (no modelled fault fits)\n\n"
+                + _names(s["no_fit"], len(s["no_fit"])) + "\n\n")
+    if s["incomplete"]:
+        w.write("## Incomplete readings\n\nThese units lack readings the rest of the "
+                "batch has; taking them makes their ranking surer.\n\n")
+        for r in s["incomplete"]:
+            w.write(f"- {r['unit']}: missing {', '.join(r['missing'])}\n")
         w.write("\n")
-    w.write("## Fit no hypothesis (send to engineering)\n\n")
-    w.write((", ".join(s["no_fit"]) or "none") + "\n\n")
-    w.write("## No fault found\n\n" + (", ".join(s["healthy"]) or "none") + "\n\n")
+    if s["healthy"]:
+        w.write("## No fault found\n\n" + _names(s["healthy"], len(s["healthy"])) + "\n\n")
     look = s.get("healthy_lookalikes") or []
+    # named down to what shows as 0.1 units (the rest only counted)
+    named = [r for r in look[:LOOKALIKES] if r["expected"] >= 0.05] or look[:1]
     if s["healthy"] and look:
-        shown = ", ".join(f"{r['fault']} {r['expected']:.1f}" for r in look[:LOOKALIKES])
-        more = f" and {len(look) - LOOKALIKES} more" if len(look) > LOOKALIKES else ""
+        shown = ", ".join(f"{r['fault']} {r['expected']:.1f}" for r in named)
+        more = f" and {len(look) - len(named)} more" if len(look) > len(named) else ""
         w.write("These units read like a good one, but the readings cannot tell a good "
                 "unit from these faults, which may still be present (expected number of "
                 f"units, the sum of p over them): {shown}{more}.")
@@ -794,43 +935,60 @@ def to_markdown(res: TriageResult, case_path: str, cautions: Sequence[str] = (),
             w.write(f" To tell them apart: {s['healthy_split_by'].rstrip('.')}.")
         w.write(" If the complaint persists, check those parts before returning a unit "
                 "as good.\n\n")
-    w.write("## Incomplete readings\n\n")
-    for r in s["incomplete"]:
-        w.write(f"- {r['unit']}: missing {', '.join(r['missing'])}\n")
-    if not s["incomplete"]:
-        w.write("none\n")
-    w.write("\n")
     if res.rejected:
-        w.write("## Rejected rows\n\n")
-        for m in res.rejected:
-            w.write(f"- {m}\n")
+        w.write("## Refused rows\n\n")
+        if s.get("not_triaged"):
+            w.write("Not triaged, no row of theirs could be used: "
+                    f"{', '.join(s['not_triaged'])}.\n\n")
+        if list_refused:
+            w.write("Each row was left out; the other readings of its unit were used.\n\n")
+            for r in res.rejected:
+                w.write(f"- {r.text}\n")
+        else:
+            w.write(f"{_rows_word(n_ref)} refused, each shown above with its row and "
+                    "unit; the other readings of those units were used.\n")
         w.write("\n")
-    w.write("## Units\n\n| unit | status | top suspects (p) | fits | next reading |\n"
-            "|---|---|---|---|---|\n")
+    w.write("## Units\n\n| unit | status | top suspects (p) | next reading |\n"
+            "|---|---|---|---|\n")
     for u in res.units:
         d = u.diagnosis
-        w.write(f"| {u.unit} | {u.status}{' (incomplete)' if u.incomplete else ''} | "
-                f"{_suspects_text(d, top)} | {'yes' if d.fits else 'no'} | "
+        status = [STATUS_TEXT.get(u.status, u.status)]
+        if u.incomplete:
+            status.append("readings missing")
+        if u.refused:
+            status.append(_row_mark(u.refused))
+        w.write(f"| {u.unit} | {'; '.join(status)} | {_suspects_text(d, top)} | "
                 f"{_next_text(d)} |\n")
+    if cautions:
+        w.write("\n## Safety\n\n")
+        for c in cautions:
+            w.write(f"- {c}\n")
     return w.getvalue()
 
 
 CSV_FIELDS = ("unit", "status", "fits", "readings_used", "fault_1", "p_1", "fault_2", "p_2",
-              "fault_3", "p_3", "next_point", "next_kind", "next_bits", "missing")
+              "fault_3", "p_3", "next_point", "next_kind", "next_bits", "missing",
+              "rows_refused")
+# First cell of the rows after the units: a refused row's message, a safety caution.
+CSV_REFUSED = "# refused row"
+CSV_CAUTION = "# caution"
 
 
 def to_csv(res: TriageResult, cautions: Sequence[str] = ()) -> str:
-    """One row per unit (CSV_FIELDS). The cautions come first as `#` comment lines."""
+    """The header, one row per unit (CSV_FIELDS; `rows_refused` the unit's refused row
+    numbers), a blank line, then two-cell rows: each refused row (CSV_REFUSED, its
+    message) and last the cautions (CSV_CAUTION, the caution). Every cell is quoted as
+    needed, so each message or caution is one cell; a reader that skips lines starting
+    with `#` (e.g. pandas comment="#") gets only the units."""
     w = io.StringIO()
-    for c in cautions:
-        w.write(f"# caution: {c}\n")
     cw = csv.DictWriter(w, fieldnames=CSV_FIELDS, lineterminator="\n")
     cw.writeheader()
     for u in res.units:
         d = u.diagnosis
         row = {"unit": u.unit, "status": u.status, "fits": int(bool(d.fits)),
                "readings_used": d.readings_used,
-               "missing": " ".join(f"{p}:{k}" for p, k in u.missing)}
+               "missing": " ".join(f"{p}:{k}" for p, k in u.missing),
+               "rows_refused": " ".join(str(r.row) for r in u.refused if r.row is not None)}
         for i, sus in enumerate(d.suspects[:3], start=1):
             row[f"fault_{i}"] = sus.fault
             row[f"p_{i}"] = f"{sus.p:.4f}"
@@ -838,5 +996,9 @@ def to_csv(res: TriageResult, cautions: Sequence[str] = ()) -> str:
             row.update(next_point=d.next[0].point, next_kind=d.next[0].kind,
                        next_bits=f"{d.next[0].bits:.3f}")
         cw.writerow(row)
+    tail = [(CSV_REFUSED, r.text) for r in res.rejected]
+    tail += [(CSV_CAUTION, c) for c in cautions]
+    if tail:
+        w.write("\n")
+        csv.writer(w, lineterminator="\n").writerows(tail)
     return w.getvalue()
-

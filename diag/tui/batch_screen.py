@@ -2,8 +2,9 @@
 
 `BatchScreen(result)` takes a diag.core.triage.TriageResult. The top shows the summary
 across the batch (which faults and parts dominate, how many units fit no hypothesis, look
-healthy, or lack readings); the table lists every unit with its leading suspects, `fits`
-and the most useful reading still missing. `f` cycles a filter by status; enter opens the
+healthy, or lack readings, and which rows of the file were refused, with their units); the
+table lists every unit with its leading suspects, `fits` and the most useful reading still
+missing, and marks a unit that lost rows. `f` cycles a filter by status; enter opens the
 selected unit in `SessionScreen(engine, readings=..., label=unit)`.
 """
 
@@ -37,7 +38,13 @@ def summary_text(result: TriageResult, top: int = 5) -> str:
     s = result.summary
     lines = [f"{s['units']} units: {s['faulty']} with a fault found, "
              f"{len(s['healthy'])} healthy, [b]{len(s['no_fit'])} fit no hypothesis[/], "
-             f"{len(s['incomplete'])} incomplete, {s['rows_rejected']} rows rejected."]
+             f"{len(s['incomplete'])} incomplete, {s['rows_rejected']} "
+             f"row{'' if s['rows_rejected'] == 1 else 's'} refused."]
+    if result.rejected:
+        rows = [f"row {r.row}" + (f" ({esc(r.unit)})" if r.unit else "")
+                if r.row is not None else esc(r.text) for r in result.rejected]
+        more = f" and {len(rows) - top} more" if len(rows) > top else ""
+        lines.append("Rows refused (left out): " + ", ".join(rows[:top]) + more)
     if s["by_fault"]:
         lines.append("Faults: " + ", ".join(f"{esc(r['fault'])} ×{r['units']}"
                                              for r in s["by_fault"][:top]))
@@ -103,6 +110,8 @@ class BatchScreen(Screen):
             cells += [""] * (3 - len(cells))
             nxt = f"{d.next[0].point} {d.next[0].kind}" if d.next else "—"
             status = u.status + (" · incomplete" if u.incomplete else "")
+            if u.refused:
+                status += f" · {len(u.refused)} row{'s' if len(u.refused) > 1 else ''} refused"
             t.add_row(u.unit, Text(status, style=styles.get(u.status, "")), *cells,
                       "yes" if d.fits else Text("no", style="bold red"), nxt, key=u.unit)
         self.query_one("#batch-title", Static).update(
