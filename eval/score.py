@@ -77,13 +77,9 @@ def read_batch(path: Path, case: Case, rules=None) -> tuple[dict[str, list[Readi
     parser (as `diag triage` reads it), and the rows it rejected per unit."""
     rf = readings.parse_file(path, case, rules)
     units = {u: list(r) for u, r in rf.units.items()}
-    unit_of_row: dict[int, str] = {}
-    with path.open(encoding="utf-8", newline="") as fh:
-        for row_no, r in enumerate(csv.DictReader(fh), start=2):
-            unit_of_row[row_no] = r["unit"]
     rejected: dict[str, int] = defaultdict(int)
     for e in rf.errors:
-        rejected[unit_of_row.get(e.line or 0, "?")] += 1
+        rejected[rf.row_units.get(e.line or 0, "?")] += 1
     return units, dict(rejected)
 
 

@@ -502,10 +502,11 @@ def test_refused_rows_tie_only_what_the_row_names(engine):
 
     text = "point,unit,value\nTP2,B1,12.0\nTP3,B1,2,5\nTP2,,12\nTP99,B2,1\nTP98,B1,1\n"
     rf = parse_text(text, engine.case, file="b.csv")
-    got = {r.row: r.unit for r in refused_rows(rf.errors, text)}
+    got = {r.row: r.unit for r in refused_rows(rf.errors, rf.row_units)}
     assert got == {3: None, 4: None, 5: "B2", 6: "B1"}
+    assert rf.row_units == {2: "B1", 5: "B2", 6: "B1"}  # kept rows name theirs too
     assert refused_rows(["b.csv: something"])[0].unit is None
-    res = triage(engine, rf.units, refused_rows(rf.errors, text))
+    res = triage(engine, rf.units, refused_rows(rf.errors, rf.row_units))
     assert [r.row for r in res.unit("B1").refused] == [6]
     assert [r.row for r in res.unplaced] == [3, 4, 5]
     assert res.summary["not_triaged"] == ["B2"]

@@ -94,9 +94,7 @@ def run(args: argparse.Namespace) -> int:
     rf = parse_file(args.batch, case, rules)
     if rf.batch:
         units = rf.units
-        # the unit each refused row names (parse_file has read the file as UTF-8 text)
-        text = Path(args.batch).read_text(encoding="utf-8") if rf.errors else None
-        rejected = refused_rows(rf.errors, text)
+        rejected = refused_rows(rf.errors, rf.row_units)
     else:
         name = Path(args.batch).stem
         units = {name: rf.single()}

@@ -13,7 +13,7 @@ import csv
 import io
 import math
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from diag.core.case import Case, Point
@@ -28,13 +28,16 @@ HEADER_WORDS = ("unit", "point", "kind", "value")
 @dataclass(frozen=True)
 class ReadingsFile:
     """Parsed readings. `units` maps unit name ("" for a single-unit file) to its
-    readings in file order; `errors` holds one DiagError per rejected row; `batch` is
-    true when the file has a `unit` column."""
+    readings in file order; `errors` holds one DiagError per rejected row (`line` = the
+    row); `batch` is true when the file has a `unit` column; `row_units` maps each batch
+    row that names a unit, kept or refused, to that name (a row with the wrong number of
+    fields names one only when `unit` is the first column)."""
 
     file: str
     units: dict
     errors: tuple[DiagError, ...]
     batch: bool
+    row_units: dict = field(default_factory=dict)
 
     @property
     def rejected(self) -> tuple[str, ...]:
@@ -158,6 +161,7 @@ def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> R
     errors: list[DiagError] = []
     units: dict[str, dict[tuple[str, str], Reading]] = {}
     seen_row: dict[tuple[str, str, str], int] = {}
+    row_units: dict[int, str] = {}
     cols: list[str] | None = None
     batch = False
     for i, raw in enumerate(rows, start=1):
@@ -176,6 +180,10 @@ def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> R
                 raise DiagError("no header row", file=file, line=i,
                                 hint="start the file with point,value (or point,kind,value; "
                                 "unit,point,value for a batch)")
+        if batch:
+            col = cols.index("unit")
+            if col < len(cells) and cells[col] and (col == 0 or len(cells) == len(cols)):
+                row_units[i] = cells[col]
         if len(cells) != len(cols):
             comma = (len(cells) == len(cols) + 1 and cells[-2].lstrip("+-").isdigit()
                      and cells[-1][:1].isdigit())
@@ -212,7 +220,7 @@ def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> R
     if not batch and not units:
         units[""] = {}
     return ReadingsFile(file, {u: tuple(r.values()) for u, r in units.items()},
-                        tuple(errors), batch)
+                        tuple(errors), batch, row_units)
 
 
 def parse_file(path: str | Path, case: Case, rules=None) -> ReadingsFile:

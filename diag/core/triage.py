@@ -107,15 +107,16 @@ class RefusedRow:
     text: str
 
 
-def refused_rows(errors: Sequence[DiagError | RefusedRow | str], text: str | None = None,
+def refused_rows(errors: Sequence[DiagError | RefusedRow | str],
+                 row_units: Mapping[int, str] | None = None,
                  unit: str | None = None) -> tuple[RefusedRow, ...]:
     """The refused rows of a readings file, each tied to the unit its row names.
 
-    `errors` are readings.ReadingsFile.errors (DiagError, `line` = row); `text` is the
-    batch file's content, whose `unit` column names each row's unit; `unit` ties every
-    row to one unit instead (a one-unit file). A plain message string stays unplaced.
-    The message gains the unit: "batch.csv:37: row 37 (unit U014): ..."."""
-    units = _row_units(text) if text is not None and unit is None else {}
+    `errors` are readings.ReadingsFile.errors (DiagError, `line` = row); `row_units` is
+    the file's ReadingsFile.row_units (row -> the unit its `unit` column names); `unit`
+    ties every row to one unit instead (a one-unit file). A plain message string stays
+    unplaced. The message gains the unit: "batch.csv:37: row 37 (unit U014): ..."."""
+    units = row_units if row_units is not None and unit is None else {}
     out = []
     for e in errors:
         if isinstance(e, RefusedRow):
@@ -130,29 +131,6 @@ def refused_rows(errors: Sequence[DiagError | RefusedRow | str], text: str | Non
         else:
             out.append(RefusedRow(None, None, str(e)))
     return tuple(sorted(out, key=lambda r: (r.row is None, r.row or 0)))
-
-
-def _row_units(text: str) -> dict[int, str]:
-    """Row number (header = row 1, as readings.py counts) -> the unit name in the row's
-    `unit` column, for a batch file's text; {} when it has no `unit` column. Blank rows
-    and `#` comment rows name no unit. A row with the wrong number of fields still names
-    its unit when the unit is the first column."""
-    header: list[str] | None = None
-    col = -1
-    out: dict[int, str] = {}
-    for i, raw in enumerate(csv.reader(io.StringIO(text.lstrip("\ufeff"))), start=1):
-        cells = [c.strip() for c in raw]
-        if not any(cells) or cells[0].startswith("#"):
-            continue
-        if header is None:
-            header = [c.lower() for c in cells]
-            if "unit" not in header:
-                return {}
-            col = header.index("unit")
-            continue
-        if col < len(cells) and cells[col] and (col == 0 or len(cells) == len(header)):
-            out[i] = cells[col]
-    return out
 
 
 def _status(d: Diagnosis) -> str:
