@@ -24,6 +24,8 @@ from diag.core.triage import triage
 from diag.tui.app import DiagApp
 from diag.tui.batch_screen import BatchScreen, UnitOpened
 from diag.tui.drill_screen import (
+    ConfirmDialog,
+    DrillNamed,
     DrillReadingTaken,
     DrillScored,
     DrillScreen,
@@ -56,6 +58,13 @@ def _once(seen, kind) -> list:
         if isinstance(m, kind):
             out[id(m)] = m
     return list(out.values())
+
+
+def _text(screen, selector: str) -> str:
+    """The text a Static shows (its markup rendered, styles dropped)."""
+    from textual.content import Content
+
+    return Content.from_markup(str(screen.query_one(selector, Static).content)).plain
 
 
 def _shows(screen, point, kind) -> str:
@@ -102,13 +111,16 @@ async def test_scripted_drill_reading_naming_scoring(engine, tmp_path):
         scored = _once(seen, DrillScored)
         assert len(scored) == 1 and scored[0].score.correct
         text = str(screen.query_one("#drill-score", Static).content)
-        assert "Right." in text and "you used 1" in text
+        assert "Right." in text and "readings: 1 taken" in text
         # scored: the read and name actions no longer apply
         assert not screen.check_action("read", ())
         assert not screen.check_action("name", ())
+        assert not screen.check_action("reveal", ())
     rows = list(csv.DictReader(results.open(encoding="utf-8")))
     assert [(r["trainee"], r["fault"], r["named"], r["correct"], r["readings_used"])
             for r in rows] == [("ana", "R2:open", "R2:open", "1", "1")]
+    # the score on screen is the one written to the results file
+    assert f"Score {rows[0]['points']} / 100" in text
 
 
 @sync
@@ -128,9 +140,19 @@ async def test_drill_with_hints_and_next_exercise(engine):
         assert [s.fault for s in hints.suspects] == [s.fault for s in d.suspects[:hints.limit]]
         assert not screen.check_action("next", ())
         await _name(pilot, "C3:short")
+        # a wrong naming costs points; the exercise goes on
+        assert drill.round.score is None and [n.fault for n in drill.round.wrong] == \
+            ["C3:short"]
+        assert "Not C3:short." in _text(screen, "#drill-feedback")
+        assert not screen.check_action("next", ())
+        await pilot.press("r")  # give up: asks first
+        await pilot.pause()
+        assert isinstance(app.screen, ConfirmDialog)
+        await pilot.press("y")
+        await settle(pilot)
         assert drill.round.score is not None and not drill.round.score.correct
-        text = str(screen.query_one("#drill-score", Static).content)
-        assert "Not this one." in text and "R2:open" in text
+        text = _text(screen, "#drill-score")
+        assert "Given up." in text and "R2:open" in text and "Score 0 / 100" in text
         assert screen.check_action("next", ())
         await pilot.press("x")
         await settle(pilot)
@@ -195,3 +217,175 @@ async def test_batch_screen_browses_and_opens_a_unit(engine):
         assert isinstance(session, SessionScreen)
         assert [(r.point, r.kind, r.value) for r in session.session.readings] == \
             [(r.point, r.kind, r.value) for r in units["B2"]]
+
+
+def _move_to(screen, point, kind) -> None:
+    table = screen.query_one("#drill-points", DataTable)
+    table.move_cursor(row=table.get_row_index(f"{point}|{kind}"), animate=False)
+
+
+@sync
+async def test_a_reading_is_quoted_as_the_meter_shows_it(engine):
+    drill = _drill(engine)
+    seen = []
+    app = DiagApp(drill=drill)
+    async with app.run_test(size=(120, 36), message_hook=seen.append) as pilot:
+        await settle(pilot)
+        screen = app.screen
+        _move_to(screen, "TP1", "dc")
+        await pilot.press("enter")
+        await settle(pilot)
+        (taken,) = _once(seen, DrillReadingTaken)
+        amps = drill.round.unit[("TP1", "dc")].value
+        # supply current on a 2000-count meter: between 20 and 200 mA it autoranges to
+        # 200 mA, one count 0.1 mA, so it shows one decimal in mA
+        assert 0.02 <= amps < 0.2
+        assert taken.shown == f"{amps * 1e3:.1f} mA"
+        feedback = _text(screen, "#drill-feedback")
+        assert f"Reading 1: TP1 dc (bench supply's ammeter, 12 V lead to the sounder " \
+               f"board): the meter shows {taken.shown}." in feedback
+        assert _shows(screen, "TP1", "dc") == taken.shown
+        sheet = screen.query_one("#drill-sheet", DataTable)
+        assert [str(c) for c in sheet.get_row_at(0)] == ["1", "TP1", "dc", taken.shown]
+        assert "readings 1 · wrong namings 0" in _text(screen, "#drill-tally")
+        await pilot.press("enter")  # the same reading again: quoted, not counted
+        await settle(pilot)
+        assert "was taken already" in _text(screen, "#drill-feedback")
+        assert sheet.row_count == 1 and len(drill.round.taken) == 1
+        screen.take("TP6", "dc")  # the speaker tag costs 2 (the case says so)
+        await settle(pilot)
+        assert sheet.row_count == 2
+        assert "readings 2 (cost 3)" in _text(screen, "#drill-tally")
+
+
+@sync
+async def test_name_dialog_says_when_nothing_matches(engine):
+    drill = _drill(engine)
+    app = DiagApp(drill=drill)
+    async with app.run_test(size=(120, 36)) as pilot:
+        await settle(pilot)
+        await pilot.press("n")
+        await pilot.pause()
+        dialog = app.screen
+        assert isinstance(dialog, NameFaultDialog)
+        field = dialog.query_one("#name-input", Input)
+        await pilot.press("enter")  # nothing typed: nothing named
+        await pilot.pause()
+        assert app.screen is dialog and not drill.round.namings
+        field.value = "R22:open"
+        await pilot.pause()
+        text = _text(dialog, "#name-note")
+        assert "Nothing matches" in text and "R2:open" in text
+        await pilot.press("enter")
+        await pilot.pause()
+        assert app.screen is dialog and not drill.round.namings
+        assert "Nothing matches" in _text(dialog, "#name-note")
+        field.value = "Q1"
+        await pilot.pause()
+        assert "faults match" in _text(dialog, "#name-note")
+        await pilot.press("enter")  # several match: none is picked for the trainee
+        await pilot.pause()
+        assert app.screen is dialog and not drill.round.namings
+        field.value = "speaker open"  # words of the description: one fault left
+        await pilot.pause()
+        assert "Enter names LS1:open" in _text(dialog, "#name-note")
+        await pilot.press("enter")
+        await settle(pilot)
+        assert [n.fault for n in drill.round.namings] == ["LS1:open"]
+        # a fault named wrongly cannot be named again (and is not charged twice)
+        await pilot.press("n")
+        await pilot.pause()
+        dialog = app.screen
+        assert isinstance(dialog, NameFaultDialog)
+        from textual.widgets import OptionList
+
+        ol = dialog.query_one("#name-options", OptionList)
+        assert ol.get_option("LS1:open").disabled
+        dialog.query_one("#name-input", Input).value = "ls1:OPEN"
+        await pilot.pause()
+        await pilot.press("enter")
+        await pilot.pause()
+        assert app.screen is dialog
+        assert "named LS1:open already" in _text(dialog, "#name-note")
+        await pilot.press("escape")
+        await pilot.pause()
+        assert len(drill.round.namings) == 1 and drill.round.score is None
+
+
+@sync
+async def test_wrong_naming_costs_points_then_the_right_one_scores(engine, tmp_path):
+    results = tmp_path / "class.csv"
+    drill = _drill(engine, results=str(results))
+    seen = []
+    app = DiagApp(drill=drill)
+    async with app.run_test(size=(120, 36), message_hook=seen.append) as pilot:
+        await settle(pilot)
+        screen = app.screen
+        screen.take("TP3", "dc")
+        await _name(pilot, "R1:open")
+        (named,) = _once(seen, DrillNamed)
+        n = named.naming
+        assert not n.right and n.score is None and n.against
+        feedback = _text(screen, "#drill-feedback")
+        assert "Not R1:open." in feedback and "−20 points" in feedback
+        # what R1 open would read against what was measured, as the meter shows both
+        shown = drill.round.shown(drill.round.taken[0])
+        assert f"R1:open would read 0.0 mV at TP3 dc; you measured {shown}" in feedback
+        assert "2 namings left" in feedback
+        tally = _text(screen, "#drill-tally")
+        assert "wrong namings 1 (−20) · namings left 2" in tally
+        assert screen.check_action("read", ()) and screen.check_action("name", ())
+        screen.take("TP4", "dc")
+        await _name(pilot, "R2:open")
+        scored = _once(seen, DrillScored)
+        assert len(scored) == 1
+        s = scored[0].score
+        assert s.correct and [w.fault for w in s.wrong] == ["R1:open"]
+        text = _text(screen, "#drill-score")
+        assert f"Score {s.points.total} / 100" in text
+        assert "−20  wrong namings: 1 (R1:open)" in text
+        assert "readings: 2 taken" in text
+        assert f"Exercise over: score {s.points.total} / 100" in _text(screen, "#drill-tally")
+    rows = list(csv.DictReader(results.open(encoding="utf-8")))
+    assert [(r["status"], r["points"], r["wrong_namings"], r["named_wrong"],
+             r["first_wrong_at"]) for r in rows] == \
+        [("found", str(s.points.total), "1", "R1:open", "1")]
+
+
+@sync
+async def test_leaving_mid_exercise_asks_and_records_it(engine, tmp_path):
+    results = tmp_path / "class.csv"
+    drill = _drill(engine, results=str(results))
+    app = DiagApp(drill=drill)
+    async with app.run_test(size=(120, 36)) as pilot:
+        await settle(pilot)
+        screen = app.screen
+        screen.take("TP3", "dc")
+        await pilot.press("escape")
+        await pilot.pause()
+        dialog = app.screen
+        assert isinstance(dialog, ConfirmDialog)
+        question = str(dialog.query_one("#confirm-text", Static).content)
+        assert "recorded as abandoned" in question and "1 reading(s)" in question
+        await pilot.press("n")  # stay
+        await pilot.pause()
+        assert app.screen is screen and drill.round.score is None
+        assert not results.exists()
+        await pilot.press("escape")
+        await pilot.pause()
+        await pilot.press("y")
+        await settle(pilot)
+        assert drill.round.score is not None
+    rows = list(csv.DictReader(results.open(encoding="utf-8")))
+    assert [(r["status"], r["readings_used"], r["points"], r["correct"]) for r in rows] == \
+        [("abandoned", "1", "0", "0")]
+
+
+def test_drill_bindings_have_ids_and_descriptions():
+    owners = [DiagApp, DrillScreen, NameFaultDialog, ConfirmDialog]
+    ids = []
+    for owner in owners:
+        for b in owner.BINDINGS:
+            assert b.id and b.description, (owner.__name__, b)
+            ids.append(b.id)
+    assert len(ids) == len(set(ids))

@@ -4,13 +4,19 @@ A `Drill` is a run of one or more exercises for one trainee. Each exercise (`Rou
 its unit once, from a Generator seeded by the exercise, through `Engine.simulate`: part
 tolerances and fault parameters are drawn once, so every reading of that exercise comes
 from the same unit, and each reading is what the case's meter shows (meter error and
-display resolution included). Same case, fault and seed give the same unit.
+display resolution included; `meter_text` writes it as the display does). Same case,
+fault and seed give the same unit.
 
-The score (`Score`) says whether the named fault is the hidden one or one the offered
-readings cannot tell from it (same group), how many readings the trainee used against
-how many diag's own next-reading advice needs for that unit, and which readings would
-have told the most. Class results go to a CSV (`RESULT_FIELDS`); `summarise` reads such
-files back and says who needs which kind of practice.
+The trainee names a fault (`Round.name`). A wrong naming costs points (a part replaced
+needlessly) and the exercise goes on, up to MAX_NAMINGS namings; the trainee may also
+give up and have the fault shown (`reveal`), or leave (`abandon`). Every way out is
+scored (`Score`) and, in a class, written to the results CSV (`RESULT_FIELDS`).
+
+The score: whether the named fault is the hidden one or one the offered readings cannot
+tell from it (same group); the readings used and their cost against what diag's own
+next-reading advice needs on that unit; the wrong namings; and the points (`work_points`,
+rules below) that sum these up. `summarise` reads results files back and says who needs
+which kind of practice.
 
 Volts at voltage points, amperes at supply points, seconds for times.
 """
@@ -19,10 +25,13 @@ from __future__ import annotations
 
 import csv
 import datetime as _dt
+import difflib
+import math
 import secrets
+import threading
 import time
 from collections.abc import Callable, Iterable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -47,9 +56,28 @@ ADVICE_REPLAYS = 5
 # seed still fixes the unit), at most this many times.
 DRAW_TRIES = 5
 
+# Points (a teaching choice, stated so that a trainee can work a score out by hand):
+# finding the fault earns FOUND_POINTS; each unit of reading cost (a point's `cost`, 1 by
+# default) beyond what diag's advice needed on the same unit takes POINTS_PER_EXTRA_COST,
+# at most READING_PENALTY_MAX in all; each wrong naming takes WRONG_NAMING_POINTS (a part
+# replaced needlessly). A fault not found scores 0. MAX_NAMINGS namings in all: the last
+# one wrong ends the exercise and shows the fault.
+FOUND_POINTS = 100
+POINTS_PER_EXTRA_COST = 5
+READING_PENALTY_MAX = 40
+WRONG_NAMING_POINTS = 20
+MAX_NAMINGS = 3
+
+# How an exercise ended (the `status` column of the results).
+FOUND, REVEALED, NAMINGS_USED_UP, ABANDONED = "found", "revealed", "namings-used-up", "abandoned"
+STATUS_WORDS = {FOUND: "found", REVEALED: "gave up, fault shown",
+                NAMINGS_USED_UP: f"not found in {MAX_NAMINGS} namings",
+                ABANDONED: "left before naming"}
+
 RESULT_FIELDS = ("trainee", "exercise", "correct", "readings_used", "seconds", "case",
                  "fault", "seed", "named", "same_group", "advice_readings", "part_family",
-                 "mode_class", "finished")
+                 "mode_class", "finished", "status", "points", "wrong_namings",
+                 "named_wrong", "first_wrong_at", "reading_cost", "advice_cost")
 
 
 @dataclass(frozen=True)
@@ -113,6 +141,55 @@ def show(engine: Engine, truth: np.ndarray, rng: np.random.Generator) -> tuple[R
                  for j, o in enumerate(engine.case.observables))
 
 
+def meter_text(value: float, kind: str, unit: str, meter_profile) -> str:
+    """A displayed reading written as the meter shows it: the digits of the autoranged
+    range's resolution, in the range's own prefix ("45.5 mV" on a 200 mV range, "1.483 V"
+    on 2 V, "12.31 mA" on 20 mA), "OL" over range, " rms" after an AC reading. `value` is
+    volts or amperes as `show` returns it (already rounded to the resolution)."""
+    from diag.core import meter
+
+    if math.isnan(value):
+        return "—"
+    if math.isinf(value):
+        text = ("-" if value < 0 else "") + "OL"
+    else:
+        q = float(meter.resolution(np.array([value]), meter_profile, unit)[0])
+        full = q * float(meter_profile["counts"])
+        scale, prefix = next(((f, pre) for f, pre in ((1.0, ""), (1e-3, "m"), (1e-6, "µ"))
+                              if full >= f), (1e-6, "µ"))
+        digits = max(0, -math.floor(math.log10(q / scale) + 1e-9))
+        text = f"{value / scale:.{digits}f} {prefix}{unit}"
+    return text + (" rms" if kind == "ac" else "")
+
+
+def close_names(text: str, ids: Sequence[str], n: int = 4) -> list[str]:
+    """Fault ids close to a typed name that matches none (a slip such as `R99:open`,
+    `Q1:be-shrt`, `helthy`), best first, at most `n`. Part reference and mode are
+    compared apart (difflib's ratio, the reference weighing more), so another mode of the
+    typed part, or the typed mode of a nearby part, comes first."""
+    t = text.strip().lower()
+    if not t:
+        return []
+    ref, colon, mode = t.partition(":")
+    scored = []
+    for fid in ids:
+        f = fid.lower()
+        whole = difflib.SequenceMatcher(None, t, f).ratio()
+        fref, fcolon, fmode = f.partition(":")
+        if colon and fcolon:
+            parts = (0.6 * difflib.SequenceMatcher(None, ref, fref).ratio()
+                     + 0.4 * difflib.SequenceMatcher(None, mode, fmode).ratio())
+        elif fcolon:
+            parts = 0.9 * difflib.SequenceMatcher(None, t, fref).ratio()
+        else:
+            parts = 0.0
+        score = max(whole, parts)
+        if score >= 0.5:
+            scored.append((-score, fid))
+    scored.sort()
+    return [fid for _, fid in scored[:n]]
+
+
 @dataclass(frozen=True)
 class Telling:
     """A reading that would have told much: (point, kind) and why, in words."""
@@ -123,14 +200,58 @@ class Telling:
 
 
 @dataclass(frozen=True)
+class Points:
+    """A score worked out by the rules above, each part in whole points: `found` (100 or
+    0), `readings` and `namings` (the deductions, 0 or negative) and `total` (their sum,
+    never below 0; 0 when the fault was not found)."""
+
+    found: int
+    readings: int
+    namings: int
+    total: int
+
+
+def work_points(found: bool, reading_cost: float, advice_cost: float,
+                wrong_namings: int) -> Points:
+    """The points of an exercise: FOUND_POINTS if found, less POINTS_PER_EXTRA_COST for
+    each unit of reading cost beyond `advice_cost` (rounded to a whole point, halves up; at
+    most READING_PENALTY_MAX), less WRONG_NAMING_POINTS for each wrong naming; 0 at least,
+    and 0 when not found. Example: found, cost 5 against 2.4, one wrong naming:
+    100 - round(5 × 2.6) - 20 = 100 - 13 - 20 = 67."""
+    extra = round(max(0.0, reading_cost - advice_cost), 6)
+    readings = min(READING_PENALTY_MAX, math.floor(POINTS_PER_EXTRA_COST * extra + 0.5))
+    namings = WRONG_NAMING_POINTS * wrong_namings
+    base = FOUND_POINTS if found else 0
+    total = max(0, base - readings - namings) if found else 0
+    return Points(base, -readings, -namings, total)
+
+
+@dataclass(frozen=True)
+class Contrast:
+    """A reading the trainee took, against what a named fault predicts there: the
+    predicted band (about the 1st to 99th percentile, as the meter shows it) and the
+    measured value, volts or amperes; `why` says it in words."""
+
+    point: str
+    kind: str
+    low: float
+    high: float
+    measured: float
+    why: str
+
+
+@dataclass(frozen=True)
 class Score:
     """The outcome of one exercise.
 
-    `correct` is true when the named fault is the hidden one or in its group (the offered
-    readings cannot tell them apart; `same_group` says which). `advice_readings` is the
-    mean number of readings diag's own advice took on this unit until one group held
-    P_DONE (or nothing was left to learn), over ADVICE_REPLAYS fresh meter errors;
-    `advice_fault` is where the advice ended on the readings the trainee saw.
+    `status` says how it ended (FOUND, REVEALED, NAMINGS_USED_UP, ABANDONED). `correct`
+    is true when the named fault is the hidden one or in its group (the offered readings
+    cannot tell them apart; `same_group` says which). `named` is the last fault named ("" if
+    none); `wrong` the wrong namings in order. `advice_readings` (and `advice_cost`, the
+    same in cost units) is the mean number of readings diag's own advice took on this unit
+    until one group held P_DONE (or nothing was left to learn), over ADVICE_REPLAYS fresh
+    meter errors; `advice_fault` is where the advice ended on the readings the trainee saw.
+    `points` works them into one figure (`work_points`).
     """
 
     truth: str
@@ -145,6 +266,51 @@ class Score:
     advice_p: float
     telling: tuple[Telling, ...]
     seconds: float
+    status: str = FOUND
+    wrong: tuple[Naming, ...] = ()
+    reading_cost: float = 0.0
+    advice_cost: float = 0.0
+    points: Points = Points(0, 0, 0, 0)
+
+    def breakdown(self) -> tuple[tuple[str, int | None], ...]:
+        """How the points were worked out, as (what, points) lines, the last one the
+        score; the others sum to it. When the fault was not found the readings and the
+        namings are listed with None (not counted: the score is 0)."""
+        pts = self.points
+        found = bool(pts.found)
+        cost = (f", cost {self.reading_cost:g}" if self.reading_cost != self.readings_used
+                else "")
+        par = (f", cost {self.advice_cost:.1f}"
+               if abs(self.advice_cost - self.advice_readings) > 1e-9 else "")
+        wrong = ", ".join(w.fault for w in self.wrong)
+        return (
+            ("found the fault" if found else f"not found ({STATUS_WORDS[self.status]})",
+             pts.found),
+            (f"readings: {self.readings_used} taken{cost}; an efficient search (diag's "
+             f"advice) needed {self.advice_readings:.1f}{par}; {POINTS_PER_EXTRA_COST} "
+             f"per unit of cost beyond it, at most {READING_PENALTY_MAX}",
+             pts.readings if found else None),
+            (f"wrong namings: {len(self.wrong)}" + (f" ({wrong})" if wrong else "")
+             + f"; {WRONG_NAMING_POINTS} each (a part replaced needlessly)",
+             pts.namings if found else None),
+            ("score", pts.total),
+        )
+
+
+@dataclass(frozen=True)
+class Naming:
+    """One naming of a fault by the trainee: the fault id and its text, whether it is
+    right (the hidden fault or in its group), the readings taken when it was named, for a
+    wrong one the readings that speak against it (`against`, furthest off first), and the
+    exercise's score when this naming ended it (right, or the last naming allowed)."""
+
+    fault: str
+    text: str
+    right: bool
+    same_group: bool
+    readings: int
+    against: tuple[Contrast, ...] = ()
+    score: Score | None = None
 
 
 def fault_family(case: Case, fault_id: str) -> tuple[str, str]:
@@ -226,12 +392,6 @@ def follow_advice(engine: Engine, unit: dict[tuple[str, str], Reading]
     return steps, d
 
 
-def _fmt(x: float, unit: str) -> str:
-    from diag.core.values import format_value
-
-    return format_value(x, unit)
-
-
 def telling_readings(engine: Engine, truth: str, named: str,
                      steps: Sequence[tuple[str, str, float]]) -> tuple[Telling, ...]:
     """The readings that would have told the most. When the named fault is another one,
@@ -261,17 +421,60 @@ def telling_readings(engine: Engine, truth: str, named: str,
                 break
             u = units[key]
             out.append(Telling(key[0], key[1],
-                               f"{truth}: {_fmt(a.mid, u)}; {named}: {_fmt(b.mid, u)}"))
+                               f"{truth}: {meter_text(a.mid, key[1], u, m)}; "
+                               f"{named}: {meter_text(b.mid, key[1], u, m)}"))
         if out:
             return tuple(out)
     return tuple(Telling(p, k, f"diag's advice, {format_bits(bits)} expected")
                  for p, k, bits in steps[:N_TELLING])
 
 
+def _span(low: float, high: float, kind: str, unit: str, meter_profile) -> str:
+    """A predicted band as the meter would show its edges ("8.91 V to 9.02 V")."""
+    a = meter_text(low, "dc", unit, meter_profile)
+    b = meter_text(high, kind, unit, meter_profile)
+    if a + (" rms" if kind == "ac" else "") == b:
+        return b
+    return f"{a} to {b}"
+
+
+def against(engine: Engine, fault_id: str, taken: Sequence[Reading]) -> tuple[Contrast, ...]:
+    """The readings in `taken` that a unit with `fault_id` would not show: outside the
+    fault's predicted band (Engine.bands, about the 1st to 99th percentile) widened at
+    each edge by the meter's accuracy there. Furthest off first (in meter standard
+    deviations from the nearer widened edge), at most N_TELLING."""
+    from diag.core import meter
+
+    m = engine.case.meter
+    units = {(o.point, o.kind): o.unit for o in engine.case.observables}
+    bands = {(b.observable.point, b.observable.kind): b for b in engine.bands(fault_id)}
+    found = []
+    for r in taken:
+        key = (r.point, r.kind)
+        b = bands.get(key)
+        if b is None or math.isnan(r.value) or not np.isfinite([b.low, b.high]).all():
+            continue
+        u = units[key]
+        lo = b.low - float(meter.accuracy(np.array([b.low]), r.kind, m, u)[0])
+        hi = b.high + float(meter.accuracy(np.array([b.high]), r.kind, m, u)[0])
+        if lo <= r.value <= hi:
+            continue
+        edge = lo if r.value < lo else hi
+        sig = float(meter.sigma(np.array([edge]), r.kind, m, u)[0])
+        off = abs(r.value - edge) / max(sig, 1e-15)
+        why = (f"{fault_id} would read {_span(b.low, b.high, r.kind, u, m)} at {r.point} "
+               f"{r.kind}; you measured {meter_text(r.value, r.kind, u, m)}")
+        found.append((-off, len(found), Contrast(r.point, r.kind, b.low, b.high, r.value,
+                                                 why)))
+    found.sort(key=lambda t: (t[0], t[1]))
+    return tuple(c for _, _, c in found[:N_TELLING])
+
+
 @dataclass
 class Round:
     """One exercise in progress: the hidden unit (every observable's displayed reading,
-    drawn once), the readings the trainee has asked for, and the score once named."""
+    drawn once), the readings the trainee has asked for, the faults named so far, and the
+    score once the exercise has ended (found, shown, namings used up, or left)."""
 
     exercise: Exercise
     engine: Engine
@@ -282,6 +485,9 @@ class Round:
     taken: list[Reading] = field(default_factory=list)
     started: float = 0.0
     score: Score | None = None
+    namings: list[Naming] = field(default_factory=list)
+    lock: threading.RLock = field(default_factory=threading.RLock, repr=False,
+                                  compare=False)
 
     @classmethod
     def start(cls, exercise: Exercise, engine: Engine,
@@ -317,6 +523,27 @@ class Round:
         """Every (point, kind) the trainee may ask for, in case order."""
         return tuple((o.point, o.kind) for o in self.case.observables)
 
+    @property
+    def wrong(self) -> tuple[Naming, ...]:
+        """The wrong namings so far, in order."""
+        return tuple(n for n in self.namings if not n.right)
+
+    @property
+    def namings_left(self) -> int:
+        """How many more faults the trainee may name in this exercise."""
+        return MAX_NAMINGS - len(self.namings)
+
+    @property
+    def reading_cost(self) -> float:
+        """The summed cost (the points' `cost`, 1 by default) of the readings taken."""
+        return _cost(self.case, [(r.point, r.kind) for r in self.taken])
+
+    def shown(self, reading: Reading) -> str:
+        """A reading written as the case's meter shows it (meter_text)."""
+        o = next(o for o in self.case.observables
+                 if (o.point, o.kind) == (reading.point, reading.kind))
+        return meter_text(reading.value, o.kind, o.unit, self.case.meter)
+
     def read(self, point: str, kind: str = "dc") -> Reading:
         """The meter reading at (point, kind), as the meter shows it. Asking again for a
         reading already taken returns it without counting it twice."""
@@ -340,34 +567,84 @@ class Round:
         """diag's ranking on the readings taken so far (shown only when hints are on)."""
         return self.engine.diagnose(self.taken)
 
-    def name(self, fault_id: str) -> Score:
-        """Score the trainee's answer `fault_id` (a fault id of the case, or `healthy`)."""
-        if self.score is not None:
+    def name(self, fault_id: str) -> Naming:
+        """The trainee names `fault_id` (a fault id of the case, or `healthy`). A right
+        naming (the hidden fault or one of its group) ends the exercise; a wrong one costs
+        WRONG_NAMING_POINTS and the exercise goes on, until MAX_NAMINGS have been made.
+        The returned Naming carries the score when the exercise ended."""
+        with self.lock:
+            if self.score is not None:
+                raise DiagError("this exercise is already scored",
+                                hint="go on to the next one")
+            groups = _group_of(self.engine)
+            named = fault_id.strip()
+            if named not in groups:
+                close = close_names(named, list(groups))
+                raise DiagError(f"unknown fault {named!r}", file=self.case.path,
+                                hint=(f"did you mean {', '.join(close)}? " if close else "")
+                                + "`diag faults CASE` lists the fault ids")
+            if any(n.fault == named for n in self.namings):
+                raise DiagError(f"you named {named} already: it is not the fault",
+                                hint="name another fault, take more readings, or give up "
+                                     "to see the fault")
+            same = named != self.truth and groups[named] == groups[self.truth]
+            right = named == self.truth or same
+            naming = Naming(named, self.engine.hypothesis(named).text, right, same,
+                            len(self.taken),
+                            () if right else against(self.engine, named, self.taken))
+            self.namings.append(naming)
+            if right or self.namings_left <= 0:
+                naming = replace(naming,
+                                 score=self._finish(FOUND if right else NAMINGS_USED_UP))
+                self.namings[-1] = naming
+            return naming
+
+    def reveal(self) -> Score:
+        """The trainee gives up: the exercise ends unfound (0 points) and the score shows
+        the fault."""
+        return self._finish(REVEALED)
+
+    def abandon(self) -> Score:
+        """The trainee leaves before the exercise ended: scored as not found, with the
+        readings taken so far, so that the attempt is on record."""
+        return self._finish(ABANDONED)
+
+    def _finish(self, status: str) -> Score:
+        with self.lock:
+            if self.score is not None:
+                return self.score
+            seconds = self.clock() - self.started
+            steps, last = follow_advice(self.engine, self.unit)
+            advice_fault, advice_p = _top_group(last)
+            counts = [len(steps)]
+            costs = [_cost(self.case, [(p, k) for p, k, _ in steps])]
+            for r in range(1, ADVICE_REPLAYS):
+                rng = np.random.default_rng([self.seed, r])
+                again = {(x.point, x.kind): x
+                         for x in show(self.engine, self.drawn.truth, rng)}
+                more = follow_advice(self.engine, again)[0]
+                counts.append(len(more))
+                costs.append(_cost(self.case, [(p, k) for p, k, _ in more]))
+            found = status == FOUND
+            last_named = self.namings[-1] if self.namings else None
+            wrong = self.wrong
+            named = last_named.fault if last_named else ""
+            hyp = self.engine.hypothesis
+            advice_cost = float(np.mean(costs))
+            cost = self.reading_cost
+            self.score = Score(
+                truth=self.truth, truth_text=hyp(self.truth).text,
+                named=named, named_text=hyp(named).text if named else "",
+                correct=found, same_group=bool(found and last_named.same_group),
+                readings_used=len(self.taken), advice_readings=float(np.mean(counts)),
+                advice_fault=advice_fault, advice_p=advice_p,
+                telling=telling_readings(self.engine, self.truth,
+                                         wrong[-1].fault if wrong else named or self.truth,
+                                         steps),
+                seconds=float(seconds), status=status, wrong=wrong, reading_cost=cost,
+                advice_cost=advice_cost,
+                points=work_points(found, cost, advice_cost, len(wrong)))
             return self.score
-        groups = _group_of(self.engine)
-        named = fault_id.strip()
-        if named not in groups:
-            raise DiagError(f"unknown fault {named!r}", file=self.case.path,
-                            hint="name a fault id such as R2:open; `diag faults` lists them")
-        seconds = self.clock() - self.started
-        steps, last = follow_advice(self.engine, self.unit)
-        advice_fault, advice_p = _top_group(last)
-        counts = [len(steps)]
-        for r in range(1, ADVICE_REPLAYS):
-            rng = np.random.default_rng([self.seed, r])
-            again = {(x.point, x.kind): x for x in show(self.engine, self.drawn.truth, rng)}
-            counts.append(len(follow_advice(self.engine, again)[0]))
-        same = named != self.truth and groups[named] == groups[self.truth]
-        hyp = self.engine.hypothesis
-        self.score = Score(
-            truth=self.truth, truth_text=hyp(self.truth).text,
-            named=named, named_text=hyp(named).text,
-            correct=named == self.truth or same, same_group=same,
-            readings_used=len(self.taken), advice_readings=float(np.mean(counts)),
-            advice_fault=advice_fault, advice_p=advice_p,
-            telling=telling_readings(self.engine, self.truth, named, steps),
-            seconds=float(seconds))
-        return self.score
 
     def result_row(self, trainee: str) -> dict[str, str]:
         """One CSV row (RESULT_FIELDS) of the scored exercise."""
@@ -384,13 +661,25 @@ class Round:
             "same_group": str(int(s.same_group)), "advice_readings": f"{s.advice_readings:.1f}",
             "part_family": family, "mode_class": cls,
             "finished": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
+            "status": s.status, "points": str(s.points.total),
+            "wrong_namings": str(len(s.wrong)),
+            "named_wrong": " ".join(w.fault for w in s.wrong),
+            "first_wrong_at": str(s.wrong[0].readings) if s.wrong else "",
+            "reading_cost": f"{s.reading_cost:g}", "advice_cost": f"{s.advice_cost:.1f}",
         }
+
+
+def _cost(case: Case, keys: Iterable[tuple[str, str]]) -> float:
+    """The summed cost of readings (point, kind): each point's `cost`, 1 by default."""
+    cost = {(o.point, o.kind): o.cost for o in case.observables}
+    return float(sum(cost[k] for k in keys))
 
 
 class Drill:
     """A run of exercises for one trainee. `engines(case_path)` gives the Engine of a case
-    (the caller caches them). Scored rounds are appended to `results` (a CSV path) if given.
-    `hints` allows the ranking to be shown while an exercise runs."""
+    (the caller caches them). Each exercise, once ended (found, shown, namings used up or
+    left), is appended to `results` (a CSV path) if given, once. `hints` allows the
+    ranking to be shown while an exercise runs."""
 
     def __init__(self, exercises: Sequence[Exercise], engines: Callable[[str], Engine], *,
                  trainee: str = "", hints: bool = False, results: str | None = None,
@@ -405,6 +694,7 @@ class Drill:
         self.clock = clock
         self.index = 0
         self.done: list[Round] = []
+        self._lock = threading.Lock()
         self.round = self._start(0)
 
     def _start(self, i: int) -> Round:
@@ -416,15 +706,37 @@ class Drill:
         """True once the last exercise has been scored."""
         return self.index == len(self.exercises) - 1 and self.round.score is not None
 
-    def name(self, fault_id: str) -> Score:
-        """Score the current exercise and record its result."""
-        first = self.round.score is None
-        score = self.round.name(fault_id)
-        if first:
-            self.done.append(self.round)
-            if self.results:
-                append_result(self.results, self.round.result_row(self.trainee))
+    def name(self, fault_id: str) -> Naming:
+        """Name a fault in the current exercise (Round.name); record the result when the
+        naming ended it."""
+        naming = self.round.name(fault_id)
+        if naming.score is not None:
+            self._record(self.round)
+        return naming
+
+    def reveal(self) -> Score:
+        """Give up the current exercise and show its fault (Round.reveal), recorded."""
+        score = self.round.reveal()
+        self._record(self.round)
         return score
+
+    def abandon(self) -> Score | None:
+        """Leave the current exercise (Round.abandon), recorded as abandoned; None when
+        it had already ended (nothing more to record)."""
+        rnd = self.round
+        if rnd.score is not None:
+            return None
+        score = rnd.abandon()
+        self._record(rnd)
+        return score
+
+    def _record(self, rnd: Round) -> None:
+        with self._lock:
+            if any(r is rnd for r in self.done):
+                return
+            self.done.append(rnd)
+            if self.results:
+                append_result(self.results, rnd.result_row(self.trainee))
 
     def next_round(self) -> Round | None:
         """Go on to the next exercise (the current one must be scored); None at the end."""
@@ -514,7 +826,9 @@ def _resolve_case(case: str, base: Path) -> str:
 @dataclass(frozen=True)
 class TraineeSummary:
     """One trainee's record: exercises, right answers, misses by part family and by mode
-    class (each as (misses, tried)), readings used against diag's advice."""
+    class (each as (misses, tried)), readings used against diag's advice, exercises left
+    before naming (`left`, kept out of the other figures), and the mean points (None for
+    a results file written before points were scored)."""
 
     trainee: str
     exercises: int
@@ -525,10 +839,20 @@ class TraineeSummary:
     advice_readings: float
     early_misses: int
     needs: tuple[str, ...]
+    left: int = 0
+    points: float | None = None
+
+
+def _whole(text: str | None) -> int | None:
+    """A whole number from a CSV cell; None when the cell is blank or missing."""
+    text = (text or "").strip()
+    return int(text) if text else None
 
 
 def read_results(paths: Iterable[str]) -> list[dict[str, str]]:
-    """Rows of one or more class results CSVs. Raises DiagError on a missing column."""
+    """Rows of one or more class results CSVs. Raises DiagError on a missing column or a
+    bad number. Files written before namings were scored lack the later columns (status,
+    points, ...): a row there that is not correct ended on one wrong naming."""
     rows: list[dict[str, str]] = []
     for path in paths:
         try:
@@ -549,9 +873,17 @@ def read_results(paths: Iterable[str]) -> list[dict[str, str]]:
                     row["_correct"] = bool(int(row["correct"]))
                     row["_used"] = int(row["readings_used"])
                     row["_advice"] = float(row["advice_readings"])
+                    row["_points"] = _whole(row.get("points"))
+                    first = _whole(row.get("first_wrong_at"))
                 except (TypeError, ValueError):
-                    raise DiagError("correct and readings_used must be whole numbers, "
-                                    "advice_readings a number", file=path, line=n) from None
+                    raise DiagError("correct, readings_used, points and first_wrong_at must "
+                                    "be whole numbers, advice_readings a number", file=path,
+                                    line=n) from None
+                status = (row.get("status") or "").strip()
+                if not status and not row["_correct"]:
+                    first = row["_used"]  # an older file: the one naming ended it
+                row["_left"] = status == ABANDONED
+                row["_first_wrong"] = first
                 rows.append(row)
     return rows
 
@@ -560,13 +892,17 @@ def summarise(rows: Sequence[dict]) -> list[TraineeSummary]:
     """Per trainee (in order of first appearance): misses by part family and mode class,
     and what to practise. A family or class is named when at least one exercise of it was
     missed, worst miss rate first; over-reading when the readings used exceed
-    OVERREAD_RATIO times what diag's advice needed; naming too early when misses came
-    with fewer readings than the advice needed."""
+    OVERREAD_RATIO times what diag's advice needed; naming too early when a first wrong
+    naming came with fewer readings than the advice needed. Exercises left before naming
+    are counted apart (`left`) and kept out of those figures; their 0 points count in the
+    mean."""
     order: dict[str, list[dict]] = {}
     for r in rows:
         order.setdefault(r["trainee"], []).append(r)
     out = []
-    for who, rs in order.items():
+    for who, every in order.items():
+        rs = [r for r in every if not r["_left"]]
+        left = len(every) - len(rs)
         fam: dict[str, list[int]] = {}
         mode: dict[str, list[int]] = {}
         for r in rs:
@@ -576,7 +912,8 @@ def summarise(rows: Sequence[dict]) -> list[TraineeSummary]:
                 t[1] += 1
         used = sum(r["_used"] for r in rs)
         advice = sum(r["_advice"] for r in rs)
-        early = sum(1 for r in rs if not r["_correct"] and r["_used"] < r["_advice"])
+        early = sum(1 for r in rs
+                    if r["_first_wrong"] is not None and r["_first_wrong"] < r["_advice"])
         needs = []
         for table in (fam, mode):
             for key, (miss, tried) in sorted(table.items(),
@@ -587,12 +924,16 @@ def summarise(rows: Sequence[dict]) -> list[TraineeSummary]:
             needs.append(f"over-reading: {used} readings where diag's advice needed "
                          f"{advice:.0f}")
         if early:
-            needs.append(f"naming too early: {early} miss(es) with fewer readings than "
-                         "the advice needed")
+            needs.append(f"naming too early: {early} exercise(s) with a wrong naming made "
+                         "on fewer readings than the advice needed")
+        if left:
+            needs.append(f"left {left} exercise(s) before naming a fault")
+        pts = [r["_points"] for r in every if r["_points"] is not None]
         out.append(TraineeSummary(
-            trainee=who, exercises=len(rs), correct=sum(r["_correct"] for r in rs),
+            trainee=who, exercises=len(every), correct=sum(r["_correct"] for r in rs),
             by_family={k: (v[0], v[1]) for k, v in fam.items()},
             by_mode={k: (v[0], v[1]) for k, v in mode.items()},
             readings_used=used, advice_readings=advice, early_misses=early,
-            needs=tuple(needs)))
+            needs=tuple(needs), left=left,
+            points=float(np.mean(pts)) if pts else None))
     return out
