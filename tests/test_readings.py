@@ -134,3 +134,33 @@ def test_a_point_typed_in_another_letter_case_is_the_case_s_point(case):
     assert sorted(r.point for r in rf.single()) == ["TP3", "TP7"] and not rf.errors
     assert readings.point_of(case, "tp7").id == "TP7"
     assert readings.point_of(case, "TP77") is None
+
+
+def test_a_supply_current_reverses_only_where_another_supply_can_drive_it(case, tmp_path):
+    # One supply: its current cannot run backwards beyond the meter's allowance.
+    with pytest.raises(DiagError, match="negative"):
+        readings.check_value(case, "TP1", "dc", "-1.3m")
+    # Two supplies: a 5 V logic pin (50 Ω output resistance) can feed a dead 12 V rail
+    # back through a junction, so V1's current may read negative, down to what the pin
+    # can deliver: 5 V x 1.05 (tolerance) x 1.05 (`over_supply`) / 50 Ω = 110 mA
+    # (Ohm's law), plus the 0.1 mA allowance of rules/checks.yaml.
+    two = tmp_path / "two.yaml"
+    two.write_text("""\
+case: 1
+title: Logic pin into a transistor switch
+parts:
+  V1: {kind: supply, plus: vcc, minus: gnd, volts: 12, tol: 5%, r_source: 0.2}
+  V2: {kind: supply, plus: logic, minus: gnd, volts: 5, tol: 5%, r_source: 50}
+  R1: {kind: resistor, nodes: [logic, base], ohms: 3k3}
+  R2: {kind: resistor, nodes: [vcc, col], ohms: 1k}
+  Q1: {kind: npn, c: col, b: base, e: gnd}
+points:
+  TP1: {supply: V1, where: "ammeter in the 12 V lead"}
+  TP2: {node: col, where: "Q1 collector"}
+""", encoding="utf-8")
+    c2 = load_case(two)
+    assert readings.check_value(c2, "TP1", "dc", "-1.3m") == pytest.approx(-1.3e-3)
+    lo, _ = readings.limits(c2)[("TP1", "dc")]
+    assert lo == pytest.approx(-(5 * 1.05 * 1.05 / 50 + 1e-4))
+    with pytest.raises(DiagError, match="negative: probes reversed"):
+        readings.check_value(c2, "TP1", "dc", "-0.2")  # past it: the leads swapped

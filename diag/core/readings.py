@@ -53,7 +53,8 @@ class ReadingsFile:
 
 def limits(case: Case, rules=None) -> dict[tuple[str, str], tuple[float, float]]:
     """(point, kind) -> (lowest, highest) reading the circuit can produce under any fault,
-    from its supplies alone: volts, amperes at supply points."""
+    from its supplies alone: volts, amperes at supply points (a supply's current below
+    zero only as far as the other supplies can drive it back)."""
     rules = rules or load_rules()
     cfg = rules["checks"].get("readings") or {}
     over = float(cfg.get("over_supply", 0.05))
@@ -65,14 +66,21 @@ def limits(case: Case, rules=None) -> dict[tuple[str, str], tuple[float, float]]
     vpk = (sig.value or 0.0) * math.sqrt(2) if sig is not None else 0.0
     vmax = (vsum + vpk) * (1 + over) + neg_v
     positive = case.nothing_below_ground
+    def most_amps(sp) -> float:  # what the supply's source resistance lets through
+        r = float(sp.fields.get("r_source", 0.0) or 0.0)
+        v = abs(sp.value or 0.0) * (1 + (sp.tol or 0.0)) * (1 + over)
+        return v / r if r > 0 else math.inf
+
     out = {}
     for pt in case.points:
         for kind in pt.reads:
             if pt.supply:
                 sp = case.part(pt.supply)
-                r = float(sp.fields.get("r_source", 0.0) or 0.0)
-                imax = (abs(sp.value or 0.0) * (1 + over) / r) if r > 0 else math.inf
-                out[(pt.id, kind)] = (-neg_a, imax)
+                # another supply can drive current back into this one (a logic pin
+                # feeding a dead rail through a junction): down to what the others let
+                # through; with one supply only the meter's allowance below zero
+                back = sum(most_amps(o) for o in supplies if o.ref != sp.ref)
+                out[(pt.id, kind)] = (-(back + neg_a), most_amps(sp))
             elif kind == "ac":
                 out[(pt.id, kind)] = (0.0, vmax)
             elif positive and (pt.minus in (None, case.ground)):
