@@ -29,7 +29,6 @@ from diag.core.drill import (
     fault_family,
     follow_advice,
     load_exercises,
-    meter_text,
     pick_fault,
     read_results,
     summarise,
@@ -37,6 +36,7 @@ from diag.core.drill import (
 )
 from diag.core.engine import Engine
 from diag.core.errors import DiagError
+from diag.core.meter import display_text
 from diag.core.rules import load_rules
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -429,20 +429,20 @@ def test_quitting_the_interface_records_the_running_exercise(engine, tmp_path):
         [("cy", "abandoned", "1")]
 
 
-def test_meter_text_as_a_3_5_digit_display_shows_it(engine):
+def test_display_text_as_a_3_5_digit_display_shows_it(engine):
     # handheld-3.5 (SPEC section 1): 2000 counts; a range's digits are those of one count,
     # in the range's own prefix (200 mV: 0.1 mV; 2 V: 1 mV; 20 V: 10 mV; 20 mA: 10 µA)
     m = engine.case.meter
-    assert meter_text(0.0455, "ac", "V", m) == "45.5 mV rms"
-    assert meter_text(1.483, "dc", "V", m) == "1.483 V"
-    assert meter_text(8.54, "dc", "V", m) == "8.54 V"
-    assert meter_text(-0.65, "dc", "V", m) == "-0.650 V"
-    assert meter_text(0.0, "dc", "V", m) == "0.0 mV"
-    assert meter_text(123.4, "dc", "V", m) == "123.4 V"
-    assert meter_text(0.01231, "dc", "A", m) == "12.31 mA"
-    assert meter_text(0.001075, "dc", "A", m) == "1.075 mA"
-    assert meter_text(0.0771, "dc", "A", m) == "77.1 mA"
-    assert meter_text(float("inf"), "dc", "V", m) == "OL"
+    assert display_text(0.0455, "ac", "V", m) == "45.5 mV rms"
+    assert display_text(1.483, "dc", "V", m) == "1.483 V"
+    assert display_text(8.54, "dc", "V", m) == "8.54 V"
+    assert display_text(-0.65, "dc", "V", m) == "-0.650 V"
+    assert display_text(0.0, "dc", "V", m) == "0.0 mV"
+    assert display_text(123.4, "dc", "V", m) == "123.4 V"
+    assert display_text(0.01231, "dc", "A", m) == "12.31 mA"
+    assert display_text(0.001075, "dc", "A", m) == "1.075 mA"
+    assert display_text(0.0771, "dc", "A", m) == "77.1 mA"
+    assert display_text(float("inf"), "dc", "V", m) == "OL"
 
 
 def test_close_names_for_a_typed_slip():

@@ -229,3 +229,15 @@ def test_ac_display_never_shows_below_zero():
     shown = mt.display(np.zeros(5000), "ac", H35, "V", rng)
     assert shown.min() >= 0.0
     assert shown.max() > 0.0  # the meter's count error still shows
+
+
+@pytest.mark.parametrize("value, text", [
+    (0.0455, "0.0455"),   # 45.5 mV on the 200 mV range: 0.1 mV a count (common practice)
+    (1.483, "1.483"),     # 2 V range, 1 mV a count
+    (12.6, "12.60"),      # 20 V range, 10 mV a count: the display shows 12.60
+    (float("inf"), "OL"),
+    (float("-inf"), "-OL"),
+])
+def test_display_number_has_the_digits_of_the_range(value, text):
+    # what `diag simulate` writes: the number the 3½-digit display shows, in volts
+    assert mt.display_number(value, H35, "V") == text

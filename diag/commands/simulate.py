@@ -3,8 +3,6 @@ fault, as the case's meter would show them (CSV point,kind,value; SPEC section 4
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 
@@ -16,20 +14,10 @@ def add_arguments(p) -> None:
                    help="random seed (default: a fresh unit each run)")
 
 
-def shown(value: float, unit: str, kind: str, meter) -> str:
-    """The value as the display shows it, in volts or amperes ("OL" over range)."""
-    from diag.core import meter as m
-
-    if math.isinf(value):
-        return "OL"
-    q = float(m.resolution(np.array([value]), meter, unit)[0])
-    digits = max(0, -int(math.floor(math.log10(q) + 1e-9)))
-    return f"{value:.{digits}f}"
-
-
 def run(args) -> int:
     from diag.core.case import load_case
     from diag.core.engine import Engine
+    from diag.core.meter import display_number
     from diag.core.rules import load_rules
 
     rules = load_rules()
@@ -39,7 +27,7 @@ def run(args) -> int:
     units = {(o.point, o.kind): o.unit for o in case.observables}
     rows = ["point,kind,value"]
     for r in eng.simulate(args.fault, rng):
-        value = shown(r.value, units[(r.point, r.kind)], r.kind, case.meter)
+        value = display_number(r.value, case.meter, units[(r.point, r.kind)])
         rows.append(f"{r.point},{r.kind},{value}")
     print("\n".join(rows))
     return 0

@@ -4,7 +4,7 @@ A `Drill` is a run of one or more exercises for one trainee. Each exercise (`Rou
 its unit once, from a Generator seeded by the exercise, through `Engine.simulate`: part
 tolerances and fault parameters are drawn once, so every reading of that exercise comes
 from the same unit, and each reading is what the case's meter shows (meter error and
-display resolution included; `meter_text` writes it as the display does). Same case,
+display resolution included; `meter.display_text` writes it as the display does). Same case,
 fault and seed give the same unit.
 
 The trainee names a fault (`Round.name`). A wrong naming costs points (a part replaced
@@ -40,6 +40,7 @@ from diag.core.advise import format_bits
 from diag.core.case import SEMICONDUCTORS, Case
 from diag.core.engine import Diagnosis, Engine, Reading
 from diag.core.errors import DiagError
+from diag.core.meter import display_text
 
 # diag's advice is followed until its leading group holds this much probability; the same
 # stopping rule the evaluation's guided mode uses (eval/score.py: p >= 0.9 on one group).
@@ -139,27 +140,6 @@ def show(engine: Engine, truth: np.ndarray, rng: np.random.Generator) -> tuple[R
     return tuple(Reading(o.point, o.kind, float(meter.display(np.array([truth[j]]), o.kind, m,
                                                               o.unit, rng)[0]))
                  for j, o in enumerate(engine.case.observables))
-
-
-def meter_text(value: float, kind: str, unit: str, meter_profile) -> str:
-    """A displayed reading written as the meter shows it: the digits of the autoranged
-    range's resolution, in the range's own prefix ("45.5 mV" on a 200 mV range, "1.483 V"
-    on 2 V, "12.31 mA" on 20 mA), "OL" over range, " rms" after an AC reading. `value` is
-    volts or amperes as `show` returns it (already rounded to the resolution)."""
-    from diag.core import meter
-
-    if math.isnan(value):
-        return "—"
-    if math.isinf(value):
-        text = ("-" if value < 0 else "") + "OL"
-    else:
-        q = float(meter.resolution(np.array([value]), meter_profile, unit)[0])
-        full = q * float(meter_profile["counts"])
-        scale, prefix = next(((f, pre) for f, pre in ((1.0, ""), (1e-3, "m"), (1e-6, "µ"))
-                              if full >= f), (1e-6, "µ"))
-        digits = max(0, -math.floor(math.log10(q / scale) + 1e-9))
-        text = f"{value / scale:.{digits}f} {prefix}{unit}"
-    return text + (" rms" if kind == "ac" else "")
 
 
 def close_names(text: str, ids: Sequence[str], n: int = 4) -> list[str]:
@@ -421,8 +401,8 @@ def telling_readings(engine: Engine, truth: str, named: str,
                 break
             u = units[key]
             out.append(Telling(key[0], key[1],
-                               f"{truth}: {meter_text(a.mid, key[1], u, m)}; "
-                               f"{named}: {meter_text(b.mid, key[1], u, m)}"))
+                               f"{truth}: {display_text(a.mid, key[1], u, m)}; "
+                               f"{named}: {display_text(b.mid, key[1], u, m)}"))
         if out:
             return tuple(out)
     return tuple(Telling(p, k, f"diag's advice, {format_bits(bits)} expected")
@@ -431,8 +411,8 @@ def telling_readings(engine: Engine, truth: str, named: str,
 
 def _span(low: float, high: float, kind: str, unit: str, meter_profile) -> str:
     """A predicted band as the meter would show its edges ("8.91 V to 9.02 V")."""
-    a = meter_text(low, "dc", unit, meter_profile)
-    b = meter_text(high, kind, unit, meter_profile)
+    a = display_text(low, "dc", unit, meter_profile)
+    b = display_text(high, kind, unit, meter_profile)
     if a + (" rms" if kind == "ac" else "") == b:
         return b
     return f"{a} to {b}"
@@ -463,7 +443,7 @@ def against(engine: Engine, fault_id: str, taken: Sequence[Reading]) -> tuple[Co
         sig = float(meter.sigma(np.array([edge]), r.kind, m, u)[0])
         off = abs(r.value - edge) / max(sig, 1e-15)
         why = (f"{fault_id} would read {_span(b.low, b.high, r.kind, u, m)} at {r.point} "
-               f"{r.kind}; you measured {meter_text(r.value, r.kind, u, m)}")
+               f"{r.kind}; you measured {display_text(r.value, r.kind, u, m)}")
         found.append((-off, len(found), Contrast(r.point, r.kind, b.low, b.high, r.value,
                                                  why)))
     found.sort(key=lambda t: (t[0], t[1]))
@@ -539,10 +519,10 @@ class Round:
         return _cost(self.case, [(r.point, r.kind) for r in self.taken])
 
     def shown(self, reading: Reading) -> str:
-        """A reading written as the case's meter shows it (meter_text)."""
+        """A reading written as the case's meter shows it (meter.display_text)."""
         o = next(o for o in self.case.observables
                  if (o.point, o.kind) == (reading.point, reading.kind))
-        return meter_text(reading.value, o.kind, o.unit, self.case.meter)
+        return display_text(reading.value, o.kind, o.unit, self.case.meter)
 
     def read(self, point: str, kind: str = "dc") -> Reading:
         """The meter reading at (point, kind), as the meter shows it. Asking again for a

@@ -20,6 +20,7 @@ or amperes, float64. All functions here are pure.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping, Sequence
 from typing import Any
 
@@ -70,6 +71,36 @@ def shown(values: Any, meter: Mapping[str, Any], unit: str) -> np.ndarray:
     v = np.asarray(values, dtype=float)
     q = resolution(v, meter, unit)
     return np.rint(v / q) * q
+
+
+def display_number(value: float, meter: Mapping[str, Any], unit: str) -> str:
+    """A displayed reading as a plain number in volts or amperes with the digits of the
+    autoranged range's resolution ("0.0455", "1.483", "12.6"), "OL" over range: how
+    `diag simulate` writes a readings file."""
+    if math.isinf(value):
+        return ("-" if value < 0 else "") + "OL"
+    q = float(resolution(np.array([value]), meter, unit)[0])
+    digits = max(0, -math.floor(math.log10(q) + 1e-9))
+    return f"{value:.{digits}f}"
+
+
+def display_text(value: float, kind: str, unit: str, meter: Mapping[str, Any]) -> str:
+    """A displayed reading written as the meter shows it: the digits of the autoranged
+    range's resolution, in the range's own prefix ("45.5 mV" on a 200 mV range, "1.483 V"
+    on 2 V, "12.31 mA" on 20 mA), "OL" over range, " rms" after an AC reading. `value` is
+    volts or amperes as `display` returns it (already rounded to the resolution)."""
+    if math.isnan(value):
+        return "—"
+    if math.isinf(value):
+        text = ("-" if value < 0 else "") + "OL"
+    else:
+        q = float(resolution(np.array([value]), meter, unit)[0])
+        full = q * float(meter["counts"])
+        scale, prefix = next(((f, pre) for f, pre in ((1.0, ""), (1e-3, "m"), (1e-6, "µ"))
+                              if full >= f), (1e-6, "µ"))
+        digits = max(0, -math.floor(math.log10(q / scale) + 1e-9))
+        text = f"{value / scale:.{digits}f} {prefix}{unit}"
+    return text + (" rms" if kind == "ac" else "")
 
 
 def shown_band(low: Any, high: Any, meter: Mapping[str, Any], unit: str
