@@ -122,3 +122,59 @@ def run_ngspice(text: str, timeout: float = 120) -> SpiceRun:
     if not run.op:
         raise RuntimeError("ngspice wrote no operating point:\n" + log[-4000:])
     return run
+
+
+def tran_ac_rms(text: str, source: str, vpk: float, hz: float, nodes: list[str],
+                settle_cycles: int = 400, window_cycles: int = 20,
+                timeout: float = 300) -> dict[str, tuple[float, float]]:
+    """AC rms of `nodes` (ngspice names) in the steady state of a transient run.
+
+    `text` is a netlist as diag.core.spice.netlist writes it (its `.op`/`.ac` analyses
+    are dropped); the signal `source` gets a sine of peak `vpk` volts at `hz`. The run
+    starts from the operating point and lasts settle_cycles + window_cycles periods;
+    each node's AC rms is sqrt(rms² - mean²) of its change from the operating point over
+    the last window, and over the window before it, returned as (last, previous) so a
+    caller can check that it had settled."""
+    import re
+
+    per = 1.0 / hz
+    body = [ln for ln in text.splitlines() if not ln.lower().startswith((".op", ".ac", ".end"))]
+    pat = re.compile(rf"^({re.escape(source)}\s+\S+\s+\S+\s+dc 0 ac \S+)", re.IGNORECASE)
+    hits = 0
+    for i, ln in enumerate(body):
+        if pat.match(ln):
+            body[i] = f"{ln} sin(0 {vpk:.9g} {hz:.9g})"
+            hits += 1
+    if hits != 1:
+        raise ValueError(f"signal source {source} not found once in the netlist")
+    t_end = (settle_cycles + window_cycles) * per
+    body.append(f".tran {per / 100:.6g} {t_end:.6g} 0 {per / 100:.6g}")
+    spans = {"a": (t_end - window_cycles * per, t_end),
+             "b": (t_end - 2 * window_cycles * per, t_end - window_cycles * per)}
+    for n in nodes:
+        # measured through a blocking capacitor charged at the operating point (1 µF into
+        # 1e12 ohm: no load, no settling), so that the printed six digits carry the AC and
+        # not the node's DC level
+        body += [f"C_acm_{n} {n} acm_{n} 1u", f"R_acm_{n} acm_{n} 0 1e12"]
+        for w, (t0, t1) in spans.items():
+            body.append(f".meas tran r{w}_{n} rms v(acm_{n}) from={t0:.9g} to={t1:.9g}")
+            body.append(f".meas tran m{w}_{n} avg v(acm_{n}) from={t0:.9g} to={t1:.9g}")
+    body.append(".end")
+    with tempfile.TemporaryDirectory(prefix="diag-ngspice-") as tmp:
+        cir = Path(tmp) / "deck.cir"
+        cir.write_text("\n".join(body) + "\n", encoding="utf-8")
+        proc = subprocess.run(["ngspice", "-b", str(cir)], cwd=tmp, capture_output=True,
+                              text=True, timeout=timeout)
+    log = proc.stdout + proc.stderr
+    got = {k.lower(): float(v) for k, v in
+           re.findall(r"^\s*(\w+)\s*=\s*([-+0-9.eE]+)", log, flags=re.MULTILINE)}
+    out = {}
+    for n in nodes:
+        vals = []
+        for w in spans:
+            r, m = got.get(f"r{w}_{n}".lower()), got.get(f"m{w}_{n}".lower())
+            if r is None or m is None:
+                raise RuntimeError(f"ngspice measured no {n}:\n{log[-3000:]}")
+            vals.append((max(r * r - m * m, 0.0)) ** 0.5)
+        out[n] = (vals[0], vals[1])
+    return out

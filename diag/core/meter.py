@@ -193,7 +193,8 @@ def _rows(params: Mapping[str, Any], idx: np.ndarray, B: int) -> dict[str, Any]:
 
 
 def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
-            observables: Sequence[Any], meter: Mapping[str, Any]) -> np.ndarray:
+            observables: Sequence[Any], meter: Mapping[str, Any], *,
+            large_signal: bool = True) -> np.ndarray:
     """Meter readings (B, M) float64 at `observables` (Case.observables order), loading
     included, meter error excluded.
 
@@ -205,12 +206,14 @@ def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     point's nodes (Newton from the unloaded solution) and the loaded voltage is read.
     AC points: the rms magnitude of the phasor difference (ac.v) divided by r_in ∥ c_in
     against the AC Thevenin impedance at the signal frequency; for the variants solved
-    again, the small-signal system about the loaded operating point with r_in ∥ c_in in
-    it. Supply points: the DC current drawn from that supply (dc.i_supply, amperes), with
-    the ammeter's burden (`a_burden` ohms, in series with the supply while it is read)
-    applied by a solve with the supply's source resistance raised by it where the burden
-    is more than LOAD_EXACT of the loop resistance. Variants that did not converge (dc.ok
-    False) read NaN. `ac` may be None when no observable is an ac reading.
+    again, the small-signal system about the loaded operating point with r_in ∥ c_in in it,
+    then (`large_signal`) limited where the unit is overdriven (overdrive.limit_observed: no
+    stage swings past its rails; False gives the small-signal readings). Supply points: the
+    DC current drawn from that supply (dc.i_supply, amperes), with the ammeter's burden
+    (`a_burden` ohms, in series with the supply while it is read) applied by a solve with
+    the supply's source resistance raised by it where the burden is more than LOAD_EXACT of
+    the loop resistance. Variants that did not converge (dc.ok False) read NaN.
+    `ac` may be None when no observable is an ac reading.
     """
     from diag.core import solver
 
@@ -277,7 +280,11 @@ def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
         for ref, cols in supply_cols.items():
             _burden(circuit, params, dc, ok, B, ref, cols, burden, out)
     out[~ok, :] = np.nan
-    return out
+    if not large_signal:
+        return out
+    from diag.core import overdrive
+
+    return overdrive.limit_observed(case, params, observables, out)
 
 
 def _reload(circuit, params, B, again, volt_cols, r_in, zin, out) -> None:
