@@ -9,6 +9,9 @@ Sets: `fault` (every modelled single fault of SPEC section 3, made physical), `h
 unrelated faults, a solder bridge, a transistor fitted with collector and emitter swapped).
 Each case gives DIR/<case>-batch.csv (`unit,point,kind,value`) and DIR/<case>-truth.csv
 (`unit,fault,set,detail`). Unit ids are shuffled so the batch order tells nothing.
+AC readings are what a meter shows of the tone at the case's amplitude: small-signal where
+the unit behaves linearly, transient runs where it does not (`--transient`, see
+`measure_benches`).
 """
 
 from __future__ import annotations
@@ -28,8 +31,8 @@ from diag.core.case import Case, load_case
 from diag.core.paths import cases_dir
 from diag.core.rules import load_rules
 from eval import inject, meterlike
-from eval.spicerun import ngspice_path, run_decks
-from eval.unit import BenchUnit, bench, draw_unit, measure_script
+from eval.spicerun import ngspice_path, run_decks_tags
+from eval.unit import BenchUnit, bench, draw_unit, measure_script, transient_script
 
 # Shares of a mixed triage batch (--units N): healthy, single fault, blunder, unmodelled.
 MIX = {"healthy": 0.15, "fault": 0.65, "blunder": 0.10, "unmodelled": 0.10}
@@ -97,23 +100,134 @@ def build(case: Case, what: tuple[str, str | None], seed: int) -> GenUnit:
     return GenUnit(s, label, detail, u, seed, alone=alone)
 
 
-def measure(case: Case, units: list[GenUnit], jobs: int | None = None) -> None:
-    """Run every unit's deck in ngspice; fill `true` (loaded meter input, volts/amperes)."""
-    obs = case.observables
-    res = run_decks([measure_script(g.bench, obs) for g in units], [len(obs)] * len(units),
-                    jobs=jobs)
+def measure(case: Case, units: list[GenUnit], jobs: int | None = None,
+            transient: str | None = None, stats: dict | None = None) -> None:
+    """Run every unit's decks in ngspice; fill `true` (loaded meter input, volts/amperes).
+    `transient` and `stats` as in `measure_benches`."""
+    res = measure_benches(case, [g.bench for g in units], jobs, transient, stats)
     for g, r in zip(units, res, strict=True):
         g.true = r
 
 
-def mark_masked(case: Case, units: list[GenUnit], jobs: int | None = None) -> None:
+def measure_benches(case: Case, units: list[BenchUnit], jobs: int | None = None,
+                    transient: str | None = None,
+                    stats: dict | None = None) -> list[list[float]]:
+    """Every observable of every unit as the meter reads it (volts, amperes; NaN where
+    ngspice gave no answer). DC readings and supply currents are operating points; AC
+    readings are small-signal, then read again by transient runs (`transient_ac`) on the
+    units `transient` names: "nonlinear" (those `nonlinear` finds), "all" or "none";
+    default eval/bench.yaml `transient.units`. `stats`, if given, counts the units
+    `checked`, those read by `transient`, their `readings` and the `unsettled`."""
+    obs = case.observables
+    ac = [j for j, ob in enumerate(obs) if ob.kind == "ac"]
+    tr = bench()["transient"]
+    mode = transient or tr["units"]
+    if mode not in ("nonlinear", "all", "none"):
+        raise ValueError(f"transient mode {mode!r}: use nonlinear, all or none")
+    if not ac or case.signal is None:
+        mode = "none"
+    check = tuple(int(e) for e in tr["check_ends"]) if mode == "nonlinear" else ()
+    tagged = run_decks_tags([measure_script(u, obs, check) for u in units],
+                            [len(obs)] * len(units), jobs)
+    res = [r["@@"] for r in tagged]
+    if mode == "none":
+        return res
+    todo = [k for k, r in enumerate(res) if all(math.isfinite(v) for v in r)]
+    if mode == "nonlinear":
+        if stats is not None:
+            stats["checked"] = stats.get("checked", 0) + len(todo)
+        todo = [k for k in todo if nonlinear(tagged[k], ac, len(check))]
+    tran = transient_ac(case, [units[k] for k in todo], ac, jobs, stats)
+    for k, t in zip(todo, tran, strict=True):
+        for j in ac:
+            res[k][j] = t[j]
+    return res
+
+
+def _tagged(r: dict[str, list[float]], tag: str, j: int) -> float:
+    """Value `j` a deck echoed under `tag`, NaN if it echoed none."""
+    row = r.get(tag)
+    return row[j] if row is not None else math.nan
+
+
+def nonlinear(r: dict[str, list[float]], ac: list[int], n_check: int) -> bool:
+    """Whether a unit's small-signal deck (`measure_script` with `check`, every meter
+    idle) shows it departing from small-signal behaviour: at some ac point the check
+    run's windows have not `settled`, or the last is more than eval/bench.yaml
+    `transient.linear_rel` (+ `settled_abs`) from the small-signal reading. In a linear
+    circuit superposition makes the two the same; a stage that clips, a junction driven
+    by more than a few millivolts, one that the tone's peaks turn on, make them differ."""
+    tr = bench()["transient"]
+    rel, floor = float(tr["linear_rel"]), float(tr["settled_abs"])
+    for j in ac:
+        vals = [_tagged(r, f"@c{k}", j) for k in range(n_check)]
+        small = _tagged(r, "@~", j)
+        if not settled(vals) or not abs(vals[-1] - small) <= rel * abs(small) + floor:
+            return True
+    return False
+
+
+def settled(vals: list[float]) -> bool:
+    """Whether successive windows' readings (volts rms) agree: each within eval/bench.yaml
+    `transient.settled_rel` of the last, or `settled_abs`; False if any is not finite."""
+    tr = bench()["transient"]
+    tol = float(tr["settled_rel"]) * abs(vals[-1]) + float(tr["settled_abs"])
+    return (all(math.isfinite(v) for v in vals)
+            and all(abs(b - a) <= tol for a, b in zip(vals, vals[1:], strict=False)))
+
+
+def transient_ac(case: Case, units: list[BenchUnit], which: list[int],
+                 jobs: int | None = None, stats: dict | None = None
+                 ) -> list[dict[int, float]]:
+    """The ac observables `which` of each unit read by `unit.transient_script` with the
+    meter connected (volts rms, AC-coupled, over whole periods), run by run through
+    eval/bench.yaml `transient.runs`: a reading goes on to the next, longer run while its
+    windows have not `settled` (coupling capacitors still charging to where the clipped
+    or rectified waveform holds them). The last window of the last run taken is kept;
+    one still moving at the end of the last run is counted in `stats["unsettled"]`, with
+    its last two windows' relative difference in `stats["unsettled_max"]`."""
+    tr = bench()["transient"]
+    obs = case.observables
+    runs = [tuple(int(e) for e in ends) for ends in tr["runs"]]
+    out: list[dict[int, float]] = [{} for _ in units]
+    pending = [(k, list(which)) for k in range(len(units))]
+    st = stats if stats is not None else {}
+    st["transient"] = st.get("transient", 0) + len(units)
+    for n, ends in enumerate(runs):
+        if not pending:
+            break
+        st["readings"] = st.get("readings", 0) + sum(len(js) for _, js in pending)
+        res = run_decks_tags([transient_script(units[k], obs, js, ends)
+                              for k, js in pending], [len(obs)] * len(pending), jobs,
+                             timeout=300.0)
+        left = []
+        for (k, js), r in zip(pending, res, strict=True):
+            again = []
+            for j in js:
+                vals = [_tagged(r, f"@t{m}", j) for m in range(len(ends))]
+                out[k][j] = vals[-1]
+                if not math.isfinite(vals[-1]) or settled(vals):
+                    continue
+                if n + 1 < len(runs):
+                    again.append(j)
+                else:
+                    st["unsettled"] = st.get("unsettled", 0) + 1
+                    st["unsettled_max"] = max(st.get("unsettled_max", 0.0), abs(
+                        vals[-1] - vals[-2]) / max(abs(vals[-1]), 1e-12))
+            if again:
+                left.append((k, again))
+        pending = left
+    return out
+
+
+def mark_masked(case: Case, units: list[GenUnit], jobs: int | None = None,
+                transient: str | None = None, stats: dict | None = None) -> None:
     """For two-fault units: when the unit reads, at every observable, within the meter's
     stated accuracy of one member fault alone (same unit, same fault values), the other
     fault is hidden; the detail then ends with `masked: reads as <fault> alone`."""
     obs = case.observables
     alone = [(g, f, v) for g in units for f, v in g.alone]
-    res = run_decks([measure_script(v, obs) for _, _, v in alone], [len(obs)] * len(alone),
-                    jobs=jobs)
+    res = measure_benches(case, [v for _, _, v in alone], jobs, transient, stats)
     for (g, f, _), r in zip(alone, res, strict=True):
         if "masked:" in g.detail:
             continue
@@ -178,12 +292,14 @@ def _mistake(kind, old, j, g, obs, meter, rng) -> float | None:
 
 
 def generate_case(case: Case, plan_: list[tuple[str, str | None]], seed: int,
-                  jobs: int | None = None, retries: int = 3) -> tuple[list[GenUnit], int]:
+                  jobs: int | None = None, retries: int = 3, transient: str | None = None,
+                  stats: dict | None = None) -> tuple[list[GenUnit], int]:
     """Build, simulate and display every planned unit. A unit ngspice cannot solve is
-    redrawn (new seed) up to `retries` times, then dropped; returns (units, dropped)."""
+    redrawn (new seed) up to `retries` times, then dropped; returns (units, dropped).
+    `transient` and `stats` as in `measure_benches`."""
     seeds = np.random.SeedSequence(seed).generate_state(len(plan_) * (retries + 1))
     units = [build(case, w, int(seeds[i])) for i, w in enumerate(plan_)]
-    measure(case, units, jobs)
+    measure(case, units, jobs, transient, stats)
     dropped = 0
     for attempt in range(1, retries + 1):
         bad = [i for i, g in enumerate(units) if not all(math.isfinite(v) for v in g.true)]
@@ -191,14 +307,14 @@ def generate_case(case: Case, plan_: list[tuple[str, str | None]], seed: int,
             break
         for i in bad:
             units[i] = build(case, plan_[i], int(seeds[attempt * len(plan_) + i]))
-        measure(case, [units[i] for i in bad], jobs)
+        measure(case, [units[i] for i in bad], jobs, transient, stats)
     keep = []
     for g in units:
         if all(math.isfinite(v) for v in g.true):
             keep.append(g)
         else:
             dropped += 1
-    mark_masked(case, [g for g in keep if g.alone], jobs)
+    mark_masked(case, [g for g in keep if g.alone], jobs, transient, stats)
     for g in keep:
         display(case, g)
     order = np.random.default_rng([seed, 2]).permutation(len(keep))
@@ -248,6 +364,10 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--unmodelled", type=int, default=30)
     ap.add_argument("--seed", type=int, default=0)
     ap.add_argument("--jobs", type=int, default=None)
+    ap.add_argument("--transient", choices=("nonlinear", "all", "none"),
+                    help="which units have their AC readings taken by transient runs: "
+                         "those that do not behave linearly (eval/bench.yaml default), "
+                         "all, or none (small-signal only, as before)")
     a = ap.parse_args(argv)
     if ngspice_path() is None:
         print("eval.generate: ngspice is not on PATH; install it to generate units",
@@ -264,14 +384,24 @@ def main(argv: list[str] | None = None) -> int:
         p = (plan_mix(case, rng, a.units) if a.units else
              plan(case, rng, a.per_fault, a.healthy, a.blunder, a.unmodelled))
         seed = int(np.random.SeedSequence(key).generate_state(1)[0])
-        units, dropped = generate_case(case, p, seed=seed, jobs=a.jobs)
+        stats: dict = {}
+        units, dropped = generate_case(case, p, seed=seed, jobs=a.jobs,
+                                       transient=a.transient, stats=stats)
         b, t = write(case, units, Path(a.out))
         counts = {s: sum(g.set == s for g in units) for s in
                   ("healthy", "fault", "blunder", "unmodelled")}
         manifest["cases"][str(Path(path).resolve())] = {
-            "batch": b.name, "truth": t.name, "units": counts, "dropped": dropped}
-        print(f"{Path(str(path)).name}: {len(units)} units ({counts}), {dropped} dropped "
-              f"-> {b}", file=sys.stderr)
+            "batch": b.name, "truth": t.name, "units": counts, "dropped": dropped,
+            "transient": stats}
+        tr = ""
+        if "checked" in stats:
+            tr = (f"; AC by transient on {stats.get('transient', 0)} of {stats['checked']} "
+                  f"units checked, {stats.get('readings', 0)} reading runs")
+            if stats.get("unsettled"):
+                tr += (f", {stats['unsettled']} reading(s) still moving at the end (last "
+                       f"window by up to {100 * stats['unsettled_max']:.1f} %)")
+        print(f"{Path(str(path)).name}: {len(units)} units ({counts}), {dropped} dropped"
+              f"{tr} -> {b}", file=sys.stderr)
     (Path(a.out) / "manifest.json").write_text(json.dumps(manifest, indent=2) + "\n",
                                                encoding="utf-8")
     return 0

@@ -1,4 +1,5 @@
-"""Run ngspice decks in batch mode (several at once) and collect their `@@ i value` lines."""
+"""Run ngspice decks in batch mode (several at once) and collect their `@@ i value` lines
+(and other tagged lines, `@<tag> i value`, that some decks echo besides)."""
 
 from __future__ import annotations
 
@@ -10,7 +11,7 @@ import tempfile
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
-_LINE = re.compile(r"^@@ (\d+) (\S+)\s*$")
+_LINE = re.compile(r"^(@\S*) (\d+) (\S+)\s*$")
 
 
 def ngspice_path() -> str | None:
@@ -19,8 +20,14 @@ def ngspice_path() -> str | None:
 
 
 def run_deck(deck: str, n: int, timeout: float = 60.0) -> list[float]:
-    """Run one deck; return its `n` echoed values in index order (NaN where ngspice gave
-    none, e.g. an operating point that did not converge)."""
+    """Run one deck; return its `n` echoed `@@` values in index order (NaN where ngspice
+    gave none, e.g. an operating point that did not converge)."""
+    return run_deck_tags(deck, n, timeout)["@@"]
+
+
+def run_deck_tags(deck: str, n: int, timeout: float = 60.0) -> dict[str, list[float]]:
+    """Run one deck; return {tag: its `n` values in index order} for every tag it echoed
+    (`@@` always; NaN where ngspice gave none)."""
     exe = ngspice_path()
     if exe is None:
         raise RuntimeError("ngspice is not on PATH: install it (e.g. apt-get install ngspice)")
@@ -33,20 +40,27 @@ def run_deck(deck: str, n: int, timeout: float = 60.0) -> list[float]:
             text = proc.stdout
         except subprocess.TimeoutExpired:
             text = ""
-    vals = [float("nan")] * n
+    vals = {"@@": [float("nan")] * n}
     for line in text.splitlines():
         m = _LINE.match(line.strip())
         if m:
-            i = int(m.group(1))
+            row = vals.setdefault(m.group(1), [float("nan")] * n)
             try:
-                vals[i] = float(m.group(2))
+                row[int(m.group(2))] = float(m.group(3))
             except ValueError:
                 pass
     return vals
 
 
 def run_decks(decks: list[str], n: list[int], jobs: int | None = None) -> list[list[float]]:
-    """Run many decks on `jobs` processes (default: CPU count); results in input order."""
+    """Run many decks on `jobs` processes (default: CPU count); `@@` values in input
+    order."""
+    return [r["@@"] for r in run_decks_tags(decks, n, jobs)]
+
+
+def run_decks_tags(decks: list[str], n: list[int], jobs: int | None = None,
+                   timeout: float = 60.0) -> list[dict[str, list[float]]]:
+    """`run_deck_tags` over many decks on `jobs` processes; results in input order."""
     jobs = jobs or os.cpu_count() or 1
     with ThreadPoolExecutor(max_workers=jobs) as pool:
-        return list(pool.map(run_deck, decks, n))
+        return list(pool.map(lambda d, k: run_deck_tags(d, k, timeout), decks, n))

@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 import yaml
 
-from diag.core.case import Case, Observable, Part
+from diag.core.case import Case, Observable, Part, Point
 
 HERE = Path(__file__).resolve().parent
 
@@ -299,7 +299,10 @@ def netlist_lines(u: BenchUnit) -> list[str]:
             out.append(f"R_{r}_amm a_{r} {plus} {_fmt(bb['meter']['burden_idle_ohms'])}")
         elif k == "signal":
             plus, minus = node(p, "plus"), node(p, "minus")
-            out.append(f"V_{r} s_{r} {minus} DC 0 AC {_fmt(v['vac'])}")
+            # DC 0 for the operating point, AC for the small-signal pass, SIN (peak =
+            # rms x sqrt 2, zero phase at t = 0) for the transient one
+            out.append(f"V_{r} s_{r} {minus} DC 0 AC {_fmt(v['vac'])} "
+                       f"SIN(0 {_fmt(v['vac'] * math.sqrt(2))} {_fmt(v['hz'])})")
             out.append(f"R_{r}_src s_{r} {plus} {_fmt(v['r'])}")
         elif k in ("diode", "led", "zener"):
             out.append(f"D_{r} {node(p, 'anode')} {node(p, 'cathode')} M_{r}")
@@ -330,16 +333,12 @@ def _model_line(name: str, typ: str, card: dict[str, float]) -> str:
     return f".model {name} {typ} ({body})"
 
 
-def measure_script(u: BenchUnit, observables: tuple[Observable, ...]) -> str:
-    """Full ngspice deck: the unit, one idle meter per voltage point, and a .control
-    block that connects the meter (input resistance, and capacitance for ac) to one
-    point at a time, solves, and echoes `@@ <index> <value>` per observable. Supply
-    points read the supply's current with the ammeter's burden in series."""
+def _deck_head(u: BenchUnit) -> list[str]:
+    """The unit's netlist with one idle meter (open_ohms, and 1e-18 F where the point
+    reads ac) across every voltage point."""
     case = u.case
-    meter = case.meter
     bb = bench()["meter"]
     lines = [f"* diag eval unit of {Path(case.path).name}"] + netlist_lines(u)
-    pts = {p.id: p for p in case.points}
     for p in case.points:
         if p.node is None:
             continue
@@ -349,6 +348,33 @@ def measure_script(u: BenchUnit, observables: tuple[Observable, ...]) -> str:
         lines.append(f"R_meter_{pid} {plus} {minus} {_fmt(bb['open_ohms'])}")
         if "ac" in p.reads:
             lines.append(f"C_meter_{pid} {plus} {minus} 1e-18")
+    return lines
+
+
+def _probe(case: Case, point: Point) -> str:
+    """ngspice expression of a voltage point's reading (node, or node minus node)."""
+    plus = spice_node(case, point.node)
+    minus = spice_node(case, point.minus or case.ground)
+    return f"v({plus})" + (f"-v({minus})" if minus != "0" else "")
+
+
+def measure_script(u: BenchUnit, observables: tuple[Observable, ...],
+                   check: tuple[int, ...] = ()) -> str:
+    """Full ngspice deck: the unit, one idle meter per voltage point, and a .control
+    block that connects the meter (input resistance, and capacitance for ac) to one
+    point at a time, solves, and echoes `@@ <index> <value>` per observable. Supply
+    points read the supply's current with the ammeter's burden in series. AC readings
+    here are small-signal (`ac` at the signal frequency, volts rms): exact while every
+    stage is linear, wrong where one is not (a stage that clips reads too high; see
+    `transient_script`). With `check` (periods, ascending) and ac observables, the deck
+    then also echoes, every meter idle, the small-signal AC readings as `@~ <index>
+    <volts rms>` and the transient ones of `tran_lines` with windows ending at `check`
+    as `@c<k> <index> <volts rms>`: for a linear unit the two agree."""
+    case = u.case
+    meter = case.meter
+    bb = bench()["meter"]
+    lines = _deck_head(u)
+    pts = {p.id: p for p in case.points}
     hz = _signal_hz(u)
     ctl = [".control", "set noaskquit"]
     for i, ob in enumerate(observables):
@@ -361,9 +387,7 @@ def measure_script(u: BenchUnit, observables: tuple[Observable, ...]) -> str:
             ctl += ["op", f"let x = -i(V_{s})", f"echo \"@@ {i} $&x\"",
                     f"alter R_{s}_amm = {_fmt(bb['burden_idle_ohms'])}"]
             continue
-        plus = spice_node(case, p.node)
-        minus = spice_node(case, p.minus or case.ground)
-        expr = f"v({plus})" + (f"-v({minus})" if minus != "0" else "")
+        expr = _probe(case, p)
         ctl.append(f"alter R_meter_{pid} = {_fmt(float(meter['r_in']))}")
         if ob.kind == "ac":
             ctl.append(f"alter C_meter_{pid} = {_fmt(float(meter['c_in']))}")
@@ -372,5 +396,60 @@ def measure_script(u: BenchUnit, observables: tuple[Observable, ...]) -> str:
         else:
             ctl += ["op", f"let x = {expr}", f"echo \"@@ {i} $&x\""]
         ctl.append(f"alter R_meter_{pid} = {_fmt(bb['open_ohms'])}")
+    ac = [i for i, ob in enumerate(observables) if ob.kind == "ac"]
+    if check and ac:
+        ctl += ["destroy all", "op", f"ac lin 1 {_fmt(hz)} {_fmt(hz)}"]
+        for i in ac:
+            ctl += [f"let s{i} = mag({_probe(case, pts[observables[i].point])})",
+                    f"echo \"@~ {i} $&s{i}\""]
+        ctl += ["destroy all"] + tran_lines(u, observables, ac, check, "@c")
     ctl += ["quit", ".endc", ".end"]
     return "\n".join(lines + ctl) + "\n"
+
+
+def tran_lines(u: BenchUnit, observables: tuple[Observable, ...], which: list[int],
+               ends: tuple[int, ...], tag: str) -> list[str]:
+    """Control lines of one transient run from the DC operating point, the signal source
+    a sine of its rms x sqrt 2 at its frequency, the maximum step a
+    `transient.steps_per_period`th of a period (eval/bench.yaml), that echo for each ac
+    observable in `which` the AC-coupled rms sqrt(mean((v - mean v)^2)) of its point's
+    voltage over `window_periods` whole periods ending at each of `ends` (periods since
+    the tone started, ascending), as `<tag><k> <index> <volts rms>` for the k-th end."""
+    case = u.case
+    tr = bench()["transient"]
+    pts = {p.id: p for p in case.points}
+    period = 1.0 / _signal_hz(u)
+    step = _fmt(period / int(tr["steps_per_period"]))
+    win = int(tr["window_periods"])
+    out = [f"tran {step} {_fmt(ends[-1] * period)} {_fmt((ends[0] - win) * period)} {step}"]
+    for i in which:
+        assert observables[i].kind == "ac", observables[i]
+        out.append(f"let x{i} = {_probe(case, pts[observables[i].point])}")
+        for k, end in enumerate(ends):
+            lo, hi = _fmt((end - win) * period), _fmt(end * period)
+            out += [f"meas tran m{i}_{k} AVG x{i} from={lo} to={hi}",
+                    f"let y{i}_{k} = x{i} - m{i}_{k}",
+                    f"meas tran r{i}_{k} RMS y{i}_{k} from={lo} to={hi}",
+                    f"echo \"{tag}{k} {i} $&r{i}_{k}\""]
+    return out
+
+
+def transient_script(u: BenchUnit, observables: tuple[Observable, ...],
+                     which: list[int], ends: tuple[int, ...]) -> str:
+    """ngspice deck reading the ac observables `which` (indices into `observables`) as a
+    meter does: for each, the meter (r_in parallel c_in) connected across its point as
+    `measure_script` connects it, and one transient run (`tran_lines`) with windows
+    ending at `ends`, echoed `@t<k> <index> <volts rms>`."""
+    case = u.case
+    mtr = case.meter
+    pts = {p.id: p for p in case.points}
+    ctl = [".control", "set noaskquit"]
+    for i in which:
+        pid = _ident(pts[observables[i].point].id)
+        ctl += ["destroy all", f"alter R_meter_{pid} = {_fmt(float(mtr['r_in']))}",
+                f"alter C_meter_{pid} = {_fmt(float(mtr['c_in']))}"]
+        ctl += tran_lines(u, observables, [i], ends, "@t")
+        ctl += [f"alter C_meter_{pid} = 1e-18",
+                f"alter R_meter_{pid} = {_fmt(bench()['meter']['open_ohms'])}"]
+    ctl += ["quit", ".endc", ".end"]
+    return "\n".join(_deck_head(u) + ctl) + "\n"

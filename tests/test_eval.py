@@ -235,6 +235,84 @@ points:
     assert abs(by["C1:short"].true[0]) < 0.01       # 0.1-1 Ω across a 5 kΩ source
 
 
+@pytest.mark.ngspice
+def test_transient_ac_reading_is_the_ac_coupled_rms_of_a_divider(ngspice, tmp_path):
+    text = """case: 1
+title: tone on a biased divider
+about: a 1 V rms tone through 10 kΩ into a 10 kΩ / 10 kΩ divider from 10 V
+parts:
+  V1: {kind: supply, plus: top, minus: gnd, volts: 10, tol: 0.000001, r_source: 0.001}
+  V2: {kind: signal, plus: in, minus: gnd, vrms: 1, hz: 1k, r_source: 0.001}
+  R1: {kind: resistor, nodes: [top, mid], ohms: 10k, tol: 0.000001}
+  R2: {kind: resistor, nodes: [mid, gnd], ohms: 10k, tol: 0.000001}
+  R3: {kind: resistor, nodes: [in, mid], ohms: 10k, tol: 0.000001}
+points:
+  TP1: {node: mid, where: "divider tap", reads: [dc, ac]}
+"""
+    path = tmp_path / "tone.yaml"
+    path.write_text(text, encoding="utf-8")
+    case = load_case(str(path))
+    u = generate.build(case, ("healthy", None), seed=4).bench
+    dc, ac = generate.measure_benches(case, [u], transient="all")[0]
+    tone = u.values["V2"]["vac"]  # the generator's drawn amplitude, volts rms
+    # superposition by hand, the 10 MΩ meter across R2 (rules/meters.yaml handheld-3.5):
+    # 10 V x (R2 || R3 || 10M) / (R1 + R2 || R3 || 10M) DC, and the tone x
+    # (R1 || R2 || 10M) / (R3 + R1 || R2 || 10M); the meter's 100 pF (1.6 MΩ at 1 kHz)
+    # moves the tone by under 0.01 %
+    par = 1 / (1 / 10e3 + 1 / 10e6)
+    assert dc == pytest.approx(10 * (1 / (1 / par + 1 / 10e3)) / (10e3 + 1 / (1 / par + 1 / 10e3)),
+                               rel=1e-4)
+    # the transient reading is the AC-coupled rms over whole periods: the 3.3 V of DC on
+    # the node is not in it (a plain rms would read 3.35 V)
+    assert ac == pytest.approx(tone * (1 / (1 / par + 1 / 10e3)) /
+                               (10e3 + 1 / (1 / par + 1 / 10e3)), rel=2e-3)
+
+
+@pytest.mark.ngspice
+def test_transient_ac_readings_of_a_linear_stage_agree_with_small_signal(ngspice):
+    case = load_case(str(ROOT / "cases" / "mic-preamp.yaml"))
+    u = generate.build(case, ("healthy", None), seed=2).bench
+    small, = generate.measure_benches(case, [u], transient="none")
+    tran, = generate.measure_benches(case, [u], transient="all")
+    default, = generate.measure_benches(case, [u])
+    obs = case.observables
+    ac = [j for j, ob in enumerate(obs) if ob.kind == "ac"]
+    assert len(ac) == 5
+    for j, ob in enumerate(obs):
+        if ob.kind == "ac":
+            # the preamp's stages are linear at its 5 mV input (emitter resistors in
+            # circuit, outputs volts inside a 9 V rail): by superposition a sine of the
+            # tone's amplitude gives the small-signal phasor's magnitude as its rms, to
+            # within the handheld's 1 % AC accuracy (rules/meters.yaml)
+            assert tran[j] == pytest.approx(small[j], rel=0.01), ob
+        else:
+            assert tran[j] == small[j], ob   # a DC reading is the same operating point
+    # the default two-pass run sees this unit as linear and keeps the small-signal figures
+    assert default == small
+
+
+@pytest.mark.ngspice
+def test_an_overdriven_stage_reads_inside_the_rails(ngspice):
+    case = load_case(str(ROOT / "cases" / "mic-preamp.yaml"))
+    u = generate.build(case, ("fault", "R4:short"), seed=1).bench
+    small, = generate.measure_benches(case, [u], transient="none")
+    default, = generate.measure_benches(case, [u])
+    obs = case.observables
+    span = case.supply_span   # 9 V battery at the top of its 10 % tolerance
+    out = [j for j, ob in enumerate(obs) if ob.kind == "ac" and ob.point in ("TP8", "TP9")]
+    assert len(out) == 2
+    for j in out:
+        # with Q1's emitter resistor shorted the small-signal gain puts more AC on Q2's
+        # collector and the output than any waveform between the rails can carry: an
+        # AC-coupled waveform confined to a span V has at most V / 2 rms, a square wave
+        # between them (handbook)
+        assert small[j] > span / 2
+        # read as a meter does (transient, the tone at its amplitude) the stage clips:
+        # below the small-signal figure and no more than the square wave between the rails
+        assert default[j] < small[j]
+        assert default[j] <= span / 2
+
+
 def test_summary_splits_group_sizes_and_guided_runs():
     """The bookkeeping behind the README's explanation of two targets, worked by hand:
     group sizes per set and their floor (every faulty unit a group of one), and the
