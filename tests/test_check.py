@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import textwrap
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -186,3 +187,58 @@ def test_the_check_header_names_the_ambient_range(tmp_path, capsys):
     path = _write(tmp_path, SMALL.replace("VOLTS", "12"))
     lo, hi = load_rules()["faults"]["inference"]["ambient"]["celsius"]
     assert f"at {lo:g} to {hi:g} °C" in _run(capsys, path)[1]
+
+
+STAGE = """\
+    case: 1
+    title: Bypassed common-emitter stage
+    parts:
+      V1: {kind: supply, plus: vcc, minus: gnd, volts: 12, tol: 5%, r_source: 0.5}
+      S1: {kind: signal, plus: in, minus: gnd, vrms: LEVEL, hz: 1k, r_source: 0.01}
+      C1: {kind: capacitor, nodes: [in, base], farads: 100u}
+      R1: {kind: resistor, nodes: [vcc, base], ohms: 47k}
+      R2: {kind: resistor, nodes: [base, gnd], ohms: 10k}
+      R3: {kind: resistor, nodes: [vcc, col], ohms: 4k7}
+      R4: {kind: resistor, nodes: [emit, gnd], ohms: 1k}
+      C2: {kind: capacitor, nodes: [emit, gnd], farads: 1000u}
+      Q1: {kind: npn, c: col, b: base, e: emit}
+    points:
+      TP1: {node: col, where: "Q1 collector", reads: [dc, ac]}
+    """
+
+
+def test_a_signal_too_big_for_small_signal_predictions_is_named(tmp_path, capsys):
+    # With the emitter bypassed (1000 µF: 0.16 Ω at 1 kHz against re of about 25 Ω)
+    # the whole tone sits across the base-emitter junction. The exponential law
+    # i = I0 exp(v / VT) makes a second harmonic of v_peak / (4 VT) of the fundamental
+    # (Taylor series; VT = kT/q = 25.86 mV at 27 °C from CODATA via scipy.constants):
+    # 20 mV rms gives 0.02·√2 / (4·0.02586) = 27 %, past the 10 % limit; 2 mV rms 2.7 %.
+    from scipy import constants
+
+    vt = constants.k * 300.15 / constants.e
+    loud = _write(tmp_path, STAGE.replace("LEVEL", "20m"), "loud.yaml")
+    res = healthy_bands(load_case(str(loud)), K=0)
+    v, h = res.drive["Q1"]
+    assert v == pytest.approx(0.02, rel=0.02)
+    assert h == pytest.approx(0.02 * 2 ** 0.5 / (4 * vt), rel=0.03)
+    out = _run(capsys, loud)[1]
+    assert "Signal level: S1's 20 mV rms drives Q1's base-emitter junction" in out
+    assert "second harmonic about 27%" in out
+    # the suggested level brings it to the limit: 20 mV x 10 % / 27.3 % = 7.3 mV
+    import re
+
+    most = float(re.search(r"`vrms`\) to ([0-9.]+) mV or less", out).group(1))
+    assert most == pytest.approx(20 * 0.10 / (0.02 * 2 ** 0.5 / (4 * vt)), rel=0.02)
+    doc = json.loads(_run(capsys, loud, "--json")[1])
+    assert doc["junction_signal"]["Q1"]["second_harmonic"] == pytest.approx(h)
+    quiet = _write(tmp_path, STAGE.replace("LEVEL", "2m"), "quiet.yaml")
+    assert "Signal level" not in _run(capsys, quiet)[1]
+    # An unbypassed 1 kΩ emitter resistor is series feedback: the emitter follows the
+    # base, and the junction's distortion is divided by 1 + v_e / v_be (handbook: negative
+    # feedback divides distortion by 1 + loop gain). 0.5 V rms in leaves about 10 mV
+    # across the junction (14 % alone) and about 0.3 % in the stage: no warning.
+    path = Path(__file__).parent / "data" / "ce-stage-unbypassed.yaml"
+    res = healthy_bands(load_case(str(path)), K=0)
+    v, h = res.drive["Q1"]
+    assert 0.005 < v < 0.02 and h < 0.01
+    assert "Signal level" not in _run(capsys, path)[1]

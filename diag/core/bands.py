@@ -12,6 +12,7 @@ listed with the solver's reason and left out of the bands.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -20,6 +21,15 @@ import numpy as np
 from diag.core.case import Case
 
 BAND_PERCENTILES = (1.0, 99.0)
+# The AC predictions are small-signal: they hold while the signal across every conducting
+# base-emitter junction is small against its thermal voltage. A junction's current
+# i = I0 exp(v / (N VT)) driven by a sine of peak v makes a second harmonic of about
+# v / (4 N VT) of the fundamental (the exponential's Taylor series). An emitter that
+# follows the signal (an unbypassed emitter resistor, a follower) is series feedback: it
+# divides that distortion by 1 + v_e / v_be (the loop gain; negative feedback reduces
+# distortion by 1 + loop gain, handbook). Past this fraction `diag check` warns that the
+# case's signal level is too high.
+DISTORTION_LIMIT = 0.10
 MAINS_VOLTS = 30.0   # a supply above this gets the mains/high-voltage cautions (common
                      # practice, no source: the usual extra-low-voltage working limit)
 
@@ -58,6 +68,12 @@ class CheckResult:
     nominal_ok: bool = True
     nominal_why: str | None = None
     extra: dict = field(default_factory=dict)
+    drive: dict[str, tuple[float, float]] = field(default_factory=dict)
+
+    @property
+    def overdriven(self) -> dict[str, tuple[float, float]]:
+        """The transistors of `drive` past DISTORTION_LIMIT."""
+        return {r: d for r, d in self.drive.items() if d[1] > DISTORTION_LIMIT}
 
     def to_json(self, case_path: str | None = None) -> dict[str, Any]:
         """SPEC section 6 object (plus the extra keys regions, failed, draws)."""
@@ -74,6 +90,8 @@ class CheckResult:
             "failed": [{"draw": k, "why": why} for k, why in self.failed],
             "draws": self.K,
             "seed": self.seed,
+            "junction_signal": {r: {"vrms": v, "second_harmonic": h}
+                                for r, (v, h) in self.drive.items()},
         }
 
 
@@ -135,4 +153,32 @@ def healthy_bands(case: Case, rules: Any = None, K: int = 400, seed: int = 0) ->
                              o.unit) for m, o in enumerate(obs))
     return CheckResult(case=case, nodes=nodes, points=points, regions=regions,
                        failed=tuple(failed), cautions=case_cautions(case), K=K, seed=seed,
-                       nominal_ok=bool(dc0.ok[0]), nominal_why=dc0.why[0])
+                       nominal_ok=bool(dc0.ok[0]), nominal_why=dc0.why[0],
+                       drive=junction_drive(circuit, dc0, ac0, regions) if has_ac else {})
+
+
+def junction_drive(circuit, dc, ac, regions: dict[str, str]
+                   ) -> dict[str, tuple[float, float]]:
+    """Transistor ref -> (signal across its base-emitter junction, volts rms; the second
+    harmonic the stage makes, as a fraction of the fundamental, v·√2 / (4 N VT) divided
+    by the emitter's series feedback 1 + |v_e| / v) for each transistor conducting in the
+    first variant of `dc`/`ac` (see DISTORTION_LIMIT)."""
+    from diag.core.parts.base import VT
+
+    case = circuit.case
+
+    def v(node: str) -> complex:
+        return 0j if node == case.ground else complex(ac.v[0, circuit.node_index[node]])
+
+    out = {}
+    for part in case.parts:
+        if part.kind not in ("npn", "pnp") or regions.get(part.ref) not in ("active",
+                                                                            "saturated"):
+            continue
+        vbe = abs(v(part.terminal("b")) - v(part.terminal("e")))
+        if vbe <= 0.0:
+            continue
+        n = float(circuit.nominal.get(f"{part.ref}.nf", 1.0))
+        feedback = 1.0 + abs(v(part.terminal("e"))) / vbe
+        out[part.ref] = (vbe, vbe * math.sqrt(2.0) / (4.0 * n * VT) / feedback)
+    return out

@@ -142,12 +142,18 @@ def apply_ambient(circuit, params: dict, n: int, rng: np.random.Generator,
 def draw_unit(circuit, spec, n: int, rng: np.random.Generator,
               ambient: dict | None = None) -> dict:
     """n units (B = n) with one hypothesis's fault: tolerance draws, the ambient
-    temperature (when `ambient` is given, see `apply_ambient`; else 27 °C), then the
-    fault draws."""
+    temperature (when `ambient` is given, see `apply_ambient`; else 27 °C), the fault
+    draws, then each AC point's overdrive draw (uniform 0..1, overdrive.py)."""
     params = draw_healthy(circuit, n, rng)
     if ambient:
         params = apply_ambient(circuit, params, n, rng, ambient)
-    return apply_changes(circuit, params, spec.changes, n, rng)
+    params = apply_changes(circuit, params, spec.changes, n, rng)
+    from diag.core.overdrive import PREFIX
+
+    for k in circuit.nominal:  # last, so that they leave every other draw as it was
+        if k.startswith(PREFIX):
+            params[k] = rng.uniform(0.0, 1.0, n)
+    return params
 
 
 def draw_hypotheses(circuit, specs, K: int, seed: int, ambient: dict | None = None

@@ -131,11 +131,9 @@ def _compile(case: Case, models: Mapping[str, Any], rules_hash: str) -> Circuit:
         terms.append(MappingProxyType(t))
     sig = case.signal
     hz = float(sig.fields.get("hz") or SIGNAL_HZ) if sig is not None else SIGNAL_HZ
-    for pt in case.points:  # each unit's draw for an overdriven AC reading (overdrive.py)
-        if "ac" in pt.reads:
-            k = overdrive.key(pt.id)
-            nominal[k] = 0.5
-            spreads.append(Spread((k,), "uniform", -1.0, 1.0))  # 0.5 x (1 + U(-1, 1))
+    for pt in case.points:  # each unit's draw for an overdriven AC reading (overdrive.py,
+        if "ac" in pt.reads:  # drawn by ensemble.draw_unit after everything else)
+            nominal[overdrive.key(pt.id)] = 0.5
     return Circuit(case=case, nodes=nodes, node_index=MappingProxyType(node_index),
                    unknowns=tuple(unknowns), supplies=tuple(p.ref for p in supplies),
                    nominal=MappingProxyType(nominal), spreads=tuple(spreads), hz=hz,

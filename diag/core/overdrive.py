@@ -19,8 +19,8 @@ of its small-signal prediction at the output (g 1.3 to 2.5) and 0.59 to 0.84 at 
 first collector; sounder-driver with its speaker open 0.74 at the collector (g 1.3);
 every healthy unit within 0.3 % of it. The readings at the signal source's own node are
 left alone: the generator sets them. The draws s come from the unit's parameters
-("overdrive.<point>/ac", uniform in 0..1, drawn with the tolerances by
-ensemble.draw_healthy; 0.5 at nominal).
+("overdrive.<point>/ac", uniform in 0..1, drawn last by ensemble.draw_unit; 0.5 at
+nominal).
 """
 
 from __future__ import annotations
