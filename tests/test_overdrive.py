@@ -18,7 +18,8 @@ from diag.core.rules import load_rules
 
 
 def test_a_unit_below_the_onset_keeps_its_readings():
-    # S = 12 V: a sine across the rails is 12 / (2√2) = 4.243 V rms; half of it 2.121 V.
+    # S = 12 V: a sine across the rails is 12 / (2√2) = 4.243 V rms (the rms of a sine is
+    # its peak over √2, handbook); half of it 2.121 V.
     r = np.array([[9.0, 2.0, 0.05]])
     out = overdrive.limit(r, [1, 2], 12.0, np.array([[0.0, 0.0]]))
     np.testing.assert_array_equal(out, r)  # g = 2.0 / 4.243 = 0.47 < FLOOR: untouched
@@ -27,7 +28,9 @@ def test_a_unit_below_the_onset_keeps_its_readings():
 def test_an_overdriven_unit_reads_between_its_floor_and_the_rails():
     # S = 12 V, small-signal 8.485 V rms (g = 2): s lies in [FLOOR / g, 1] = [0.25, 1],
     # log-uniform in the draw; the result never passes S/2 = 6 V (a square wave between
-    # the rails). The other AC point shrinks by its own draw; the DC column is untouched.
+    # the rails: of all waveforms confined to an interval it has the largest AC rms,
+    # half the interval; handbook). The other AC point shrinks by its own draw; the DC
+    # column is untouched.
     a = 12 / (2 * math.sqrt(2)) * 2
     r = np.array([[5.0, a, 0.2]] * 3)
     draws = np.array([[0.0, 0.0], [1.0, 1.0], [0.5, 0.5]])
