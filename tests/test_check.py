@@ -242,3 +242,16 @@ def test_a_signal_too_big_for_small_signal_predictions_is_named(tmp_path, capsys
     v, h = res.drive["Q1"]
     assert 0.005 < v < 0.02 and h < 0.01
     assert "Signal level" not in _run(capsys, path)[1]
+
+
+def test_diagnose_passes_on_the_signal_warning_once_ac_is_read(tmp_path):
+    # the same warning as `diag check`, as the first bench note of a diagnosis that uses
+    # an AC reading (a technician in the interface never runs check); none on DC alone
+    from diag.core.engine import Engine, Reading
+
+    loud = _write(tmp_path, STAGE.replace("LEVEL", "20m"), "loud.yaml")
+    eng = Engine(load_case(str(loud)), K=16)
+    text = healthy_bands(eng.case, K=0).signal_text()
+    assert text.startswith("Signal level: S1's 20 mV rms")
+    assert eng.diagnose([Reading("TP1", "dc", 5.0)]).notes[:1] != (text,)
+    assert eng.diagnose([Reading("TP1", "ac", 1.0)]).notes[0] == text

@@ -13,7 +13,6 @@ import sys
 import numpy as np
 
 from diag.core.errors import DiagError
-from diag.core.values import format_value
 
 
 def _count(text: str) -> int:
@@ -130,24 +129,8 @@ def format_text(result, case_path: str, rules) -> str:
         k, why = result.failed[0]
         out.append(f"{len(result.failed)} of {result.K} draws did not converge and are left "
                    f"out of the bands (first: draw {k}: {why})")
-    hot = result.overdriven
-    if hot:
-        sig = case.signal
-        worst = max(v for v, _ in hot.values())
-        from diag.core.bands import DISTORTION_LIMIT
-
-        # the second harmonic grows with the level: scale it to the limit
-        most = float(sig.value or 0.0) * DISTORTION_LIMIT / max(h for _, h in hot.values())
-        out.append(
-            f"Signal level: {sig.ref}'s {format_value(sig.value, 'V')} rms drives "
-            + ", ".join(f"{ref}'s base-emitter junction with {format_value(v, 'V')} rms "
-                        f"(second harmonic about {h:.0%} in its stage)"
-                        for ref, (v, h) in hot.items())
-            + f". The AC bands and diag's AC predictions assume a small signal, so a real "
-            f"unit will read off them; lower the generator level in the case ({sig.ref} "
-            f"`vrms`) to {format_value(most, 'V')} or less (under "
-            f"{DISTORTION_LIMIT:.0%} second harmonic at every junction; the worst now "
-            f"carries {format_value(worst, 'V')}).")
+    if result.signal_text():
+        out.append(result.signal_text())
     if result.cautions:
         cautions = rules["cautions"] or {}
         titles = [str((cautions.get(c) or {}).get("title", c)) for c in result.cautions]

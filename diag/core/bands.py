@@ -75,6 +75,28 @@ class CheckResult:
         """The transistors of `drive` past DISTORTION_LIMIT."""
         return {r: d for r, d in self.drive.items() if d[1] > DISTORTION_LIMIT}
 
+    def signal_text(self) -> str:
+        """The warning that the case's signal level is too big for small-signal
+        predictions, with the level to lower the generator to; "" when it is not."""
+        from diag.core.values import format_value
+
+        hot = self.overdriven
+        sig = self.case.signal
+        if not hot or sig is None:
+            return ""
+        worst = max(v for v, _ in hot.values())
+        # the second harmonic grows with the level: scale it to the limit
+        most = float(sig.value or 0.0) * DISTORTION_LIMIT / max(h for _, h in hot.values())
+        return (f"Signal level: {sig.ref}'s {format_value(sig.value, 'V')} rms drives "
+                + ", ".join(f"{ref}'s base-emitter junction with {format_value(v, 'V')} "
+                            f"rms (second harmonic about {h:.0%} in its stage)"
+                            for ref, (v, h) in hot.items())
+                + ". The AC bands and diag's AC predictions assume a small signal, so a "
+                f"real unit will read off them; lower the generator level in the case "
+                f"({sig.ref} `vrms`) to {format_value(most, 'V')} or less (under "
+                f"{DISTORTION_LIMIT:.0%} second harmonic at every junction; the worst now "
+                f"carries {format_value(worst, 'V')}).")
+
     def to_json(self, case_path: str | None = None) -> dict[str, Any]:
         """SPEC section 6 object (plus the extra keys regions, failed, draws)."""
         def num(x: float) -> float | None:

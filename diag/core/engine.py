@@ -252,6 +252,7 @@ class Engine:
         self._extra_disk: dict[str, np.ndarray] = {}  # what the extra cache file holds
         self._limits = None
         self._healthy_bands: tuple[Band, ...] | None = None  # bands()'s, once worked out
+        self._signal_warning: str | None = None
         self._ref_slip = None
         self._boxes = None  # infer.boxes of the built hypotheses (groups with pairs)
         self._extra_spread: dict = {}  # kernel spreads of sets with pairs (_spread_for)
@@ -556,6 +557,15 @@ class Engine:
         return np.stack([self._extra[s.id][1] for s in specs]) if specs else \
             np.empty((0, self.K, len(self.observables)))
 
+    def signal_warning(self) -> str:
+        """bands.CheckResult.signal_text of the nominal circuit: "" unless the case's
+        tone is too big for the small-signal AC predictions (worked out once)."""
+        if self._signal_warning is None:
+            from diag.core.bands import healthy_bands
+
+            self._signal_warning = healthy_bands(self.case, self.rules, K=0).signal_text()
+        return self._signal_warning
+
     def bands(self, fault_id: str = "healthy") -> tuple[Band, ...]:
         """About the 1st, 50th and 99th percentile of each observable's reading, as the
         meter shows them (rounded to its display resolution, meter.shown_band): a reading
@@ -758,6 +768,8 @@ class Engine:
         nts = tuple(notes.bench_notes(self.case, self.rules, [
             Reading(self.observables[j].point, self.observables[j].kind, v)
             for j, v in zip(idx, vals, strict=True)], acc))
+        if any(self.observables[j].kind == "ac" for j in idx) and self.signal_warning():
+            nts = (self.signal_warning(), *nts)
         fit_text = self._fit_text(fits, pval, len(idx), specs[order[0]], pairs_tried)
         odd = self._odd_readings(U, specs, order[0], idx, u_read)
         slips = [] if fits else self._unit_slips(U, specs, idx, vals, hp, alpha)
