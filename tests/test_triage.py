@@ -650,3 +650,24 @@ async def test_batch_screen_marks_a_unit_that_lost_rows(engine, diag_home):
         status = {str(k.value): str(table.get_cell(k, "status")) for k in table.rows}
         assert status["A01"].endswith(" · 1 row refused")
         assert all("refused" not in v for k, v in status.items() if k != "A01")
+
+
+def test_a_batch_with_ac_readings_carries_the_signal_warning(tmp_path):
+    # the same sentence as `diag check` (tests/test_check.py works its figures), in the
+    # summary and near the top of the Markdown report, once any unit read AC
+    from test_check import STAGE, _write
+
+    from diag.core.bands import healthy_bands
+    from diag.core.case import load_case
+    from diag.core.engine import Engine, Reading
+    from diag.core.triage import to_markdown, triage
+
+    path = _write(tmp_path, STAGE.replace("LEVEL", "20m"), "loud.yaml")
+    eng = Engine(load_case(str(path)), K=16)
+    text = healthy_bands(eng.case, K=0).signal_text()
+    res = triage(eng, {"A": [Reading("TP1", "ac", 1.0)], "B": [Reading("TP1", "dc", 5.0)]})
+    assert res.summary["signal_warning"] == text != ""
+    md = to_markdown(res, str(path))
+    assert md.index(text) < md.index("## Units")
+    dc_only = triage(eng, {"B": [Reading("TP1", "dc", 5.0)]})
+    assert dc_only.summary["signal_warning"] == ""

@@ -708,6 +708,7 @@ def summarise(res: TriageResult) -> dict[str, Any]:
     `rows_rejected` counts them all, `units_with_rows_rejected` names the units that lost
     rows (each unit's own rows are in its `rejected` list), `not_triaged` the units none
     of whose rows could be used, `rejected` the rows that belong to no triaged unit.
+    `signal_warning`: Engine.signal_warning when any unit read AC, else "".
     """
     hyps = {h.id: h for h in res.engine.ensemble.hypotheses}
     by_fault: Counter = Counter()
@@ -775,6 +776,9 @@ def summarise(res: TriageResult) -> dict[str, Any]:
         "units_with_rows_rejected": [u.unit for u in res.units if u.refused],
         "not_triaged": list(dict.fromkeys(r.unit for r in res.unplaced if r.unit)),
         "rejected": [r.text for r in res.unplaced],
+        # the case's tone too big for small-signal AC predictions, once any unit read AC
+        "signal_warning": (res.engine.signal_warning() if any(
+            r.kind == "ac" for u in res.units for r in u.readings) else ""),
     }
 
 
@@ -874,6 +878,8 @@ def to_markdown(res: TriageResult, case_path: str, cautions: Sequence[str] = (),
     if n_ref:
         w.write(f" {_rows_word(n_ref)} of the batch file refused (see Refused rows).")
     w.write("\n\n")
+    if s.get("signal_warning"):
+        w.write(f"**{s['signal_warning']}**\n\n")
     if s["by_fault"]:
         w.write("## Faults found\n\nMost frequent first. units: the units whose leading "
                 "suspect it is; expected: its p summed over the units with a fault found "
