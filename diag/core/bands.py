@@ -12,7 +12,6 @@ listed with the solver's reason and left out of the bands.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -182,25 +181,10 @@ def healthy_bands(case: Case, rules: Any = None, K: int = 400, seed: int = 0) ->
 def junction_drive(circuit, dc, ac, regions: dict[str, str]
                    ) -> dict[str, tuple[float, float]]:
     """Transistor ref -> (signal across its base-emitter junction, volts rms; the second
-    harmonic the stage makes, as a fraction of the fundamental, v·√2 / (4 N VT) divided
-    by the emitter's series feedback 1 + |v_e| / v) for each transistor conducting in the
-    first variant of `dc`/`ac` (see DISTORTION_LIMIT)."""
-    from diag.core.parts.base import VT
+    harmonic its stage makes) for each transistor conducting in the first variant of
+    `dc`/`ac` (overdrive.junction_drive)."""
+    from diag.core import overdrive
 
-    case = circuit.case
-
-    def v(node: str) -> complex:
-        return 0j if node == case.ground else complex(ac.v[0, circuit.node_index[node]])
-
-    out = {}
-    for part in case.parts:
-        if part.kind not in ("npn", "pnp") or regions.get(part.ref) not in ("active",
-                                                                            "saturated"):
-            continue
-        vbe = abs(v(part.terminal("b")) - v(part.terminal("e")))
-        if vbe <= 0.0:
-            continue
-        n = float(circuit.nominal.get(f"{part.ref}.nf", 1.0))
-        feedback = 1.0 + abs(v(part.terminal("e"))) / vbe
-        out[part.ref] = (vbe, vbe * math.sqrt(2.0) / (4.0 * n * VT) / feedback)
-    return out
+    drive = overdrive.junction_drive(circuit, {}, dc, ac)
+    return {ref: (float(v[0]), float(h[0])) for ref, (v, h) in drive.items()
+            if regions.get(ref) in ("active", "saturated") and v[0] > 0}

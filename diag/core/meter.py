@@ -284,7 +284,7 @@ def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
         return out
     from diag.core import overdrive
 
-    return overdrive.limit_observed(case, params, observables, out)
+    return overdrive.limit_observed(circuit, params, dc, ac, observables, out)
 
 
 def _reload(circuit, params, B, again, volt_cols, r_in, zin, out) -> None:

@@ -1,26 +1,29 @@
-"""Overdrive: the large-signal limit on small-signal AC readings.
+"""Overdrive: the large-signal limits on small-signal AC readings.
 
-The AC analysis is small-signal (solver.solve_ac): a predicted reading grows with a
-stage's gain without bound. A real stage cannot swing past its rails. No waveform
-confined between the lowest and the highest rail, S volts apart (Case.supply_span), has
-an AC rms above S/2 (a square wave between them), a sine of more than S/(2√2) rms cannot
-fit at all, and a stage biased inside the rails runs out of room well before that.
+The AC analysis is small-signal (solver.solve_ac): a predicted reading scales with the
+tone without bound and follows the operating point's slopes. A real stage cannot swing
+past its rails, and a tone that is large against a junction's thermal voltage takes a
+stage out of the small-signal range in either direction: it clips a stage that a fault
+gave too much gain, and it swings a stage that a fault saturated out of saturation every
+cycle (where small-signal says almost no gain).
 
-`limit` takes each unit's overdrive g, its largest AC reading over S/(2√2). Where g is
-above FLOOR (a sine across more than half the rails somewhere) a stage may clip, and its
-distortion pulls the readings beyond it down together: each AC reading a becomes a·s,
-with s drawn log-uniformly in [FLOOR/g, 1] at each point, capped at S/2. So the point
-that swings most reads at least a sine across FLOOR of the rails. Below FLOOR nothing
-changes (the healthy units of every bundled case stay under 0.3).
+`limit_observed` (called by meter.observe) checks each unit: its overdrive g, the
+largest AC reading over a sine across the rails, S/(2√2) (S = Case.supply_span), and
+each conducting junction's second harmonic (`junction_drive`). Where g passes FLOOR or a
+junction passes ONSET, largesignal.py sweeps the tone through the DC solver and gives r,
+how much the tone's own size changes each reading. The reading then lies, log-uniformly
+(the unit's draw, "overdrive.<point>/ac", drawn last by ensemble.draw_unit, picks
+where), within a·r·exp(±SPREAD·max|ln r|), joined with `limit`'s rail range
+[FLOOR/g, 1]·a where g passes FLOOR, never above S/2 (a square wave between the rails has
+the most AC rms of any waveform confined to them). Units below both onsets keep their
+readings: the healthy units of every bundled case do.
 
 Checked against transient runs of ngspice at the case's own signal level
 (tests/test_overdrive.py): mic-preamp with an emitter resistor shorted reads 0.42 to 0.60
-of its small-signal prediction at the output (g 1.3 to 2.5) and 0.59 to 0.84 at the
-first collector; sounder-driver with its speaker open 0.74 at the collector (g 1.3);
-every healthy unit within 0.3 % of it. The readings at the signal source's own node are
-left alone: the generator sets them. The draws s come from the unit's parameters
-("overdrive.<point>/ac", uniform in 0..1, drawn last by ensemble.draw_unit; 0.5 at
-nominal).
+of its small-signal prediction at the output; a degenerated test stage that a fault
+saturates reads 4 to 5 V rms where small-signal says 0.02 to 0.6 V; each inside diag's
+range with the model error and the meter's accuracy; healthy units within 0.3 %. The
+readings at the signal source's own node are left alone: the generator sets them.
 """
 
 from __future__ import annotations
@@ -63,18 +66,107 @@ def limit(readings: np.ndarray, ac_cols: Sequence[int], span: float,
     return out
 
 
-def limit_observed(case: Any, params: Mapping[str, Any], observables: Sequence[Any],
-                   readings: np.ndarray) -> np.ndarray:
-    """`limit` for meter readings at `observables` (Case.observables order) of the units
-    in `params` (B = readings' rows): the AC points away from the signal's own node."""
+ONSET = 0.05   # a junction whose tone makes more than this second harmonic in its stage
+               # (half `diag check`'s warning level, bands.DISTORTION_LIMIT) may take the
+               # unit out of the small-signal range
+SPREAD = 0.2   # the large-signal reading's spread either way, per unit of the unit's
+               # largest |ln r| (r the quasi-static ratio): what the pass leaves out (the
+               # capacitors' charge shift), set from ngspice transient runs
+               # (tests/test_overdrive.py)
+
+
+def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
+                   ) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """Transistor ref -> (signal across its base-emitter junction, volts rms, (B,); the
+    second harmonic its stage makes, a fraction of the fundamental, (B,)). A conducting
+    junction's current i = I0 exp(v / (N VT)) driven by a sine of peak v makes a second
+    harmonic of about v / (4 N VT) (the exponential's Taylor series); an emitter that
+    follows the signal (an unbypassed emitter resistor, a follower) is series feedback and
+    divides it by 1 + v_e / v_be (negative feedback divides distortion by 1 + loop gain,
+    handbook). 0 where the transistor does not conduct."""
+    from diag.core import solver
+    from diag.core.parts.base import VT
+
+    case = circuit.case
+    B = ac.v.shape[0]
+    regions = solver.regions(circuit, params, dc)
+
+    def v(node: str) -> np.ndarray:
+        return np.zeros(B, complex) if node == case.ground else \
+            ac.v[:, circuit.node_index[node]]
+
+    out = {}
+    for part in case.parts:
+        if part.kind not in ("npn", "pnp"):
+            continue
+        ve = np.abs(v(part.terminal("e")))
+        vbe = np.abs(v(part.terminal("b")) - v(part.terminal("e")))
+        n = np.broadcast_to(np.asarray(params.get(f"{part.ref}.nf",
+                                                  circuit.nominal[f"{part.ref}.nf"]),
+                                       float), (B,))
+        on = np.isin(np.asarray(regions[part.ref]), ("active", "saturated")) & (vbe > 0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            h = np.where(on, vbe * math.sqrt(2.0) / (4.0 * n * VT) / (1.0 + ve / vbe), 0.0)
+        out[part.ref] = (vbe, np.nan_to_num(h))
+    return out
+
+
+def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
+                   observables: Sequence[Any], readings: np.ndarray) -> np.ndarray:
+    """Meter readings at `observables` (Case.observables order) of the units in `params`
+    (B = readings' rows) with their AC points (away from the signal's own node) taken
+    out of the small-signal range where the tone takes the unit out of it.
+
+    A unit is checked when its overdrive g passes FLOOR or a junction makes more than
+    ONSET second harmonic in its stage (junction_drive). For it, largesignal.ratios
+    gives r, how much the tone's own size changes each AC reading. The reading lies
+    within a·r·exp(±SPREAD·max|ln r|), joined with `limit`'s rail range where g passes
+    FLOOR, log-uniformly (the unit's draw picks where), never above S/2. Where the pass
+    did not solve, `limit`'s range."""
+    case = circuit.case
     sig = case.signal
     src = sig.nodes[0] if sig is not None else None
     cols = [m for m, o in enumerate(observables)
             if o.kind == "ac" and case.point(o.point).node != src]
-    if not cols:
+    if not cols or ac is None:
         return readings
+    from diag.core import largesignal
+
     B = readings.shape[0]
+    span = float(case.supply_span)
     draws = np.column_stack([
         np.broadcast_to(np.asarray(params.get(key(observables[m].point), 0.5), float), (B,))
         for m in cols])
-    return limit(readings, cols, float(case.supply_span), draws)
+    out = limit(readings, cols, span, draws)  # the fallback where the pass fails
+    a = np.asarray(readings, float)[:, cols]
+    with np.errstate(invalid="ignore"):
+        g = np.nanmax(np.where(np.isfinite(a), a, np.nan), axis=1, initial=0.0) \
+            / (span / (2.0 * math.sqrt(2.0)))
+    drive = junction_drive(circuit, params, dc, ac)
+    worst = np.max(np.stack([h for _, h in drive.values()]), axis=0) if drive \
+        else np.zeros(B)
+    rows = np.flatnonzero(np.asarray(dc.ok, bool) & ((g > FLOOR) | (worst > ONSET)))
+    if not rows.size:
+        return out
+    pairs = []
+    for m in cols:
+        pt = case.point(observables[m].point)
+        pairs.append((pt.node, pt.minus or case.ground))
+    r = largesignal.ratios(circuit, params, dc, rows, pairs)
+    ln_r = np.log(np.where(r > 0, r, np.nan))
+    # the unit's own nonlinearity sets the spread at every one of its points
+    with np.errstate(invalid="ignore"):
+        width = SPREAD * np.nanmax(np.abs(ln_r), axis=1, initial=0.0)[:, None]
+    lo_q, hi_q = ln_r - width, ln_r + width
+    # with the rail range of `limit` (clipping; its charge shift reaches back into the
+    # stages before the clipped one) where the unit passes FLOOR
+    gr = g[rows][:, None]
+    lo_g = np.where(gr > FLOOR, np.log(np.minimum(1.0, FLOOR / np.maximum(gr, 1e-300))),
+                    np.inf)
+    hi_g = np.where(gr > FLOOR, 0.0, -np.inf)
+    lo, hi = np.fmin(lo_q, lo_g), np.fmax(hi_q, hi_g)
+    got = np.minimum(a[rows] * np.exp(lo + (hi - lo) * draws[rows]), span / 2.0)
+    keep = np.isfinite(got)
+    block = out[np.ix_(rows, cols)]
+    out[np.ix_(rows, cols)] = np.where(keep, got, block)
+    return out

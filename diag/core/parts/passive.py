@@ -78,10 +78,12 @@ class Pot(PartKind):
 
 
 class Capacitor(PartKind):
-    """Open in DC but for its leakage resistance; AC: leak ∥ (esr + 1/jωC)."""
+    """Open in DC but for its leakage resistance; AC: leak ∥ (esr + 1/jωC). For the
+    quasi-static large-signal pass (largesignal.py) a DC variant may hold it at hold_v
+    volts through hold_g siemens (both 0 otherwise)."""
 
     kinds = ("capacitor", "electrolytic")
-    names = ("c", "leak", "esr")
+    names = ("c", "leak", "esr", "hold_g", "hold_v")
 
     @staticmethod
     def _ends(part):
@@ -102,7 +104,8 @@ class Capacitor(PartKind):
         else:
             leak, esr = CAP_LEAK, CAP_ESR
         return {"c": c, "leak": float(f["leak"]) if f.get("leak") is not None else leak,
-                "esr": float(f["esr"]) if f.get("esr") is not None else esr}
+                "esr": float(f["esr"]) if f.get("esr") is not None else esr,
+                "hold_g": 0.0, "hold_v": 0.0}
 
     def spreads(self, part, nominal, ctx):
         elco = part.kind == "electrolytic"
@@ -117,7 +120,8 @@ class Capacitor(PartKind):
 
     def dc_stamps(self, part, p, t):
         a, b = self._ends(part)
-        return [(t[a], t[b], _g(p["leak"]))], []
+        i = p["hold_g"] * p["hold_v"]
+        return [(t[a], t[b], _g(p["leak"]) + p["hold_g"])], [(t[a], i), (t[b], -i)]
 
     def ac_stamps(self, part, p, t, omega):
         a, b = self._ends(part)

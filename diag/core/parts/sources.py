@@ -38,17 +38,21 @@ class Supply(PartKind):
 
 
 class Signal(PartKind):
-    """A signal generator: 0 V DC behind r ohms; AC vac volts rms behind r."""
+    """A signal generator: 0 V DC behind r ohms (vdc volts in a DC variant of the
+    quasi-static large-signal pass, largesignal.py); AC vac volts rms behind r."""
 
     kinds = ("signal",)
-    names = ("vac", "r")
+    names = ("vac", "r", "vdc")
 
     def nominal(self, part, ctx):
         r = part.fields.get("r_source")
-        return {"vac": float(part.value), "r": float(r) if r is not None else SIGNAL_R}
+        return {"vac": float(part.value), "r": float(r) if r is not None else SIGNAL_R,
+                "vdc": 0.0}
 
     def dc_stamps(self, part, p, t):
-        return [(t["plus"], t["minus"], _g(p["r"]))], []
+        g = _g(p["r"])
+        i = p["vdc"] * g
+        return [(t["plus"], t["minus"], g)], [(t["plus"], i), (t["minus"], -i)]
 
     def ac_stamps(self, part, p, t, omega):
         g = _g(p["r"])
