@@ -72,11 +72,17 @@ def _shows(screen, point, kind) -> str:
     return str(table.get_cell(f"{point}|{kind}", "shows"))
 
 
-async def _name(pilot, text: str) -> None:
+async def _open_naming(pilot) -> NameFaultDialog:
+    """Press n on the drill screen; the naming dialog that opens."""
     await pilot.press("n")
     await pilot.pause()
     dialog = pilot.app.screen
     assert isinstance(dialog, NameFaultDialog)
+    return dialog
+
+
+async def _name(pilot, text: str) -> None:
+    dialog = await _open_naming(pilot)
     dialog.query_one("#name-input", Input).value = text
     await pilot.pause()
     await pilot.press("enter")
@@ -168,10 +174,7 @@ async def test_name_dialog_filters_and_cancels(engine):
     app = DiagApp(drill=drill)
     async with app.run_test(size=(120, 40)) as pilot:
         await settle(pilot)
-        await pilot.press("n")
-        await pilot.pause()
-        dialog = app.screen
-        assert isinstance(dialog, NameFaultDialog)
+        dialog = await _open_naming(pilot)
         from textual.widgets import OptionList
 
         ol = dialog.query_one("#name-options", OptionList)
@@ -264,10 +267,7 @@ async def test_name_dialog_says_when_nothing_matches(engine):
     app = DiagApp(drill=drill)
     async with app.run_test(size=(120, 36)) as pilot:
         await settle(pilot)
-        await pilot.press("n")
-        await pilot.pause()
-        dialog = app.screen
-        assert isinstance(dialog, NameFaultDialog)
+        dialog = await _open_naming(pilot)
         field = dialog.query_one("#name-input", Input)
         await pilot.press("enter")  # nothing typed: nothing named
         await pilot.pause()
@@ -293,10 +293,7 @@ async def test_name_dialog_says_when_nothing_matches(engine):
         await settle(pilot)
         assert [n.fault for n in drill.round.namings] == ["LS1:open"]
         # a fault named wrongly cannot be named again (and is not charged twice)
-        await pilot.press("n")
-        await pilot.pause()
-        dialog = app.screen
-        assert isinstance(dialog, NameFaultDialog)
+        dialog = await _open_naming(pilot)
         from textual.widgets import OptionList
 
         ol = dialog.query_one("#name-options", OptionList)

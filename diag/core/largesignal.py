@@ -53,7 +53,7 @@ def ratios(circuit: Any, params: Mapping[str, Any], dc: Any, rows: np.ndarray,
     big: dict[str, Any] = {k: per_variant(v) for k, v in params.items()}
 
     def volts(v: np.ndarray, node: str) -> np.ndarray:
-        return np.zeros(v.shape[0]) if node == case.ground else v[:, circuit.node_index[node]]
+        return solver.node_v(circuit, v, node)
 
     omega = 2.0 * math.pi * float(circuit.hz)
     for part in case.parts:

@@ -238,9 +238,7 @@ def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
         volt_cols.setdefault((pt.node, pt.minus or case.ground), []).append((m, ob.kind))
 
     def volts(v: np.ndarray, node: str) -> np.ndarray:
-        if node == case.ground:
-            return np.zeros(v.shape[0], dtype=v.dtype)
-        return v[:, circuit.node_index[node]]
+        return solver.node_v(circuit, v, node)
 
     r_in = float(input_impedance(meter))
     pairs = list(volt_cols)
@@ -308,9 +306,7 @@ def _reload(circuit, params, B, again, volt_cols, r_in, zin, out) -> None:
         acl = solver.solve_ac(circuit, sub, dcl, load=yac)
 
     def diff(v, a, b):
-        va = v[:, circuit.node_index[a]] if a != circuit.ground else 0.0
-        vb = v[:, circuit.node_index[b]] if b != circuit.ground else 0.0
-        return va - vb
+        return solver.node_v(circuit, v, a) - solver.node_v(circuit, v, b)
 
     for j, (pair, _, _) in enumerate(again):
         mine = (seg == j) & good

@@ -43,6 +43,15 @@ def key(point: str, kind: str = "ac") -> str:
     return f"{PREFIX}{point}/{kind}"
 
 
+def overdrive_of(ac_readings: np.ndarray, span: float) -> np.ndarray:
+    """(B,) each unit's overdrive g: its largest AC reading (volts rms, (B, m)) over a
+    sine across the rail span, span / (2√2); 0 for a unit with no finite reading."""
+    with np.errstate(all="ignore"):
+        top = np.nanmax(np.where(np.isfinite(ac_readings), ac_readings, np.nan), axis=1,
+                        initial=0.0)
+    return top / (span / (2.0 * math.sqrt(2.0)))
+
+
 def limit(readings: np.ndarray, ac_cols: Sequence[int], span: float,
           draws: np.ndarray) -> np.ndarray:
     """Readings (B, M) with the AC columns `ac_cols` limited as the module says.
@@ -53,9 +62,7 @@ def limit(readings: np.ndarray, ac_cols: Sequence[int], span: float,
     if not len(ac_cols) or span <= 0:
         return out
     a = out[:, ac_cols]
-    with np.errstate(invalid="ignore"):
-        g = np.nanmax(np.where(np.isfinite(a), a, np.nan), axis=1, initial=0.0) \
-            / (span / (2.0 * math.sqrt(2.0)))
+    g = overdrive_of(a, span)
     over = g > FLOOR
     if not over.any():
         return out
@@ -92,8 +99,7 @@ def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
     regions = solver.regions(circuit, params, dc)
 
     def v(node: str) -> np.ndarray:
-        return np.zeros(B, complex) if node == case.ground else \
-            ac.v[:, circuit.node_index[node]]
+        return solver.node_v(circuit, ac.v, node)
 
     out = {}
     for part in case.parts:
@@ -139,9 +145,7 @@ def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
         for m in cols])
     out = limit(readings, cols, span, draws)  # the fallback where the pass fails
     a = np.asarray(readings, float)[:, cols]
-    with np.errstate(invalid="ignore"):
-        g = np.nanmax(np.where(np.isfinite(a), a, np.nan), axis=1, initial=0.0) \
-            / (span / (2.0 * math.sqrt(2.0)))
+    g = overdrive_of(a, span)
     drive = junction_drive(circuit, params, dc, ac)
     worst = np.max(np.stack([h for _, h in drive.values()]), axis=0) if drive \
         else np.zeros(B)

@@ -887,6 +887,14 @@ def thevenin(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult
 
 # ----------------------------------------------------------------------------- regions
 
+def node_v(circuit: Circuit, v: np.ndarray, node: str) -> np.ndarray:
+    """Column (B,) of node voltages `v` (B, n_nodes), DCResult.v or ACResult.v, for a
+    case node; zeros (of v's dtype) for the ground."""
+    if node == circuit.ground:
+        return np.zeros(v.shape[0], dtype=v.dtype)
+    return v[:, circuit.node_index[node]]
+
+
 def regions(circuit: Circuit, params: Mapping[str, object] | None,
             dc: DCResult) -> dict[str, np.ndarray]:
     """Operating region of each transistor per variant: ref -> (B,) array of 'off',
