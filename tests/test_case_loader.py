@@ -170,6 +170,21 @@ def test_semiconductor_defaults_per_kind(tmp_path, rules):
     assert case.part("D3").nodes == ("gnd", "out")
 
 
+def test_a_diode_card_carries_its_charge_and_temperature_names(tmp_path, rules):
+    """A diode card as a simulator gives it: CJO, TT, M, VJ, EG, XTI load, are kept on
+    the part and are named as not used; IS N RS BV IBV are used."""
+    from diag.core.parts import unused_card_names
+
+    extra = ("  D1: {kind: diode, anode: out, cathode: gnd, model: {IS: 4e-9, N: 1.9, "
+             "RS: 0.5, CJO: 4p, M: 0.3, VJ: 0.7, TT: 6n, EG: 1.11, XTI: 3}}\n")
+    text = mutate("  V2:  {kind: signal", extra + "  V2:  {kind: signal")
+    case = load_case(write(tmp_path, text), rules)
+    d1 = case.part("D1")
+    assert d1.model["CJO"] == pytest.approx(4e-12) and d1.model["N"] == 1.9
+    assert unused_card_names(d1) == ("CJO", "M", "VJ", "TT", "EG", "XTI")
+    assert unused_card_names(case.part("Q1")) == ()
+
+
 def test_every_kind_and_field(tmp_path, rules):
     text = """\
 case: 1
@@ -272,8 +287,8 @@ ERRORS = [
      "unknown meter field 'colour'", 25, "meter"),
     ("unknown model", "model: npn-small", "model: npn-big", "unknown model 'npn-big'", 12,
      "Q1"),
-    ("inline model bad parameter", "model: npn-small", "model: {IS: 1e-14, XTI: 3}",
-     "unknown model parameter 'XTI'", 12, "Q1"),
+    ("inline model bad parameter", "model: npn-small", "model: {IS: 1e-14, RCO: 50}",
+     "unknown model parameter 'RCO'", 12, "Q1"),
     ("model kind mismatch", "model: npn-small", "model: pnp-small", "is for pnp parts", 12,
      "Q1"),
     ("inline model as a models.yaml entry", "model: npn-small",

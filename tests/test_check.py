@@ -255,3 +255,59 @@ def test_diagnose_passes_on_the_signal_warning_once_ac_is_read(tmp_path):
     assert text.startswith("Signal level: S1's 20 mV rms")
     assert eng.diagnose([Reading("TP1", "dc", 5.0)]).notes[:1] != (text,)
     assert eng.diagnose([Reading("TP1", "ac", 1.0)]).notes[0] == text
+
+
+def test_a_simulator_card_carries_over_and_check_names_what_is_not_used(tmp_path, capsys):
+    """A model card copied from a simulator whole: the DC Gummel-Poon names diag uses
+    (VAR IKR ISC NC NKF) load and count, the charge-storage, noise and temperature names
+    load and are named by check as not used, and a name of another device level
+    (RCO, quasi-saturation) is refused with the names the model takes."""
+    used = "IS: 1e-14, BF: 200, VAF: 80, IKF: 0.05, VAR: 15, IKR: 0.01, ISC: 1e-13, NC: 2"
+    extra = "CJE: 25p, TF: 400p, XTI: 3, EG: 1.11, KF: 0, XTB: 1.5"
+    text = SMALL.replace("VOLTS", "12").replace(
+        "Q1: {kind: npn, c: col, b: base, e: emit}",
+        f"Q1: {{kind: npn, c: col, b: base, e: emit, model: {{{used}, {extra}}}}}")
+    case = _write(tmp_path, text)
+    assert main(["check", str(case)]) == 0
+    out = capsys.readouterr().out
+    assert "Q1 gives CJE TF XTI EG KF, which diag reads and does not use" in out
+    assert main(["check", str(case), "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["unused_model_params"] == {"Q1": ["CJE", "TF", "XTI", "EG", "KF"]}
+    # the unused names change nothing; the used ones do (VAR: the base-emitter voltage
+    # over VAR shortens q1, SPICE's Gummel-Poon)
+    bare = _write(tmp_path, SMALL.replace("VOLTS", "12").replace(
+        "Q1: {kind: npn, c: col, b: base, e: emit}",
+        f"Q1: {{kind: npn, c: col, b: base, e: emit, model: {{{used}}}}}"), "bare.yaml")
+    assert main(["check", str(bare), "--json"]) == 0
+    same = json.loads(capsys.readouterr().out)
+    assert same["nodes"] == data["nodes"] and same["unused_model_params"] == {}
+    no_var = _write(tmp_path, SMALL.replace("VOLTS", "12").replace(
+        "Q1: {kind: npn, c: col, b: base, e: emit}",
+        "Q1: {kind: npn, c: col, b: base, e: emit, "
+        "model: {IS: 1e-14, BF: 200, VAF: 80, IKF: 0.05}}"), "plain.yaml")
+    assert main(["check", str(no_var), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["nodes"]["col"] != same["nodes"]["col"]
+    bad = _write(tmp_path, text.replace("XTB: 1.5", "RCO: 50"), "bad.yaml")
+    assert main(["check", str(bad)]) == 1
+    err = capsys.readouterr().err
+    assert "unknown model parameter 'RCO'" in err and "VAR IKR ISC NC NKF" in err
+
+
+def test_a_card_xtb_sets_its_own_part_beta_temperature_law():
+    """ensemble.apply_ambient: BF follows (T/T0)^XTB (SPICE's Gummel-Poon temperature
+    law, ngspice manual) with the card's XTB where it gives one, else the rules'."""
+    from test_parts import compiled, part
+
+    from diag.core.ensemble import apply_ambient
+
+    card = {"IS": 1e-14, "BF": 200.0}
+    circuit = compiled(part("V1", "supply", ["vcc", "gnd"], 12.0),
+                       part("R1", "resistor", ["vcc", "b"], 100e3),
+                       part("R2", "resistor", ["vcc", "c"], 1e3),
+                       part("Q1", "npn", ["c", "b", "gnd"], model={**card, "XTB": 0.0}),
+                       part("Q2", "npn", ["c", "b", "gnd"], model=card))
+    amb = {"celsius": [50, 50], "vj_per_k": -2e-3, "xtb": 1.5}
+    out = apply_ambient(circuit, {}, 3, np.random.default_rng(0), amb)
+    np.testing.assert_allclose(out["Q1.bf"], 200.0)
+    np.testing.assert_allclose(out["Q2.bf"], 200.0 * (323.15 / 300.15) ** 1.5)

@@ -406,6 +406,63 @@ def test_power_cards_drive_a_base_hard_as_ngspice_does(ngspice, model):
     _solves_as_ngspice(ngspice, circuit, labels, params)
 
 
+# A card with the rest of the Gummel-Poon DC model given, at figures a data-sheet card of
+# a small-signal part could carry (from memory): reverse Early voltage, reverse knee,
+# base-collector recombination current, and in one variant a high-current roll-off
+# exponent other than SPICE's 0.5.
+FULL_GP = {"VAR": 20.0, "IKR": 0.01, "ISC": 2e-13, "NC": 2.0}
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("nkf", [None, 0.7], ids=["nkf-default", "nkf-0.7"])
+def test_full_gummel_poon_card_matches_ngspice(ngspice, nkf):
+    """VAR, IKR, ISC/NC and NKF (SPICE meaning) against ngspice, the reference simulator,
+    with the same card: a transistor run forward at up to tens of mA (IKF, NKF, VAR),
+    one fitted the other way round so that it runs reverse-active (BR, IKR, VAF, ISC),
+    and one driven into saturation (ISC); node voltages at four drive levels, then
+    the AC gain of the forward stage (the model's derivatives, through the small-signal
+    analysis)."""
+    from test_parts import MODELS, compiled, part
+
+    card = {**MODELS["npn-small"]["params"], **FULL_GP}
+    if nkf is not None:
+        card["NKF"] = nkf
+    circuit = compiled(part("V1", "supply", ["vcc", "gnd"], 12.0, r_source=0.2),
+                       part("V2", "signal", ["in", "gnd"], 0.001, r_source=50.0),
+                       part("C1", "capacitor", ["in", "b1"], 10e-6),
+                       part("R1", "resistor", ["vcc", "b1"], 47e3),
+                       part("R2", "resistor", ["b1", "gnd"], 10e3),
+                       part("R3", "resistor", ["vcc", "c1"], 220.0),
+                       part("Q1", "npn", ["c1", "b1", "e1"], model=card),
+                       part("R4", "resistor", ["e1", "gnd"], 47.0),
+                       # fitted the other way round: its emitter lead on the load
+                       part("R5", "resistor", ["vcc", "b2"], 22e3),
+                       part("R6", "resistor", ["vcc", "x2"], 1e3),
+                       part("Q2", "npn", ["gnd", "b2", "x2"], model=card),
+                       # hard on: saturated
+                       part("R7", "resistor", ["vcc", "b3"], 2.2e3),
+                       part("R8", "resistor", ["vcc", "c3"], 1e3),
+                       part("Q3", "npn", ["c3", "b3", "gnd"], model=card))
+    labels = ["nominal", "drive x2", "drive x5", "drive x20"]
+    scale = np.array([1.0, 0.5, 0.2, 0.05])
+    params = {"R1.r": 47e3 * scale, "R5.r": 22e3 * scale, "R7.r": 2.2e3 * scale}
+    dc = _solves_as_ngspice(ngspice, circuit, labels, params)
+    regions = solver.regions(circuit, params, dc)
+    assert regions["Q2"][0] == "reverse" and regions["Q3"][0] == "saturated"
+    ac = solver.solve_ac(circuit, params, dc)
+    ref = ngspice.run_ngspice(spice.netlist(circuit, params))
+    bad = _ac_off(circuit.case, circuit, labels, ac, ref)
+    assert not bad, "\n".join(bad)
+    # and the new terms are not idle here: without them the nodes read otherwise
+    plain = compiled(*[part(p.ref, p.kind, p.nodes, p.value, model=MODELS["npn-small"]
+                            ["params"]) if p.kind == "npn" else p for p in circuit.case.parts])
+    base = solver.solve_dc(plain, params)
+    moved = np.abs(base.v - dc.v).max(axis=0)
+    # (forward stage 0.14 V, reversed part 3.5 V; a saturated part's VCE by 7 mV)
+    for node, by in (("c1", 10 * V_ATOL), ("x2", 10 * V_ATOL), ("c3", 5 * V_ATOL)):
+        assert moved[circuit.node_index[node]] > by, node
+
+
 @pytest.mark.ngspice
 def test_emitter_base_breakdown_matches_ngspice(ngspice):
     """The breakdown-only junctions (parts/bjt.py `Breakdown`) against ngspice, the
@@ -442,12 +499,16 @@ def _physically_swapped(text: str, ref: str, unit: dict[str, float]) -> str:
     voltage, ikf = reverse knee, nf = NR, rc = RE; ise/ne stay at the junction that now
     works as the emitter); ngspice gets the same transistor the other way round, so its
     reverse parameters (BR, VAR, IKR, NR, ISC, NC) carry those values and its forward
-    ones the part's own (VAF, IKF infinite, as diag's reverse direction has none)."""
+    ones diag's reverse ones (VAF = var, IKF = ikr, ISE = isc, NE = nc)."""
     tag = spice._sanitize(ref)
     u = unit
     card = {"IS": u["is"], "BF": u["br"], "BR": u["bf"], "NF": u["nr"], "NR": u["nf"],
-            "VAR": u["vaf"], "IKR": u["ikf"], "ISE": 0.0, "ISC": u["ise"], "NC": u["ne"],
+            "VAF": u["var"], "VAR": u["vaf"], "IKF": u["ikr"], "IKR": u["ikf"],
+            "ISE": u["isc"], "NE": u["nc"], "ISC": u["ise"], "NC": u["ne"],
             "RB": u["rb"], "RC": u["re"], "RE": u["rc"], "RBM": u["rbm"]}
+    for k in ("VAF", "VAR", "IKF", "IKR"):
+        if not math.isfinite(card[k]):
+            del card[k]                 # SPICE's "infinite": left out
     if math.isfinite(u["irb"]):
         card["IRB"] = u["irb"]
     out = []
@@ -484,8 +545,8 @@ def test_ce_swapped_fault_is_a_transistor_fitted_the_other_way_round(case_path, 
             one = {k: float(np.asarray(v).reshape(-1)[b if np.size(v) > 1 else 0])
                    for k, v in params.items()}
             unit = {name: one.get(f"{q.ref}.{name}", circuit.nominal[f"{q.ref}.{name}"])
-                    for name in ("is", "bf", "br", "nf", "nr", "vaf", "ikf", "ise", "ne",
-                                 "rb", "rc", "re", "irb", "rbm")}
+                    for name in ("is", "bf", "br", "nf", "nr", "vaf", "var", "ikf", "ikr",
+                                 "ise", "ne", "isc", "nc", "rb", "rc", "re", "irb", "rbm")}
             assert unit["bf"] < 20 < unit["br"], "the fault must run the part at its BR"
             ref = ngspice.run_ngspice(_physically_swapped(spice.netlist(circuit, one), q.ref,
                                                           unit))

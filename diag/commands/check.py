@@ -131,6 +131,8 @@ def format_text(result, case_path: str, rules) -> str:
                    f"out of the bands (first: draw {k}: {why})")
     if result.signal_text():
         out.append(result.signal_text())
+    if result.unused_model_text():
+        out.append(result.unused_model_text())
     if result.cautions:
         cautions = rules["cautions"] or {}
         titles = [str((cautions.get(c) or {}).get("title", c)) for c in result.cautions]

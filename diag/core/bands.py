@@ -96,8 +96,27 @@ class CheckResult:
                 f"{DISTORTION_LIMIT:.0%} second harmonic at every junction; the worst now "
                 f"carries {format_value(worst, 'V')}).")
 
+    @property
+    def unused_model(self) -> dict[str, tuple[str, ...]]:
+        """Part ref -> the names its model card carries that diag does not use."""
+        from diag.core.parts import unused_card_names
+
+        return {p.ref: u for p in self.case.parts if (u := unused_card_names(p))}
+
+    def unused_model_text(self) -> str:
+        """The sentence naming card parameters diag leaves out; "" when there are none."""
+        un = self.unused_model
+        if not un:
+            return ""
+        return ("Model cards: " + "; ".join(f"{ref} gives {' '.join(n)}"
+                                            for ref, n in un.items())
+                + ", which diag reads and does not use (junction capacitance, transit "
+                  "time, noise and temperature: its AC analysis is low-frequency, and "
+                  "the ambient moves every junction by the rules' figure).")
+
     def to_json(self, case_path: str | None = None) -> dict[str, Any]:
-        """SPEC section 6 object (plus the extra keys regions, failed, draws)."""
+        """SPEC section 6 object (plus the extra keys regions, failed, draws,
+        junction_signal, unused_model_params)."""
         def num(x: float) -> float | None:
             return float(x) if np.isfinite(x) else None
 
@@ -113,6 +132,7 @@ class CheckResult:
             "seed": self.seed,
             "junction_signal": {r: {"vrms": v, "second_harmonic": h}
                                 for r, (v, h) in self.drive.items()},
+            "unused_model_params": {r: list(n) for r, n in self.unused_model.items()},
         }
 
 

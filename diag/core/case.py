@@ -26,6 +26,7 @@ from typing import Any
 import yaml
 
 from diag.core.errors import CaseErrors, DiagError
+from diag.core.parts import CARD_HINT, card_names
 from diag.core.paths import cases_dir, user_cases_dir
 from diag.core.rules import Rules, load_rules
 from diag.core.values import SYMBOLS, canonical_unit, format_value, parse_tol, parse_value
@@ -232,11 +233,8 @@ DEFAULT_MODEL: Mapping[str, str] = MappingProxyType({
     "npn": "npn-small", "pnp": "pnp-small", "diode": "si-diode", "led": "led-red",
     "zener": "zener",
 })
-BIPOLAR_PARAMS = ("IS", "BF", "BR", "NF", "NR", "VAF", "IKF", "ISE", "NE", "RB", "RC", "RE",
-                  "IRB", "RBM", "BVEBO", "BVCBO")
-DIODE_PARAMS = ("IS", "N", "RS", "BV", "IBV")
 # Model parameters that must be strictly positive (the others may be 0).
-_POSITIVE_PARAMS = frozenset({"IS", "BF", "NF", "NR", "N", "NE"})
+_POSITIVE_PARAMS = frozenset({"IS", "BF", "NF", "NR", "N", "NE", "NC"})
 
 DEFAULT_METER = "handheld-3.5"
 # An example value per unit, for hints.
@@ -245,11 +243,6 @@ _EXAMPLES = {"ohm": "4k7", "F": "100n", "H": "10m", "V": "12", "Hz": "1k", "W": 
 
 _REF = re.compile(r"[A-Za-z][A-Za-z0-9_]*")
 _ID = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]*")
-
-
-def model_params(kind: str) -> tuple[str, ...]:
-    """Inline-model parameter names allowed for a semiconductor kind."""
-    return BIPOLAR_PARAMS if kind in ("npn", "pnp") else DIODE_PARAMS
 
 
 def _line(mapping: Any, key: Any = None, default: int = 0) -> int:
@@ -465,7 +458,8 @@ class _Loader:
             fits = [n for n, m in known.items() if isinstance(m, dict) and m.get("kind") == kind]
             self.err(f"unknown model {raw!r}", line, ref,
                      hint=f"known {kind} models: {_names(fits or list(known))}; "
-                          f"or give an inline mapping of {' '.join(model_params(kind))}")
+                          "or give an inline mapping: "
+                          + CARD_HINT.format(' '.join(card_names(kind, used_only=True))))
             return None
         entry = known[raw]
         mfile = self.rules.file("models")
@@ -493,14 +487,14 @@ class _Loader:
         return MappingProxyType(out)
 
     def inline_model(self, kind: str, raw: dict, line: int, ref: str) -> Mapping | None:
-        names = model_params(kind)
+        names = card_names(kind)
         out: dict[str, Any] = {"name": "inline"}
         if "params" in raw:  # the layout of an entry of rules/models.yaml, not a card
             self.err("an inline model is the card's parameters themselves, not a "
                      "models.yaml entry", line, ref,
-                     hint=f"write model: {{{', '.join(f'{n}: ...' for n in names[:3])}}}, "
-                          f"from {' '.join(names)} (SI units); or add the entry to "
-                          "rules/models.yaml and name it")
+                     hint=f"write model: {{{', '.join(f'{n}: ...' for n in names[:3])}}}; "
+                          + CARD_HINT.format(' '.join(card_names(kind, used_only=True)))
+                          + "; or add the entry to rules/models.yaml and name it")
             return None
         ok = True
         for k, v in raw.items():
@@ -508,7 +502,7 @@ class _Loader:
             kl = _line(raw, k, line)
             if key not in names:
                 self.err(f"unknown model parameter {k!r} for {_a(kind)}", kl, ref,
-                         hint=f"{_a(kind)} model takes {' '.join(names)} (SI units)")
+                         hint=CARD_HINT.format(' '.join(card_names(kind, used_only=True))))
                 ok = False
                 continue
             if key in out:

@@ -112,13 +112,14 @@ def apply_ambient(circuit, params: dict, n: int, rng: np.random.Generator,
     the same junction with a larger saturation current: at a fixed current its forward
     voltage moves by ambient["vj_per_k"] (V/K, about -2 mV/K for silicon junctions, the
     handbook figure), i.e. IS x exp(-vj_per_k dT / (N VT)); the BJT's ISE likewise with
-    NE. BF and BR follow SPICE's temperature law (T / T0)^XTB with XTB ambient["xtb"]."""
+    NE, and ISC with NC. BF and BR follow SPICE's temperature law (T / T0)^XTB with XTB
+    the part's card's when it gives one, else ambient["xtb"]."""
     from diag.core.parts.base import T_KELVIN, VT
 
     lo, hi = (float(x) for x in ambient["celsius"])
     dT = rng.uniform(lo, hi, n) + 273.15 - T_KELVIN
     tc = float(ambient["vj_per_k"])
-    beta = ((T_KELVIN + dT) / T_KELVIN) ** float(ambient["xtb"])
+    ratio = (T_KELVIN + dT) / T_KELVIN
     out = dict(params)
     nom = circuit.nominal
 
@@ -133,7 +134,10 @@ def apply_ambient(circuit, params: dict, n: int, rng: np.random.Generator,
         ref = part.ref
         out[f"{ref}.is"] = cur(f"{ref}.is") * np.exp(-tc * dT / (cur(f"{ref}.{nkey}") * VT))
         if part.kind in ("npn", "pnp"):
-            out[f"{ref}.ise"] = cur(f"{ref}.ise") * np.exp(-tc * dT / (cur(f"{ref}.ne") * VT))
+            for isx, nx in (("ise", "ne"), ("isc", "nc")):
+                out[f"{ref}.{isx}"] = cur(f"{ref}.{isx}") * np.exp(
+                    -tc * dT / (cur(f"{ref}.{nx}") * VT))
+            beta = ratio ** float((part.model or {}).get("XTB", ambient["xtb"]))
             out[f"{ref}.bf"] = cur(f"{ref}.bf") * beta
             out[f"{ref}.br"] = cur(f"{ref}.br") * beta
     return out

@@ -28,8 +28,9 @@ How each part and fault hook maps (element names are <letter>_<ref>[_<role>]):
   (volts rms, so ngspice's AC phasors are rms too) behind `r`.
 - diode, led, zener: ngspice diode with IS N RS BV IBV. `k = 0` (open) opens the anode
   lead with a 1e12 ohm resistor; `g_sh` > 0 adds a resistor 1/g_sh across the terminals.
-- npn, pnp: ngspice Gummel-Poon with IS BF BR NF NR VAF IKF ISE NE RB RC RE IRB RBM
-  (VAF, IKF, IRB infinite or 0 = left out, SPICE's "infinite"; RBM is RB unless the
+- npn, pnp: ngspice Gummel-Poon with IS BF BR NF NR VAF IKF ISE NE RB RC RE VAR IKR ISC NC
+  NKF IRB RBM (VAF, VAR, IKF, IKR, IRB infinite or 0 = left out, SPICE's "infinite"; a
+  card's CARD_ONLY names are not written, as diag does not use them; RBM is RB unless the
   model gives it). diag's k_be / k_bc scale the emitter /
   collector lead conductance (parts/bjt.py): with k = 1 the model's own RE / RC is that
   lead; otherwise the lead is written out as a resistor max(R, 1 µΩ) / k to an inner
@@ -60,14 +61,15 @@ from typing import Any
 
 import numpy as np
 
+from diag.core.parts import bjt, diode
+
 OPEN_LEAD_OHMS = 1e12  # a lifted diode lead (k = 0)
 SPEAKER_L_HENRIES = 1e6  # shunts the AC-only part of a speaker at DC
 SPEAKER_C_FARADS = 1e6   # passes the AC-only branch of a speaker whose z is below its r
 
-_BJT_PARAMS = ("is", "bf", "br", "nf", "nr", "vaf", "ikf", "ise", "ne", "rb", "rc", "re",
-               "irb", "rbm")
-_DIODE_PARAMS = ("is", "n", "rs", "bv", "ibv")
-_INFINITE_WHEN_ZERO = {"vaf", "ikf", "bv", "irb"}
+_BJT_PARAMS = tuple(k.lower() for k in bjt.MODEL_NAMES if k not in ("BVEBO", "BVCBO"))
+_DIODE_PARAMS = tuple(k.lower() for k in diode.SPICE_DEFAULTS)
+_INFINITE_WHEN_ZERO = {"bv", *bjt.INFINITE_WHEN_ZERO}
 
 
 def _fmt(x: float) -> str:

@@ -34,25 +34,51 @@ def kind_of(kind: str) -> PartKind:
                         hint="known kinds: " + ", ".join(sorted(REGISTRY))) from None
 
 
+CARD_HINT = ("the model takes {} (SI units); a simulator card's capacitance, noise and "
+             "temperature names are accepted too and not used")
+
+
+def card_names(kind: str, used_only: bool = False) -> tuple[str, ...]:
+    """SPICE model-card names a semiconductor kind accepts: the ones its model uses, then
+    (unless `used_only`) the ones it carries without using (CARD_ONLY of parts/bjt.py and
+    parts/diode.py)."""
+    from diag.core.parts import bjt, diode
+
+    used, extra = ((bjt.MODEL_NAMES, bjt.CARD_ONLY) if kind in ("npn", "pnp")
+                   else (tuple(diode.SPICE_DEFAULTS), diode.CARD_ONLY))
+    return used if used_only else used + extra
+
+
+def unused_card_names(part) -> tuple[str, ...]:
+    """The names in a semiconductor part's model card that diag accepts and does not use
+    (a card's XTB is used: ensemble.apply_ambient)."""
+    from diag.core.parts import bjt, diode
+
+    if part.model is None or part.kind not in MODEL_KINDS:
+        return ()
+    only = bjt.CARD_ONLY if part.kind in ("npn", "pnp") else diode.CARD_ONLY
+    return tuple(k for k in part.model if k in only and k != "XTB")
+
+
 def check_models(models: dict, file: str | None = None) -> None:
     """Validate the models rules section: kind, params names and numbers."""
-    from diag.core.parts.bjt import MODEL_NAMES as BJT_NAMES
-    from diag.core.parts.diode import SPICE_DEFAULTS as DIODE_DEFAULTS
 
     for name, entry in (models or {}).items():
         line = getattr(models, "line_of", lambda k: None)(name)
         if not isinstance(entry, dict) or entry.get("kind") not in MODEL_KINDS:
             raise DiagError("a model needs kind: npn, pnp, diode, led or zener", file=file,
                             line=line, where=str(name))
-        allowed = BJT_NAMES if entry["kind"] in ("npn", "pnp") else tuple(DIODE_DEFAULTS)
+        allowed = card_names(entry["kind"])
         for key, val in (entry.get("params") or {}).items():
             if key not in allowed:
                 raise DiagError(f"unknown model parameter {key!r}", file=file, line=line,
-                                where=str(name), hint="known: " + " ".join(allowed))
+                                where=str(name), hint=CARD_HINT.format(
+                                    " ".join(card_names(entry["kind"], used_only=True))))
             if not isinstance(val, (int, float)) or isinstance(val, bool) or val < 0:
                 raise DiagError(f"parameter {key} must be a non-negative number",
                                 file=file, line=line, where=str(name))
 
 
-__all__ = ["REGISTRY", "kind_of", "check_models", "Context", "PartKind", "Spread", "VT",
-           "GMIN", "T_KELVIN", "SIGNAL_HZ"]
+__all__ = ["REGISTRY", "kind_of", "card_names", "CARD_HINT", "unused_card_names",
+           "check_models", "Context",
+           "PartKind", "Spread", "VT", "GMIN", "T_KELVIN", "SIGNAL_HZ"]

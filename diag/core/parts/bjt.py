@@ -1,7 +1,15 @@
-"""Bipolar transistors: a Gummel-Poon subset (IS BF BR NF NR VAF IKF ISE NE RB RC RE, and
-optionally IRB RBM; no junction capacitances, no ISC/VAR/IKR), SPICE meaning of every
-parameter, so the same card in ngspice gives the same operating point. With VAF, IKF
-infinite and ISE 0 it is the Ebers-Moll transport model.
+"""Bipolar transistors: the Gummel-Poon DC model (IS BF BR NF NR VAF VAR IKF IKR NKF ISE NE
+ISC NC RB RC RE, and optionally IRB RBM), SPICE meaning of every parameter, so the same
+card in ngspice gives the same operating point. With VAF, VAR, IKF, IKR infinite and ISE,
+ISC 0 it is the Ebers-Moll transport model. Base charge as in SPICE:
+qb = q1 (1 + (1 + 4 q2)^NKF) / 2, q1 = 1 / (1 - vbc/VAF - vbe/VAR),
+q2 = Ibe1/IKF + Ibc1/IKR.
+
+A card's charge-storage, noise and temperature parameters (CARD_ONLY) are accepted, so
+that a card carries over from a simulator as it is, and not used: diag's AC analysis is
+low-frequency (no junction capacitance or transit time), and the ambient temperature
+moves every junction by the rules' figure (ensemble.apply_ambient), except that a card's
+XTB sets its own part's beta temperature exponent.
 
 Base-resistance modulation (SPICE): the base resistance is RBM + (RB - RBM) / qb, or,
 with IRB given, RBM + 3 (RB - RBM) (tan z - z) / (z tan² z) with
@@ -46,9 +54,15 @@ DEFAULT_MODEL = {"npn": "npn-small", "pnp": "pnp-small"}
 SPICE_DEFAULTS = {"IS": 1e-16, "BF": 100.0, "BR": 1.0, "NF": 1.0, "NR": 1.0,
                   "VAF": math.inf, "IKF": math.inf, "ISE": 0.0, "NE": 1.5,
                   "RB": 0.0, "RC": 0.0, "RE": 0.0,
+                  "VAR": math.inf, "IKR": math.inf, "ISC": 0.0, "NC": 2.0, "NKF": 0.5,
                   "IRB": math.inf, "RBM": 0.0,     # RBM: when not given, RB (below)
                   "BVEBO": math.inf, "BVCBO": math.inf}   # junction breakdown (volts)
 MODEL_NAMES = tuple(SPICE_DEFAULTS)
+# SPICE bipolar card names accepted and not used (see the module docstring): junction and
+# substrate capacitance, transit time, noise, and temperature (XTB is read by
+# ensemble.apply_ambient).
+CARD_ONLY = ("CJE", "VJE", "MJE", "TF", "XTF", "VTF", "ITF", "PTF", "CJC", "VJC", "MJC",
+             "XCJC", "TR", "CJS", "VJS", "MJS", "FC", "KF", "AF", "EG", "XTI", "XTB", "TNOM")
 ON_CURRENT = 1e-6   # amperes of junction current above which a junction counts as on
 LEAD_MIN_OHMS = 1e-6   # ohms, the lead resistance used where the model has RC / RE = 0
 SAT_VCE = 0.3       # volts; an on transistor below this collector-emitter voltage is saturated
@@ -59,6 +73,9 @@ BD_TEST_AMPS = 1e-5  # amperes at which BVEBO is specified (10 µA; from memory,
 BD_QUIET_FORWARD = 1.5  # volts: below this forward, BD_IS exp(v / (BD_N vt)) < 1e-14 A
 
 
+INFINITE_WHEN_ZERO = ("vaf", "var", "ikf", "ikr", "irb", "bvebo", "bvcbo")
+
+
 def _is(value, const: float) -> bool:
     """True when a parameter is the plain number `const` (not a per-variant array)."""
     return isinstance(value, float) and value == const
@@ -66,8 +83,7 @@ def _is(value, const: float) -> bool:
 
 class BJT(PartKind):
     kinds = ("npn", "pnp")
-    names = ("is", "bf", "br", "nf", "nr", "vaf", "ikf", "ise", "ne", "rb", "rc", "re",
-             "irb", "rbm", "bvebo", "bvcbo", "k_be", "k_bc", "g_be", "g_bc", "g_ce")
+    names = tuple(k.lower() for k in MODEL_NAMES) + ("k_be", "k_bc", "g_be", "g_bc", "g_ce")
 
     def internal(self, part, nominal):
         return tuple(f"{x}i" for x in ("c", "b", "e") if x != "b" or nominal["rb"] > 0)
@@ -78,7 +94,7 @@ class BJT(PartKind):
         if "RBM" not in {k.upper() for k in m}:
             q["RBM"] = q["RB"]
         out = {k.lower(): float(q[k]) for k in MODEL_NAMES}
-        for k in ("vaf", "ikf", "irb", "bvebo", "bvcbo"):   # SPICE: 0 means infinite
+        for k in INFINITE_WHEN_ZERO:   # SPICE: 0 means infinite
             if out[k] == 0.0:
                 out[k] = math.inf
         hfe = part.fields.get("hfe")
@@ -214,12 +230,38 @@ class BJTDevice:
     @staticmethod
     def qb(p, vbe, vbc):
         """Normalised base charge qb (SPICE Gummel-Poon), as in `currents`."""
-        inv_vaf, inv_ikf = 1.0 / p["vaf"], 1.0 / p["ikf"]
-        q1 = 1.0 if _is(inv_vaf, 0.0) else 1.0 / (1.0 - inv_vaf * vbc)
-        if _is(inv_ikf, 0.0):
-            return q1 * np.ones(np.shape(vbe))
-        cbe = p["is"] * (safe_exp(vbe / p["_vtf"])[0] - 1.0)
-        return 0.5 * q1 * (1.0 + np.sqrt(np.maximum(1.0 + 4.0 * inv_ikf * cbe, 1e-12)))
+        return BJTDevice.base_charge(p, vbe, vbc, *BJTDevice._ideal(p, vbe, vbc))[0]
+
+    @staticmethod
+    def _ideal(p, vbe, vbc):
+        """The ideal diode currents Ibe1, Ibc1 (A) and their conductances (S)."""
+        is_, vtf, vtr = p["is"], p["_vtf"], p["_vtr"]
+        e1, d1 = safe_exp(vbe / vtf)
+        e2, d2 = safe_exp(vbc / vtr)
+        return is_ * (e1 - 1.0), (is_ / vtf) * d1, is_ * (e2 - 1.0), (is_ / vtr) * d2
+
+    @staticmethod
+    def base_charge(p, vbe, vbc, cbe, gbe, cbc, gbc):
+        """(qb, dqb/dvbe, dqb/dvbc), SPICE's Gummel-Poon base charge from the ideal
+        currents cbe, cbc (A) and their conductances gbe, gbc (S):
+        qb = q1 (1 + arg^NKF) / 2, arg = 1 + 4 (cbe/IKF + cbc/IKR) (at least 0),
+        q1 = 1 / (1 - vbc/VAF - vbe/VAR)."""
+        inv_vaf, inv_var = 1.0 / p["vaf"], 1.0 / p["var"]
+        inv_ikf, inv_ikr = 1.0 / p["ikf"], 1.0 / p["ikr"]
+        if _is(inv_vaf, 0.0) and _is(inv_var, 0.0):
+            q1 = 1.0
+        else:
+            q1 = 1.0 / (1.0 - inv_vaf * vbc - inv_var * vbe)
+        if _is(inv_ikf, 0.0) and _is(inv_ikr, 0.0):
+            qb = q1 * np.ones(np.shape(vbe))
+            return qb, q1 * qb * inv_var, q1 * qb * inv_vaf
+        arg = np.maximum(1.0 + 4.0 * (inv_ikf * cbe + inv_ikr * cbc), 1e-12)
+        nkf = p["nkf"]
+        sq = np.sqrt(arg) if _is(nkf, 0.5) else arg ** nkf
+        qb = 0.5 * q1 * (1.0 + sq)
+        dsq = 2.0 * nkf * sq / arg          # d(arg^NKF)/d(q2) / 2
+        return (qb, q1 * (qb * inv_var + inv_ikf * gbe * dsq),
+                q1 * (qb * inv_vaf + inv_ikr * gbc * dsq))
 
     @staticmethod
     def prepare(p):
@@ -235,43 +277,31 @@ class BJTDevice:
 
     def currents(self, p, vbe, vbc):
         """Intrinsic (ic, ib) flowing into c and b (npn sense) and their derivatives
-        d/dvbe, d/dvbc (SPICE Gummel-Poon: qb = q1 (1 + sqrt(1 + 4 q2)) / 2,
-        q1 = 1 / (1 - vbc/VAF), q2 = Ibe1 / IKF)."""
-        is_, vtf, vtr = p["is"], p["_vtf"], p["_vtr"]
-        e1, d1 = safe_exp(vbe / vtf)
-        e2, d2 = safe_exp(vbc / vtr)
-        cbe, gbe = is_ * (e1 - 1.0), (is_ / vtf) * d1
-        cbc, gbc = is_ * (e2 - 1.0), (is_ / vtr) * d2
-        ise = p["ise"]
-        if _is(ise, 0.0):
-            cben, gben = GMIN * vbe, GMIN
-        else:
-            vte = p["ne"] * VT
-            e3, d3 = safe_exp(vbe / vte)
-            cben = ise * (e3 - 1.0) + GMIN * vbe
-            gben = (ise / vte) * d3 + GMIN
-        inv_vaf, inv_ikf = 1.0 / p["vaf"], 1.0 / p["ikf"]
-        if _is(inv_vaf, 0.0):
-            q1, dq1_bc = 1.0, 0.0
-        else:
-            q1 = 1.0 / (1.0 - inv_vaf * vbc)
-            dq1_bc = q1 * q1 * inv_vaf
-        if _is(inv_ikf, 0.0):
-            qb, dqb_be, dqb_bc = q1, 0.0, dq1_bc
-        else:
-            sq = np.sqrt(np.maximum(1.0 + 4.0 * inv_ikf * cbe, 1e-12))
-            qb = 0.5 * q1 * (1.0 + sq)
-            dqb_be = q1 * inv_ikf * gbe / sq
-            dqb_bc = 0.5 * dq1_bc * (1.0 + sq)
+        d/dvbe, d/dvbc (SPICE Gummel-Poon, `base_charge`; the non-ideal base currents
+        ISE (NE) and ISC (NC))."""
+        cbe, gbe, cbc, gbc = self._ideal(p, vbe, vbc)
+        cben, gben = self._leak(p["ise"], p["ne"], vbe)
+        cbcn, gbcn = self._leak(p["isc"], p["nc"], vbc)
+        qb, dqb_be, dqb_bc = self.base_charge(p, vbe, vbc, cbe, gbe, cbc, gbc)
         iqb = 1.0 / qb
         it = (cbe - cbc) * iqb
         dit_be = (gbe - it * dqb_be) * iqb
         dit_bc = (-gbc - it * dqb_bc) * iqb
         ibe = cbe / p["bf"] + cben
         gibe = gbe / p["bf"] + gben
-        ibc = cbc / p["br"] + GMIN * vbc
-        gibc = gbc / p["br"] + GMIN
+        ibc = cbc / p["br"] + cbcn
+        gibc = gbc / p["br"] + gbcn
         return it - ibc, ibe + ibc, (dit_be, dit_bc - gibc), (gibe, gibc)
+
+    @staticmethod
+    def _leak(isx, n, v):
+        """A junction's non-ideal (recombination) current isx (exp(v / (n VT)) - 1) plus
+        GMIN v, and its conductance (A, S)."""
+        if _is(isx, 0.0):
+            return GMIN * v, GMIN
+        vt = n * VT
+        e, d = safe_exp(v / vt)
+        return isx * (e - 1.0) + GMIN * v, (isx / vt) * d + GMIN
 
     def start(self, p, pn, v):
         """(vbe, vbc) to evaluate first, from the nominal solution v (parameters pn):

@@ -15,6 +15,10 @@ from diag.core.parts.base import GMIN, VT, PartKind, Spread, pnjlim, safe_exp
 DEFAULT_MODEL = {"diode": "si-diode", "led": "led-red", "zener": "zener"}
 # SPICE defaults of the diode card for names a model leaves out
 SPICE_DEFAULTS = {"IS": 1e-14, "N": 1.0, "RS": 0.0, "BV": math.inf, "IBV": 1e-3}
+# SPICE diode card names accepted and not used, so that a card carries over as it is:
+# junction capacitance, transit time, noise and temperature (the ambient moves every
+# junction by the rules' figure, ensemble.apply_ambient).
+CARD_ONLY = ("CJO", "CJ0", "VJ", "M", "TT", "FC", "KF", "AF", "EG", "XTI", "TNOM")
 
 
 def model_of(part, ctx, default_name: str) -> tuple[str, dict]:
