@@ -333,7 +333,8 @@ def test_cli_json_reports_bad_rows_and_triages_the_rest(engine, tmp_path, capsys
     units = _units(engine)
     batch = tmp_path / "batch.csv"
     _write_batch(batch, units, ["A00,TP99,dc,1.0", "A01,TP3,dc,4kk"])
-    assert main(["triage", str(CASE), str(batch), "--json"]) == 0
+    # refused rows: exit 1 and the rest triaged (SPEC section 4)
+    assert main(["triage", str(CASE), str(batch), "--json"]) == 1
     out = capsys.readouterr()
     obj = json.loads(out.out)
     assert [u["unit"] for u in obj["units"]] == list(units)
@@ -414,7 +415,7 @@ def test_refused_rows_name_their_unit_in_every_output(engine, tmp_path, capsys):
     units = _units(engine)
     batch = tmp_path / "batch.csv"
     bad = _batch_with_refused_rows(batch, units)
-    assert main(["triage", str(CASE), str(batch), "--json"]) == 0
+    assert main(["triage", str(CASE), str(batch), "--json"]) == 1
     out = capsys.readouterr()
     obj = json.loads(out.out)
     err = out.err.splitlines()
@@ -436,7 +437,7 @@ def test_refused_rows_name_their_unit_in_every_output(engine, tmp_path, capsys):
     # --out reports carry the messages with their units, once each
     for fmt in ("md", "csv", "json"):
         rep = tmp_path / f"report.{fmt}"
-        assert main(["triage", str(CASE), str(batch), "--out", str(rep)]) == 0
+        assert main(["triage", str(CASE), str(batch), "--out", str(rep)]) == 1
         text = rep.read_text(encoding="utf-8")
         for row, unit in bad.items():
             if unit:
@@ -460,11 +461,11 @@ def test_refused_rows_shown_once_on_a_terminal(engine, tmp_path, capsys, monkeyp
     units = _units(engine)
     batch = tmp_path / "batch.csv"
     bad = _batch_with_refused_rows(batch, units)
-    assert main(["triage", str(CASE), str(batch)]) == 0
+    assert main(["triage", str(CASE), str(batch)]) == 1
     piped = capsys.readouterr()
     monkeypatch.setattr(sys.stdout, "isatty", lambda: True)
     monkeypatch.setattr(sys.stderr, "isatty", lambda: True)
-    assert main(["triage", str(CASE), str(batch)]) == 0
+    assert main(["triage", str(CASE), str(batch)]) == 1
     tty = capsys.readouterr()
     assert tty.err == piped.err
     for line in tty.err.splitlines():
@@ -482,7 +483,7 @@ def test_single_unit_file_refused_rows_belong_to_the_unit(engine, tmp_path, caps
     f = tmp_path / "bench7.csv"
     f.write_text("point,kind,value\n" + "".join(f"{r.point},{r.kind},{r.value!r}\n"
                                                 for r in rs) + "TP99,dc,1\n", "utf-8")
-    assert main(["triage", str(CASE), str(f), "--json"]) == 0
+    assert main(["triage", str(CASE), str(f), "--json"]) == 1
     out = capsys.readouterr()
     tri = json.loads(out.out)
     assert f"row {len(rs) + 2} (unit bench7): unknown point 'TP99'" in out.err

@@ -349,20 +349,26 @@ async def test_wrong_naming_costs_points_then_the_right_one_scores(engine, tmp_p
         [("found", str(s.points.total), "1", "R1:open", "1")]
 
 
+async def _one_reading_then(pilot, key: str) -> tuple[DrillScreen, str]:
+    """Take TP3 on the drill screen, press `key`; the drill screen and the question of
+    the confirmation dialog that opens."""
+    await settle(pilot)
+    screen = pilot.app.screen
+    screen.take("TP3", "dc")
+    await pilot.press(key)
+    await pilot.pause()
+    dialog = pilot.app.screen
+    assert isinstance(dialog, ConfirmDialog)
+    return screen, str(dialog.query_one("#confirm-text", Static).content)
+
+
 @sync
 async def test_leaving_mid_exercise_asks_and_records_it(engine, tmp_path):
     results = tmp_path / "class.csv"
     drill = _drill(engine, results=str(results))
     app = DiagApp(drill=drill)
     async with app.run_test(size=(120, 36)) as pilot:
-        await settle(pilot)
-        screen = app.screen
-        screen.take("TP3", "dc")
-        await pilot.press("escape")
-        await pilot.pause()
-        dialog = app.screen
-        assert isinstance(dialog, ConfirmDialog)
-        question = str(dialog.query_one("#confirm-text", Static).content)
+        screen, question = await _one_reading_then(pilot, "escape")
         assert "recorded as abandoned" in question and "1 reading(s)" in question
         await pilot.press("n")  # stay
         await pilot.pause()
@@ -376,6 +382,34 @@ async def test_leaving_mid_exercise_asks_and_records_it(engine, tmp_path):
     rows = list(csv.DictReader(results.open(encoding="utf-8")))
     assert [(r["status"], r["readings_used"], r["points"], r["correct"]) for r in rows] == \
         [("abandoned", "1", "0", "0")]
+
+
+@sync
+async def test_ctrl_q_mid_exercise_asks_first(engine):
+    """Ctrl+Q over an unended exercise asks as leaving does (n stays, Ctrl+Q again
+    quits); once the only exercise has ended it quits at once."""
+    drill = _drill(engine)
+    app = DiagApp(drill=drill)
+    async with app.run_test(size=(120, 36)) as pilot:
+        screen, question = await _one_reading_then(pilot, "ctrl+q")
+        assert app.return_code is None
+        assert "recorded as abandoned" in question and "Ctrl+Q again quits" in question
+        await pilot.press("n")
+        await pilot.pause()
+        assert app.screen is screen and app.return_code is None
+        await pilot.press("ctrl+q")
+        await pilot.pause()
+        await pilot.press("ctrl+q")
+        await pilot.pause()
+        assert app.return_code == 0 and drill.round.score is None  # the command records it
+    drill = _drill(engine)
+    app = DiagApp(drill=drill)
+    async with app.run_test(size=(120, 36)) as pilot:
+        await settle(pilot)
+        drill.round.abandon()                 # ended: nothing left to lose
+        await pilot.press("ctrl+q")
+        await pilot.pause()
+        assert app.return_code == 0
 
 
 def test_drill_bindings_have_ids_and_descriptions():

@@ -4,8 +4,10 @@
 Markdown to stdout by default, `--json` for scripts (SPEC section 5). `--out FILE` writes
 the report there instead (format from `--format`, else from the file's extension).
 Refused rows are reported on stderr, once each, with their row number and unit, and the
-rest is triaged. The report lists them too, except when it goes to the same terminal as
-stderr: it then counts them and points to the messages above. A progress bar goes to
+rest is triaged; the exit status is then 1, as for `diagnose` (SPEC section 4: the input
+was understood but part of it is bad), with the report written all the same. The report
+lists them too, except when it goes to the same terminal as stderr: it then counts them
+and points to the messages above. A progress bar goes to
 stderr when it is a terminal and the batch is long. Every report closes with the safety
 cautions. The core is diag/core/triage.py.
 """
@@ -133,4 +135,4 @@ def run(args: argparse.Namespace) -> int:
         from diag.tui.app import DiagApp
 
         DiagApp(batch=res).run()
-    return 0
+    return 1 if rejected else 0

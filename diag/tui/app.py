@@ -140,6 +140,21 @@ class DiagApp(App[None]):
 
     # ------------------------------------------------------------------ actions
 
+    async def action_quit(self) -> None:
+        """Ctrl+Q: quit, after asking where a screen below would lose work by it (a
+        drill's unended exercise: DrillScreen.ask_before_quit); Ctrl+Q again over that
+        question quits."""
+        if getattr(self.screen, "quit_question", False):
+            self.exit()
+            return
+        for screen in reversed(self.screen_stack):
+            ask = getattr(screen, "ask_before_quit", None)
+            if ask is not None:
+                if ask():
+                    return
+                break
+        self.exit()
+
     def action_help(self) -> None:
         screen = self.screen
         if isinstance(screen, HelpScreen):

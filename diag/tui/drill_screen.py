@@ -199,6 +199,7 @@ class ConfirmDialog(ModalScreen[bool]):
         super().__init__()
         self.title_text = title
         self.text = text
+        self.quit_question = False   # True: the app's Ctrl+Q over it quits
 
     def compose(self) -> ComposeResult:
         with Vertical(classes="dialog", id="confirm-box"):
@@ -530,24 +531,30 @@ class DrillScreen(Screen):
         if self.drill.next_round() is not None:
             self._load_round()
 
+    def _unended_text(self) -> str | None:
+        """What leaving now would cost, or None when nothing is lost: the exercise not
+        ended (recorded as abandoned) and the exercises not yet started."""
+        d = self.drill
+        rest = len(d.exercises) - d.index - 1
+        if d.round.score is None:
+            where = f" in {d.results}" if d.results else ""
+            text = (f"This exercise has not ended: it is recorded as abandoned{where}, "
+                    f"with your {len(d.round.taken)} reading(s) and 0 points.")
+            if rest:
+                text += f" The {rest} exercise(s) after it are not started."
+            return text
+        if rest:
+            return f"The {rest} exercise(s) after this one are not started or recorded."
+        return None
+
     def action_leave(self) -> None:
         """Leave the drill. Before the exercise has ended this asks first and records it
         as abandoned (readings so far, 0 points); with exercises not yet started it asks
         too; otherwise it leaves at once."""
-        d = self.drill
         if self.scoring:
             return
-        rest = len(d.exercises) - d.index - 1
-        if d.round.score is None:
-            n = len(d.round.taken)
-            where = f" in {d.results}" if d.results else ""
-            text = (f"This exercise has not ended: it is recorded as abandoned{where}, "
-                    f"with your {n} reading(s) and 0 points.")
-            if rest:
-                text += f" The {rest} exercise(s) after it are not started."
-        elif rest:
-            text = f"The {rest} exercise(s) after this one are not started or recorded."
-        else:
+        text = self._unended_text()
+        if text is None:
             self._go()
             return
 
@@ -562,6 +569,18 @@ class DrillScreen(Screen):
                 self._go()
 
         self.app.push_screen(ConfirmDialog("Leave the drill?", text), chosen)
+
+    def ask_before_quit(self) -> bool:
+        """Ctrl+Q over a drill (DiagApp.action_quit): when leaving would lose anything,
+        ask first and quit on yes (the command records an unended exercise as abandoned
+        as it exits) and return True; False when there is nothing to ask."""
+        text = None if self.scoring else self._unended_text()
+        if text is None:
+            return False
+        dialog = ConfirmDialog("Quit diag?", text + " Ctrl+Q again quits too.")
+        dialog.quit_question = True
+        self.app.push_screen(dialog, lambda yes: self.app.exit() if yes else None)
+        return True
 
     def _go(self) -> None:
         if len(self.app.screen_stack) > 2:
