@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from diag.core import ensemble, meter, overdrive, solver, spice
+from diag.core import ensemble, largesignal, meter, overdrive, solver, spice
 from diag.core.case import load_case
 from diag.core.engine import Engine
 from diag.core.paths import cases_dir
@@ -42,6 +42,17 @@ def test_an_overdriven_unit_reads_between_its_floor_and_the_rails():
     assert np.all(out[:, 1] <= 6.0)
 
 
+def _drawn(case_file: str, fault: str, n: int, seed: int):
+    """(case, circuit, params, dc, ac) of n units of `fault` drawn by diag."""
+    rules = load_rules()
+    case = load_case(case_file if "/" in case_file else cases_dir() / case_file, rules)
+    eng = Engine(case, rules, K=8)
+    circ = eng.circuit
+    params = ensemble.draw_unit(circ, eng._spec(fault), n, np.random.default_rng(seed))
+    dc = solver.solve_dc(circ, params)
+    return case, circ, params, dc, solver.solve_ac(circ, params, dc)
+
+
 def _tran_check(ngspice, case_file: str, fault: str, n: int, seed: int):
     """For n units of `fault` drawn by diag: the ngspice transient AC rms at each AC
     point (away from the generator's node) and diag's range for it (meter.observe with
@@ -53,12 +64,7 @@ def _tran_check(ngspice, case_file: str, fault: str, n: int, seed: int):
     from ngspice_util import tran_ac_rms
 
     rules = load_rules()
-    case = load_case(case_file if "/" in case_file else cases_dir() / case_file, rules)
-    eng = Engine(case, rules, K=8)
-    circ = eng.circuit
-    params = ensemble.draw_unit(circ, eng._spec(fault), n, np.random.default_rng(seed))
-    dc = solver.solve_dc(circ, params)
-    ac = solver.solve_ac(circ, params, dc)
+    case, circ, params, dc, ac = _drawn(case_file, fault, n, seed)
     src = case.signal.nodes[0]
     obs = [o for o in case.observables if o.kind == "ac" and case.point(o.point).node != src]
     small = meter.observe(circ, params, dc, ac, obs, case.meter, large_signal=False)
@@ -126,3 +132,71 @@ def test_a_healthy_unit_reads_its_small_signal_prediction(ngspice):
     for point, g, a, last, _before, _lo, _hi in rows:
         assert g < overdrive.FLOOR
         assert last == pytest.approx(a, rel=0.03, abs=2e-4), point
+
+
+UNBYPASSED = str(Path(__file__).parent / "data" / "ce-stage-unbypassed.yaml")
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("fault", ["R4:short", "R4:low", "R3:high"])
+def test_the_charge_balance_centres_the_large_signal_reading(ngspice, fault):
+    """The centre of diag's large-signal range, the small-signal reading times the pass's
+    ratio r, against ngspice's transient reading at every AC point of the saturated test
+    stage: within ln 0.4 (a factor 1.5) with the coupling capacitors' charge balanced
+    (largesignal.py); without it the pass was up to ln 1.2 (a factor 3.3) off."""
+    from ngspice_util import tran_ac_rms
+
+    case, circ, params, dc, ac = _drawn(UNBYPASSED, fault, 2, 1)
+    src = case.signal.nodes[0]
+    obs = [o for o in case.observables if o.kind == "ac" and case.point(o.point).node != src]
+    nodes = [case.point(o.point).node for o in obs]
+    small = np.abs(np.stack([solver.node_v(circ, ac.v, n) for n in nodes], axis=1))
+    r = largesignal.ratios(circ, params, dc, np.arange(2), [(n, case.ground) for n in nodes])
+    vpk = float(circ.nominal[f"{case.signal.ref}.vac"]) * math.sqrt(2)
+    for b in range(2):
+        one = {k: float(np.asarray(v).reshape(-1)[b if np.size(v) > 1 else 0])
+               for k, v in params.items() if not k.startswith(overdrive.PREFIX)}
+        names = [spice.node_name(case, n) for n in nodes]
+        tr = tran_ac_rms(spice.netlist(circ, one), spice.source_name(case.signal.ref),
+                         vpk, float(circ.hz), names)
+        for m, name in enumerate(names):
+            off = math.log(small[b, m] * r[b, m] / tr[name][0])
+            assert abs(off) < 0.4, (obs[m].point, b, small[b, m], r[b, m], tr[name][0])
+
+
+def _clamp():
+    from test_parts import compiled, part
+
+    return compiled(part("V1", "supply", ["vcc", "gnd"], 12.0, r_source=0.5),
+                    part("R2", "resistor", ["vcc", "gnd"], 10e3),
+                    part("S1", "signal", ["in", "gnd"], 2.0, r_source=50.0),
+                    part("C1", "capacitor", ["in", "x"], 1e-6),
+                    part("D1", "diode", ["x", "gnd"], model="si-diode"),
+                    part("R1", "resistor", ["x", "gnd"], 100e3))
+
+
+@pytest.mark.ngspice
+def test_a_diode_clamp_shifts_the_tone_and_does_not_clip_it(ngspice, monkeypatch):
+    """A diode clamp (DC restorer: 2 V rms through 1 µF onto a diode and 100 kΩ to
+    ground). Handbook clamper: the capacitor charges to the peak less the diode's drop,
+    so the node carries the whole tone shifted below ground and its AC rms stays the
+    tone's. diag's pass with the charge balance reads the tone's own rms (r = 1 within
+    1 %), as ngspice's transient run does; held at its operating voltage instead, the
+    capacitor lets the diode clip half of every cycle (r about 0.68)."""
+    from ngspice_util import tran_ac_rms
+
+    circ = _clamp()
+    dc = solver.solve_dc(circ, {})
+    ac = solver.solve_ac(circ, {}, dc)
+    small = abs(solver.node_v(circ, ac.v, "x")[0])
+    assert small == pytest.approx(2.0, rel=0.01)        # the small-signal divider is ~1
+    r = largesignal.ratios(circ, {}, dc, np.array([0]), [("x", "gnd")])[0, 0]
+    tr = tran_ac_rms(spice.netlist(circ, {}), spice.source_name("S1"), 2.0 * math.sqrt(2),
+                     float(circ.hz), [spice.node_name(circ.case, "x")])
+    last, before = tr[spice.node_name(circ.case, "x")]
+    assert last == pytest.approx(before, rel=1e-3)      # settled
+    assert r == pytest.approx(1.0, abs=0.01)
+    assert small * r == pytest.approx(last, rel=0.01)
+    monkeypatch.setattr(largesignal, "BALANCE_STEPS", 0)
+    held = largesignal.ratios(circ, {}, dc, np.array([0]), [("x", "gnd")])[0, 0]
+    assert held < 0.75

@@ -78,8 +78,9 @@ ONSET = 0.05   # a junction whose tone makes more than this second harmonic in i
                # unit out of the small-signal range
 SPREAD = 0.2   # the large-signal reading's spread either way, per unit of the unit's
                # largest |ln r| (r the quasi-static ratio): what the pass leaves out (the
-               # capacitors' charge shift), set from ngspice transient runs
-               # (tests/test_overdrive.py)
+               # holds' phase, a charge balance not fully reached in its steps), set from
+               # ngspice transient runs (tests/test_overdrive.py: up to 0.14 needed on
+               # the saturated test stage, 0.18 on mic-preamp with R9 shorted)
 
 
 def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
@@ -162,8 +163,9 @@ def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     with np.errstate(invalid="ignore"):
         width = SPREAD * np.nanmax(np.abs(ln_r), axis=1, initial=0.0)[:, None]
     lo_q, hi_q = ln_r - width, ln_r + width
-    # with the rail range of `limit` (clipping; its charge shift reaches back into the
-    # stages before the clipped one) where the unit passes FLOOR
+    # with the rail range of `limit` (clipping; what the pass's balance steps leave of its
+    # charge shift reaches back into the stages before the clipped one) where the unit
+    # passes FLOOR
     gr = g[rows][:, None]
     lo_g = np.where(gr > FLOOR, np.log(np.minimum(1.0, FLOOR / np.maximum(gr, 1e-300))),
                     np.inf)
