@@ -31,7 +31,6 @@ What the quasi-static pass still leaves out, overdrive.py allows for with a spre
 
 from __future__ import annotations
 
-import dataclasses
 import math
 from collections.abc import Mapping, Sequence
 from typing import Any
@@ -154,8 +153,7 @@ def _balanced(circuit: Any, big: dict, res: Any, caps: Sequence[tuple[str, str, 
         todo = todo[keep]
         hold[todo] = new[keep]
         rows_v = (todo[:, None] * P + np.arange(P)).reshape(-1)
-        sub = {key: (np.asarray(a)[rows_v] if np.ndim(a) == 1 and np.shape(a)[0] == R else a)
-               for key, a in big.items()}
+        sub = solver.take(big, rows_v, R)
         for c, (ref, _, _) in enumerate(caps):
             sub[f"{ref}.hold_v"] = np.repeat(hold[todo, c], P)
         again = solver.solve_dc(circuit, sub, x_start=x[rows_v])
@@ -179,13 +177,8 @@ def _newton_matrix(circuit: Any, params: Mapping[str, Any], dc: Any, rows: np.nd
     from diag.core import solver
 
     pairs = [(a, b) for _, a, b in caps]
-    B = dc.v.shape[0]
-    some = {k: (np.asarray(a)[rows] if np.ndim(a) == 1 and np.shape(a)[0] == B else a)
-            for k, a in params.items()}
-    part = dataclasses.replace(dc, v=dc.v[rows], i_supply=dc.i_supply[rows],
-                               ok=np.asarray(dc.ok)[rows], why=[dc.why[i] for i in rows],
-                               iterations=np.asarray(dc.iterations)[rows], x=dc.x[rows])
-    _, cols = solver.thevenin(circuit, some, part, pairs, columns=True)
+    _, cols = solver.thevenin(circuit, solver.take(params, rows, dc.v.shape[0]),
+                              solver.take_dc(dc, rows), pairs, columns=True)
     cols = np.nan_to_num(np.asarray(cols))                           # (n, C, unknowns)
     idx = [(circuit.index(a), circuit.index(b)) for a, b in pairs]
 

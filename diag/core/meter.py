@@ -183,15 +183,6 @@ LINEAR_START = 0.05  # up to this divider correction Newton starts from the line
                      # extrapolation overshoots and junction limiting crawls back)
 
 
-def _rows(params: Mapping[str, Any], idx: np.ndarray, B: int) -> dict[str, Any]:
-    """params restricted to variants idx (scalars and 1-element arrays stay as they are)."""
-    out = {}
-    for k, v in params.items():
-        a = np.asarray(v)
-        out[k] = a[idx] if a.ndim == 1 and a.shape[0] == B and B > 1 else v
-    return out
-
-
 def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
             observables: Sequence[Any], meter: Mapping[str, Any], *,
             large_signal: bool = True) -> np.ndarray:
@@ -293,7 +284,7 @@ def _reload(circuit, params, B, again, volt_cols, r_in, zin, out) -> None:
 
     rows = np.concatenate([idx for _, idx, _ in again])
     seg = np.repeat(np.arange(len(again)), [idx.size for _, idx, _ in again])
-    sub = _rows(params, rows, B)
+    sub = solver.take(params, rows, B)
     load = [(a, b, np.where(seg == j, 1.0 / r_in, 0.0))
             for j, ((a, b), _, _) in enumerate(again)]
     x0 = np.concatenate([x for _, _, x in again])
@@ -334,7 +325,7 @@ def _burden(circuit, params, dc, ok, B, ref, cols, burden, out) -> None:
     idx = np.flatnonzero(ok & ~((r_net > 0) & (frac <= LOAD_EXACT)))
     if idx.size == 0:
         return
-    sub = _rows(params, idx, B)
+    sub = solver.take(params, idx, B)
     sub[key] = r[idx] + burden
     dcl = solver.solve_dc(circuit, sub, x_start=dc.x[idx])
     s = list(circuit.supplies).index(ref)

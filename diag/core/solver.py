@@ -887,6 +887,23 @@ def thevenin(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult
 
 # ----------------------------------------------------------------------------- regions
 
+def take(params: Mapping[str, object], idx: np.ndarray, B: int) -> dict[str, object]:
+    """params restricted to variants idx of a batch of B (scalars and 1-element arrays,
+    shared by every variant, stay as they are)."""
+    out = {}
+    for k, v in params.items():
+        a = np.asarray(v)
+        out[k] = a[idx] if a.ndim == 1 and a.shape[0] == B and B > 1 else v
+    return out
+
+
+def take_dc(dc: DCResult, idx: np.ndarray) -> DCResult:
+    """The DCResult of variants idx alone."""
+    return DCResult(v=dc.v[idx], i_supply=dc.i_supply[idx], ok=np.asarray(dc.ok)[idx],
+                    why=[dc.why[i] for i in idx], iterations=np.asarray(dc.iterations)[idx],
+                    x=dc.x[idx])
+
+
 def node_v(circuit: Circuit, v: np.ndarray, node: str) -> np.ndarray:
     """Column (B,) of node voltages `v` (B, n_nodes), DCResult.v or ACResult.v, for a
     case node; zeros (of v's dtype) for the ground."""
