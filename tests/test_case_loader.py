@@ -289,6 +289,11 @@ ERRORS = [
      "Q1"),
     ("inline model bad parameter", "model: npn-small", "model: {IS: 1e-14, RCO: 50}",
      "unknown model parameter 'RCO'", 12, "Q1"),
+    # SPICE's base charge q1 = 1 / (1 - vbc/VAF - vbe/VAR) turns negative with a
+    # junction forward when an Early voltage is below it
+    ("inline model Early voltage below a junction's", "model: npn-small",
+     "model: {IS: 1e-14, VAR: 0.5}", "VAR 0.5 V is below a forward junction's voltage", 12,
+     "Q1"),
     ("model kind mismatch", "model: npn-small", "model: pnp-small", "is for pnp parts", 12,
      "Q1"),
     ("inline model as a models.yaml entry", "model: npn-small",

@@ -27,6 +27,7 @@ import yaml
 
 from diag.core.errors import CaseErrors, DiagError
 from diag.core.parts import CARD_HINT, card_names
+from diag.core.parts.bjt import early_problem
 from diag.core.paths import cases_dir, user_cases_dir
 from diag.core.rules import Rules, load_rules
 from diag.core.values import SYMBOLS, canonical_unit, format_value, parse_tol, parse_value
@@ -510,6 +511,10 @@ class _Loader:
                 ok = False
                 continue
             x = self.value(v, None, kl, ref, f"model {key}", 0.0, key not in _POSITIVE_PARAMS)
+            why = early_problem(key, x) if x is not None else None
+            if why:
+                self.err(f"model {why.split(':')[0]}", kl, ref, hint=why.split(": ", 1)[1])
+                x = None
             ok = ok and x is not None
             out[key] = x
         return MappingProxyType(out) if ok else None

@@ -62,6 +62,7 @@ def unused_card_names(part) -> tuple[str, ...]:
 
 def check_models(models: dict, file: str | None = None) -> None:
     """Validate the models rules section: kind, params names and numbers."""
+    from diag.core.parts import bjt
 
     for name, entry in (models or {}).items():
         line = getattr(models, "line_of", lambda k: None)(name)
@@ -77,6 +78,9 @@ def check_models(models: dict, file: str | None = None) -> None:
             if not isinstance(val, (int, float)) or isinstance(val, bool) or val < 0:
                 raise DiagError(f"parameter {key} must be a non-negative number",
                                 file=file, line=line, where=str(name))
+            why = bjt.early_problem(key, float(val))
+            if why:
+                raise DiagError(why, file=file, line=line, where=str(name))
 
 
 __all__ = ["REGISTRY", "kind_of", "card_names", "CARD_HINT", "unused_card_names",

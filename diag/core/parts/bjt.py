@@ -74,6 +74,19 @@ BD_QUIET_FORWARD = 1.5  # volts: below this forward, BD_IS exp(v / (BD_N vt)) < 
 
 
 INFINITE_WHEN_ZERO = ("vaf", "var", "ikf", "ikr", "irb", "bvebo", "bvcbo")
+# volts: the least Early voltage (VAF, VAR) a card may give (0 = none). The base charge's
+# q1 = 1 / (1 - vbc/VAF - vbe/VAR) must stay positive with a junction forward, up to
+# about 1 V; real cards give 5 to 200 V (from memory).
+EARLY_MIN_VOLTS = 1.0
+
+
+def early_problem(key: str, value: float) -> str | None:
+    """Why a card's VAF or VAR of `value` volts cannot be used, or None."""
+    if key in ("VAF", "VAR") and 0.0 < value < EARLY_MIN_VOLTS:
+        return (f"{key} {value:g} V is below a forward junction's voltage: SPICE's "
+                f"q1 = 1 / (1 - vbc/VAF - vbe/VAR) would turn negative; give "
+                f"{EARLY_MIN_VOLTS:g} V or more (cards give 5 to 200 V), or 0 for none")
+    return None
 
 
 def _is(value, const: float) -> bool:
