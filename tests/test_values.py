@@ -51,6 +51,15 @@ def test_si_prefixes_and_units(text, expected):
     assert parse_value(text) == pytest.approx(expected, rel=1e-12)
 
 
+def test_femto_and_the_farad_differ():
+    # BIPM SI brochure: f (femto) = 1e-15; F is the farad. SPICE model cards give
+    # saturation currents in femtoamperes ("IS=6.7f")
+    assert parse_value("7f") == pytest.approx(7e-15, rel=1e-12)
+    assert parse_value("4f7") == pytest.approx(4.7e-15, rel=1e-12)
+    assert parse_value("1 fF", unit="F") == pytest.approx(1e-15, rel=1e-12)
+    assert parse_value("10F", unit="F") == pytest.approx(10.0, rel=1e-12)
+
+
 def test_milli_and_mega_differ():
     # BIPM SI brochure: m (milli) = 1e-3, M (mega) = 1e6
     assert parse_value("1m") == pytest.approx(1e-3, rel=1e-12)

@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import json
 import sys
+import textwrap
 
 import numpy as np
 
@@ -129,10 +130,9 @@ def format_text(result, case_path: str, rules) -> str:
         k, why = result.failed[0]
         out.append(f"{len(result.failed)} of {result.K} draws did not converge and are left "
                    f"out of the bands (first: draw {k}: {why})")
-    if result.signal_text():
-        out.append(result.signal_text())
-    if result.unused_model_text():
-        out.append(result.unused_model_text())
+    for text in (result.signal_text(), result.unused_model_text()):
+        if text:
+            out.append(textwrap.fill(text, width=92))
     if result.cautions:
         cautions = rules["cautions"] or {}
         titles = [str((cautions.get(c) or {}).get("title", c)) for c in result.cautions]

@@ -5,8 +5,9 @@
 
 Accepted value text (spaces around the number allowed):
   - a plain number: "12", "-1.5", "0.312", "1e-3";
-  - a number with one SI prefix: p n u µ μ m k M G (also K for kilo and "meg" for mega,
-    as in resistor markings and SPICE); 'm' is milli, 'M' is mega;
+  - a number with one SI prefix: f p n u µ μ m k M G (also K for kilo and "meg" for mega,
+    as in resistor markings and SPICE; f, femto, as in the saturation currents of SPICE
+    model cards, "7f"); 'm' is milli, 'M' is mega, 'F' is the farad;
   - the IEC 60062 letter-and-digit code, the letter standing for the decimal point:
     "4k7" (4.7 k), "2R2" (2.2 Ω, R = unit point), "R47" (0.47), "1M5", "4n7", "0R1";
     also the zener marking "5V6" (5.6 V);
@@ -26,7 +27,7 @@ from numbers import Real
 
 # SI prefix -> power of ten. 'K' (kilo) and 'meg' (mega) as used on parts and in SPICE.
 PREFIXES: dict[str, int] = {
-    "p": -12, "n": -9, "u": -6, "\u00b5": -6, "\u03bc": -6, "m": -3,
+    "f": -15, "p": -12, "n": -9, "u": -6, "\u00b5": -6, "\u03bc": -6, "m": -3,
     "k": 3, "K": 3, "M": 6, "meg": 6, "Meg": 6, "MEG": 6, "G": 9,
 }
 
@@ -46,7 +47,7 @@ SYMBOLS: dict[str, str] = {"ohm": "\u03a9", "V": "V", "A": "A", "F": "F", "H": "
 _NUMBER = re.compile(r"([+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?)\s*(.*)")
 # IEC 60062 code: digits, a letter in place of the decimal point, digits (either side may
 # be empty, not both), then an optional unit.
-_CODE = re.compile(r"([+-]?)([0-9]*)(R|r|V|meg|Meg|MEG|[pnu\u00b5\u03bcmkKMG])([0-9]*)\s*(.*)")
+_CODE = re.compile(r"([+-]?)([0-9]*)(R|r|V|meg|Meg|MEG|[fpnu\u00b5\u03bcmkKMG])([0-9]*)\s*(.*)")
 # Letters that stand for the decimal point and name the unit: R (IEC 60062, ohms) and V
 # (zener voltage marking, 5V6 = 5.6 V; common practice).
 _UNIT_POINT = {"R": "ohm", "r": "ohm", "V": "V"}
