@@ -26,6 +26,7 @@ from typing import Any
 import yaml
 
 from diag.core.errors import CaseErrors, DiagError
+from diag.core.modelcard import is_model_line, parse_model_line
 from diag.core.parts import CARD_HINT, card_names
 from diag.core.parts.bjt import early_problem
 from diag.core.paths import cases_dir, user_cases_dir
@@ -455,6 +456,8 @@ class _Loader:
             known = {}
         if isinstance(raw, dict):
             return self.inline_model(kind, raw, line, ref)
+        if is_model_line(raw):
+            return self.model_line(kind, raw, line, ref)
         if not isinstance(raw, str) or raw not in known:
             fits = [n for n, m in known.items() if isinstance(m, dict) and m.get("kind") == kind]
             self.err(f"unknown model {raw!r}", line, ref,
@@ -486,6 +489,23 @@ class _Loader:
                          hint="fix the rules file")
                 return None
         return MappingProxyType(out)
+
+    def model_line(self, kind: str, raw: str, line: int, ref: str) -> Mapping | None:
+        """A `.model` line pasted from a simulator library (diag.core.modelcard), checked
+        as an inline card; the card keeps its own name."""
+        try:
+            name, dev, params = parse_model_line(raw)
+        except ValueError as exc:
+            self.err(str(exc), line, ref, hint="paste the card's .model line as it is, "
+                     "e.g. model: \".model QX NPN(IS=7f BF=300 VAF=75)\"")
+            return None
+        want = {"npn": "NPN", "pnp": "PNP"}.get(kind, "D")
+        if dev != want:
+            self.err(f".model {name} is a {dev} card, and {ref} is {_a(kind)}", line, ref,
+                     hint=f"use a {want} card for {_a(kind)}")
+            return None
+        card = self.inline_model(kind, params, line, ref)
+        return None if card is None else MappingProxyType({**card, "name": name})
 
     def inline_model(self, kind: str, raw: dict, line: int, ref: str) -> Mapping | None:
         names = card_names(kind)
