@@ -105,6 +105,11 @@ def test_models_check_names_a_bad_parameter():
 
     with pytest.raises(DiagError, match="unknown model parameter 'BETA'"):
         check_models({"x": {"kind": "npn", "params": {"BETA": 100}}}, "models.yaml")
+    # SPICE's base charge q1 = 1 / (1 - vbc/VAF - vbe/VAR) turns negative with a junction
+    # forward below about 1 V
+    with pytest.raises(DiagError, match="VAR 0.5 V is below a forward junction's voltage"):
+        check_models({"x": {"kind": "npn", "params": {"VAR": 0.5}}}, "models.yaml")
+    check_models({"x": {"kind": "npn", "params": {"VAR": 0, "CJE": 4.5e-12}}}, "models.yaml")
 
 
 def _hfe_at(model: str, ic_target: float, vce: float = 5.0) -> float:

@@ -533,7 +533,7 @@ class _Loader:
             x = self.value(v, None, kl, ref, f"model {key}", 0.0, key not in _POSITIVE_PARAMS)
             why = early_problem(key, x) if x is not None else None
             if why:
-                self.err(f"model {why.split(':')[0]}", kl, ref, hint=why.split(": ", 1)[1])
+                self.err(f"model {why[0]}", kl, ref, hint=why[1])
                 x = None
             ok = ok and x is not None
             out[key] = x

@@ -8,6 +8,7 @@ this registry and (if it has a model) one entry in rules/models.yaml.
 from __future__ import annotations
 
 from diag.core.errors import DiagError
+from diag.core.parts import bjt, diode
 from diag.core.parts.base import GMIN, T_KELVIN, VT, Context, PartKind, Spread
 from diag.core.parts.bjt import BJT
 from diag.core.parts.diode import Diode
@@ -42,8 +43,6 @@ def card_names(kind: str, used_only: bool = False) -> tuple[str, ...]:
     """SPICE model-card names a semiconductor kind accepts: the ones its model uses, then
     (unless `used_only`) the ones it carries without using (CARD_ONLY of parts/bjt.py and
     parts/diode.py)."""
-    from diag.core.parts import bjt, diode
-
     used, extra = ((bjt.MODEL_NAMES, bjt.CARD_ONLY) if kind in ("npn", "pnp")
                    else (tuple(diode.SPICE_DEFAULTS), diode.CARD_ONLY))
     return used if used_only else used + extra
@@ -52,8 +51,6 @@ def card_names(kind: str, used_only: bool = False) -> tuple[str, ...]:
 def unused_card_names(part) -> tuple[str, ...]:
     """The names in a semiconductor part's model card that diag accepts and does not use
     (a card's XTB is used: ensemble.apply_ambient)."""
-    from diag.core.parts import bjt, diode
-
     if part.model is None or part.kind not in MODEL_KINDS:
         return ()
     only = bjt.CARD_ONLY if part.kind in ("npn", "pnp") else diode.CARD_ONLY
@@ -62,7 +59,6 @@ def unused_card_names(part) -> tuple[str, ...]:
 
 def check_models(models: dict, file: str | None = None) -> None:
     """Validate the models rules section: kind, params names and numbers."""
-    from diag.core.parts import bjt
 
     for name, entry in (models or {}).items():
         line = getattr(models, "line_of", lambda k: None)(name)
@@ -80,7 +76,7 @@ def check_models(models: dict, file: str | None = None) -> None:
                                 file=file, line=line, where=str(name))
             why = bjt.early_problem(key, float(val))
             if why:
-                raise DiagError(why, file=file, line=line, where=str(name))
+                raise DiagError(why[0], file=file, line=line, where=str(name), hint=why[1])
 
 
 __all__ = ["REGISTRY", "kind_of", "card_names", "CARD_HINT", "unused_card_names",

@@ -80,11 +80,11 @@ INFINITE_WHEN_ZERO = ("vaf", "var", "ikf", "ikr", "irb", "bvebo", "bvcbo")
 EARLY_MIN_VOLTS = 1.0
 
 
-def early_problem(key: str, value: float) -> str | None:
-    """Why a card's VAF or VAR of `value` volts cannot be used, or None."""
+def early_problem(key: str, value: float) -> tuple[str, str] | None:
+    """(what is wrong, what to do) with a card's VAF or VAR of `value` volts, or None."""
     if key in ("VAF", "VAR") and 0.0 < value < EARLY_MIN_VOLTS:
-        return (f"{key} {value:g} V is below a forward junction's voltage: SPICE's "
-                f"q1 = 1 / (1 - vbc/VAF - vbe/VAR) would turn negative; give "
+        return (f"{key} {value:g} V is below a forward junction's voltage",
+                f"SPICE's q1 = 1 / (1 - vbc/VAF - vbe/VAR) would turn negative; give "
                 f"{EARLY_MIN_VOLTS:g} V or more (cards give 5 to 200 V), or 0 for none")
     return None
 
