@@ -200,6 +200,31 @@ def test_draws_stay_inside_tolerance_and_hfe_range():
     assert all(np.array_equal(d[k], again[k]) for k in d)
 
 
+def test_a_card_of_the_case_own_borrows_the_generic_spread():
+    """An inline card is one part's figures; the part fitted is as uncertain as any of
+    its kind (transistor gain spreads about three to one: common practice, no source):
+    BF is drawn over the generic model's hi/lo ratio around the card's BF, IS with the
+    generic sigma, a diode's IS likewise; a part's own hfe still wins."""
+    gen = MODELS["npn-small"]["spread"]
+    lo, hi = (float(x) for x in gen["hfe"])
+    c = compiled(part("V1", "supply", ["vcc", "gnd"], 12.0),
+                 part("R1", "resistor", ["vcc", "b"], 100e3),
+                 part("Q1", "npn", ["vcc", "b", "e"], model={"IS": 2e-14, "BF": 80.0}),
+                 part("Q2", "npn", ["vcc", "b", "e"], model={"IS": 2e-14, "BF": 80.0},
+                      hfe=[60, 90]),
+                 part("R2", "resistor", ["e", "gnd"], 1e3),
+                 part("R3", "resistor", ["vcc", "a"], 1e3),
+                 part("D1", "diode", ["a", "gnd"], model={"IS": 1e-9, "N": 1.8}))
+    d = ensemble.draw_healthy(c, 4000, np.random.default_rng(3))
+    mid = math.sqrt(lo * hi)
+    assert d["Q1.bf"].min() >= 80 * lo / mid - 1e-9 and d["Q1.bf"].max() <= 80 * hi / mid
+    assert d["Q1.bf"].max() / d["Q1.bf"].min() > 0.9 * hi / lo        # the whole range
+    assert_allclose(np.std(np.log(d["Q1.is"] / 2e-14)), gen["is_sigma"], rtol=0.1)
+    assert d["Q2.bf"].min() >= 60 and d["Q2.bf"].max() <= 90
+    assert_allclose(np.std(np.log(d["D1.is"] / 1e-9)),
+                    MODELS["si-diode"]["spread"]["is_sigma"], rtol=0.1)
+
+
 def test_zener_bv_from_part_and_spread_per_model():
     c = compiled(part("V1", "supply", ["a", "gnd"], 15.0),
                  part("R1", "resistor", ["a", "k"], 1e3),

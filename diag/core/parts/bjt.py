@@ -118,7 +118,15 @@ class BJT(PartKind):
 
     def spreads(self, part, nominal, ctx):
         name = part.model.get("name") if part.model else DEFAULT_MODEL[part.kind]
-        s = model_spread(ctx, name)
+        s, borrowed = model_spread(ctx, name, part.kind)
+        if borrowed:
+            # a card of the case's own: the generic gain spread (its hi/lo ratio) around
+            # the card's BF; its BVEBO as given
+            if s.get("hfe"):
+                lo, hi = (float(x) for x in s["hfe"])
+                mid = math.sqrt(lo * hi)
+                s["hfe"] = (nominal["bf"] * lo / mid, nominal["bf"] * hi / mid)
+            s.pop("bvebo", None)
         hfe = part.fields.get("hfe") or s.get("hfe")
         out = []
         if hfe:

@@ -33,11 +33,20 @@ def model_of(part, ctx, default_name: str) -> tuple[str, dict]:
     return str(m.get("name", "inline")), {k: v for k, v in m.items() if k != "name"}
 
 
-def model_spread(ctx, name: str) -> dict:
+def model_spread(ctx, name: str, kind: str | None = None) -> tuple[dict, bool]:
+    """(the healthy part-to-part spread of model `name` from rules/models.yaml, True when
+    it is borrowed). A card of the case's own (inline, or a pasted `.model` line) is one
+    part's figures, so given `kind` it borrows the spread of that kind's generic model
+    (DEFAULT_MODEL here and in parts/bjt.py): the fitted part is as uncertain as any."""
     if ctx is None:
-        return {}
-    entry = ctx.models.get(name) or {}
-    return dict(entry.get("spread") or {})
+        return {}, False
+    entry = ctx.models.get(name)
+    if entry is None and kind is not None:
+        from diag.core.parts.bjt import DEFAULT_MODEL as BJT_DEFAULT
+
+        entry = ctx.models.get({**DEFAULT_MODEL, **BJT_DEFAULT}.get(kind, ""))
+        return dict((entry or {}).get("spread") or {}), True
+    return dict((entry or {}).get("spread") or {}), False
 
 
 def breakdown_knee(bv, ibv, is_, nvt):
@@ -77,7 +86,7 @@ class Diode(PartKind):
 
     def spreads(self, part, nominal, ctx):
         name = part.model.get("name") if part.model else DEFAULT_MODEL[part.kind]
-        s = model_spread(ctx, name)
+        s, _ = model_spread(ctx, name, part.kind)
         out = []
         if s.get("is_sigma"):
             out.append(Spread((f"{part.ref}.is",), "lognormal", float(s["is_sigma"])))
