@@ -125,3 +125,25 @@ def test_loader_raises_diag_errors_only(rules, text):
 def test_unmutated_example_loads(rules):
     # the fuzz base itself is valid, so mutations start from a loading case
     assert load_case(SPEC_EXAMPLE, rules).nodes
+
+
+MODEL_PIECES = [".model", ".MODEL", " ", "\n+ ", "Q1", "NPN", "PNP", "D", "JFET", "(", ")",
+                "IS", "BF", "=", "1", "7f", "66.78m", "1MEG", "abc", ",", "mfg=X", "Vceo=40",
+                "e", "-", ".5", "\t", "==", "1e999"]
+
+
+@settings(max_examples=400, deadline=None)
+@given(st.one_of(st.text(max_size=40), st.lists(st.sampled_from(MODEL_PIECES),
+                                                  max_size=12).map("".join)))
+def test_model_lines_raise_value_error_only(text):
+    """A pasted `.model` line either reads to finite numbers or is a ValueError that
+    says what to fix; nothing else escapes."""
+    from diag.core.modelcard import parse_model_line
+
+    try:
+        name, kind, params = parse_model_line(text)
+    except ValueError as exc:
+        assert str(exc)
+        return
+    assert kind in ("NPN", "PNP", "D") and name
+    assert all(isinstance(v, float) and math.isfinite(v) for v in params.values())

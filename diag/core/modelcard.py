@@ -11,6 +11,7 @@ ignored ("10pF"), as in SPICE. Errors are ValueError with what to fix.
 
 from __future__ import annotations
 
+import math
 import re
 
 SCALE = {"T": 1e12, "G": 1e9, "MEG": 1e6, "K": 1e3, "MIL": 25.4e-6, "M": 1e-3, "U": 1e-6,
@@ -30,6 +31,8 @@ def spice_value(text: str) -> float:
     if not m:
         raise ValueError(f"{text!r} is not a SPICE number (e.g. 6.734f, 75, 1e-14)")
     x, tail = float(m.group(1)), m.group(2).upper()
+    if not math.isfinite(x):
+        raise ValueError(f"{text!r} is too large a number")
     for suffix in ("MEG", "MIL", "T", "G", "K", "M", "U", "N", "P", "F"):
         if tail.startswith(suffix):
             return x * SCALE[suffix]
