@@ -50,6 +50,13 @@ def _drill(engine, hints=False, results=None, n=1):
     return Drill(ex, lambda p: engine, trainee="ana", hints=hints, results=results)
 
 
+def _class_drill(engine, tmp_path):
+    """(results file, drill writing to it, the app on it) for one exercise."""
+    results = tmp_path / "class.csv"
+    drill = _drill(engine, results=str(results))
+    return results, drill, DiagApp(drill=drill)
+
+
 def _once(seen, kind) -> list:
     """Messages of a type, each once (a message bubbling from the screen to the app
     reaches the hook at both)."""
@@ -91,10 +98,8 @@ async def _name(pilot, text: str) -> None:
 
 @sync
 async def test_scripted_drill_reading_naming_scoring(engine, tmp_path):
-    results = tmp_path / "class.csv"
-    drill = _drill(engine, results=str(results))
+    results, drill, app = _class_drill(engine, tmp_path)
     seen = []
-    app = DiagApp(drill=drill)
     async with app.run_test(size=(120, 40), message_hook=seen.append) as pilot:
         await settle(pilot)
         screen = app.screen
@@ -311,10 +316,8 @@ async def test_name_dialog_says_when_nothing_matches(engine):
 
 @sync
 async def test_wrong_naming_costs_points_then_the_right_one_scores(engine, tmp_path):
-    results = tmp_path / "class.csv"
-    drill = _drill(engine, results=str(results))
+    results, drill, app = _class_drill(engine, tmp_path)
     seen = []
-    app = DiagApp(drill=drill)
     async with app.run_test(size=(120, 36), message_hook=seen.append) as pilot:
         await settle(pilot)
         screen = app.screen
@@ -364,9 +367,7 @@ async def _one_reading_then(pilot, key: str) -> tuple[DrillScreen, str]:
 
 @sync
 async def test_leaving_mid_exercise_asks_and_records_it(engine, tmp_path):
-    results = tmp_path / "class.csv"
-    drill = _drill(engine, results=str(results))
-    app = DiagApp(drill=drill)
+    results, drill, app = _class_drill(engine, tmp_path)
     async with app.run_test(size=(120, 36)) as pilot:
         screen, question = await _one_reading_then(pilot, "escape")
         assert "recorded as abandoned" in question and "1 reading(s)" in question

@@ -885,7 +885,7 @@ def thevenin(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult
     return out
 
 
-# ----------------------------------------------------------------------------- regions
+# ----------------------------------------------------------------------------- batches
 
 def take(params: Mapping[str, object], idx: np.ndarray, B: int) -> dict[str, object]:
     """params restricted to variants idx of a batch of B (scalars and 1-element arrays,
@@ -903,6 +903,8 @@ def take_dc(dc: DCResult, idx: np.ndarray) -> DCResult:
                     why=[dc.why[i] for i in idx], iterations=np.asarray(dc.iterations)[idx],
                     x=dc.x[idx])
 
+
+# ----------------------------------------------------------------------------- regions
 
 def node_v(circuit: Circuit, v: np.ndarray, node: str) -> np.ndarray:
     """Column (B,) of node voltages `v` (B, n_nodes), DCResult.v or ACResult.v, for a
