@@ -311,3 +311,53 @@ def test_a_card_xtb_sets_its_own_part_beta_temperature_law():
     out = apply_ambient(circuit, {}, 3, np.random.default_rng(0), amb)
     np.testing.assert_allclose(out["Q1.bf"], 200.0)
     np.testing.assert_allclose(out["Q2.bf"], 200.0 * (323.15 / 300.15) ** 1.5)
+
+
+@pytest.mark.ngspice
+def test_a_stage_clipped_by_the_case_level_is_named_with_a_level_that_is_not(ngspice,
+                                                                            capsys):
+    # No AC feedback and a gain of thousands: S1's 10 mV rms would swing the output to
+    # about 24 V rms small-signal on a 12 V supply. ngspice's transient (the reference
+    # simulator) is the judge: its readings at a tenth of the offered level, times ten,
+    # are the small-signal figures; at the case's level the output reads far below them,
+    # at the level `diag check` offers every point is within DISTORTION_LIMIT of them,
+    # and one step of the sweep above it, not.
+    from diag.core import netlist, spice
+    from diag.core.bands import DISTORTION_LIMIT, SWEEP_STEPS
+
+    path = Path(__file__).parent / "data" / "dc-feedback-pair.yaml"
+    case = load_case(str(path))
+    res = healthy_bands(case, K=0)
+    assert {"TP6", "TP7"} <= set(res.clipped)
+    quiet = res.quiet
+    assert quiet is not None and quiet < 0.01
+    out = " ".join(_run(capsys, path)[1].split())
+    assert "the stages too far for small-signal readings at" in out
+    from diag.core.values import format_value
+
+    assert f"`vrms`) to {format_value(quiet, 'V')} or less" in out
+
+    circ = netlist.compile_case(case)
+    text = spice.netlist(circ)
+    pts = list(res.swing)
+    names = [spice.node_name(case, case.point(p).node) for p in pts]
+    src, hz = spice.source_name(case.signal.ref), float(circ.hz)
+
+    def tran(level: float) -> np.ndarray:
+        got = ngspice.tran_ac_rms(text, src, level * 2 ** 0.5, hz, names)
+        for n in names:
+            assert got[n][0] == pytest.approx(got[n][1], rel=0.01), (n, "not settled")
+        return np.array([got[n][0] for n in names])
+
+    step = 1e3 ** (1 / (SWEEP_STEPS - 1))
+    linear = tran(quiet / 10) / (quiet / 10)             # small-signal volts per volt
+    at_case = tran(0.01) / (linear * 0.01)
+    at_quiet = tran(quiet) / (linear * quiet)
+    above = tran(quiet * step) / (linear * quiet * step)
+    k6 = pts.index("TP6")
+    assert at_case[k6] < 1 - DISTORTION_LIMIT
+    # diag's own large-signal estimate at the case's level (small-signal x r)
+    v, r = res.swing["TP6"]
+    assert v * r == pytest.approx(at_case[k6] * linear[k6] * 0.01, rel=0.15)
+    assert np.all(np.abs(at_quiet - 1) <= DISTORTION_LIMIT), at_quiet
+    assert np.any(np.abs(above - 1) > DISTORTION_LIMIT), above

@@ -132,7 +132,7 @@ def format_text(result, case_path: str, rules) -> str:
                    f"out of the bands (first: draw {k}: {why})")
     for text in (result.signal_text(), result.unused_model_text()):
         if text:
-            out.append(textwrap.fill(text, width=92))
+            out.append(textwrap.fill(text, width=92, break_on_hyphens=False))
     if result.cautions:
         cautions = rules["cautions"] or {}
         titles = [str((cautions.get(c) or {}).get("title", c)) for c in result.cautions]

@@ -29,6 +29,12 @@ BAND_PERCENTILES = (1.0, 99.0)
 # distortion by 1 + loop gain, handbook). Past this fraction `diag check` warns that the
 # case's signal level is too high.
 DISTORTION_LIMIT = 0.10
+# The same limit on the AC readings themselves: where the quasi-static large-signal pass
+# (largesignal.ratios) puts a point's reading more than DISTORTION_LIMIT off its
+# small-signal figure (a stage clips, or the tone swings a saturated one), `diag check`
+# warns too, with the largest level of a log-spaced sweep (SWEEP_STEPS levels down to a
+# thousandth of the case's, about 1.33 apart) at which every point is within the limit.
+SWEEP_STEPS = 25
 MAINS_VOLTS = 30.0   # a supply above this gets the mains/high-voltage cautions (common
                      # practice, no source: the usual extra-low-voltage working limit)
 
@@ -68,33 +74,60 @@ class CheckResult:
     nominal_why: str | None = None
     extra: dict = field(default_factory=dict)
     drive: dict[str, tuple[float, float]] = field(default_factory=dict)
+    swing: dict[str, tuple[float, float]] = field(default_factory=dict)
+    quiet: float | None = None
 
     @property
     def overdriven(self) -> dict[str, tuple[float, float]]:
         """The transistors of `drive` past DISTORTION_LIMIT."""
         return {r: d for r, d in self.drive.items() if d[1] > DISTORTION_LIMIT}
 
+    @property
+    def clipped(self) -> dict[str, tuple[float, float]]:
+        """The AC points of `swing` whose large-signal reading is more than
+        DISTORTION_LIMIT off the small-signal one (a stage clips or is swung out of
+        saturation by the tone)."""
+        return {p: s for p, s in self.swing.items() if abs(s[1] - 1.0) > DISTORTION_LIMIT}
+
     def signal_text(self) -> str:
         """The warning that the case's signal level is too big for small-signal
-        predictions, with the level to lower the generator to; "" when it is not."""
+        predictions, with the level to lower the generator to; "" when it is not.
+
+        Two causes: a junction driven past DISTORTION_LIMIT second harmonic, and an AC
+        point whose reading the quasi-static large-signal pass puts more than
+        DISTORTION_LIMIT off its small-signal figure (`swing`). The level offered meets
+        both: the junction's harmonic grows with the level, so it is scaled to the
+        limit; for the points, the largest level of the pass's sweep (`quiet`)."""
         from diag.core.values import format_value
 
-        hot = self.overdriven
+        hot, clip = self.overdriven, self.clipped
         sig = self.case.signal
-        if not hot or sig is None:
+        if not (hot or clip) or sig is None:
             return ""
-        worst = max(v for v, _ in hot.values())
-        # the second harmonic grows with the level: scale it to the limit
-        most = float(sig.value or 0.0) * DISTORTION_LIMIT / max(h for _, h in hot.values())
+        level = float(sig.value or 0.0)
+        most, why = level, []
+        if hot:
+            most = min(most, level * DISTORTION_LIMIT / max(h for _, h in hot.values()))
+            why.append(f"under {DISTORTION_LIMIT:.0%} second harmonic at every junction")
+        if clip:
+            most = min(most, self.quiet if self.quiet is not None else 0.0)
+            why.append(f"every AC reading within {DISTORTION_LIMIT:.0%} of its small-signal "
+                       "figure")
+        parts = [f"{ref}'s base-emitter junction with {format_value(v, 'V')} rms (second "
+                 f"harmonic about {h:.0%} in its stage)" for ref, (v, h) in hot.items()]
+        if clip:
+            parts.append("the stages too far for small-signal readings at "
+                         + ", ".join(f"{pt} ({format_value(v, 'V')} rms small-signal, about "
+                                     f"{format_value(v * r, 'V')} rms with the tone's own "
+                                     "size)" for pt, (v, r) in clip.items()))
+        lower = (f"lower the generator level in the case ({sig.ref} `vrms`) to "
+                 f"{format_value(most, 'V')} or less (" + " and ".join(why) + ")"
+                 if most > 0 else f"no level down to a thousandth of {sig.ref}'s keeps "
+                 "them small-signal (a stage that is off or saturated at rest)")
         return (f"Signal level: {sig.ref}'s {format_value(sig.value, 'V')} rms drives "
-                + ", ".join(f"{ref}'s base-emitter junction with {format_value(v, 'V')} "
-                            f"rms (second harmonic about {h:.0%} in its stage)"
-                            for ref, (v, h) in hot.items())
+                + "; ".join(parts)
                 + ". The AC bands and diag's AC predictions assume a small signal, so a "
-                f"real unit will read off them; lower the generator level in the case "
-                f"({sig.ref} `vrms`) to {format_value(most, 'V')} or less (under "
-                f"{DISTORTION_LIMIT:.0%} second harmonic at every junction; the worst now "
-                f"carries {format_value(worst, 'V')}).")
+                f"real unit will read off them; {lower}.")
 
     @property
     def unused_model(self) -> dict[str, tuple[str, ...]]:
@@ -132,6 +165,9 @@ class CheckResult:
             "seed": self.seed,
             "junction_signal": {r: {"vrms": v, "second_harmonic": h}
                                 for r, (v, h) in self.drive.items()},
+            "ac_swing": {p: {"vrms": v, "large_signal_ratio": r}
+                         for p, (v, r) in self.swing.items()},
+            "quiet_level": self.quiet,
             "unused_model_params": {r: list(n) for r, n in self.unused_model.items()},
         }
 
@@ -195,7 +231,40 @@ def healthy_bands(case: Case, rules: Any = None, K: int = 400, seed: int = 0) ->
     return CheckResult(case=case, nodes=nodes, points=points, regions=regions,
                        failed=tuple(failed), cautions=case_cautions(case), K=K, seed=seed,
                        nominal_ok=bool(dc0.ok[0]), nominal_why=dc0.why[0],
-                       drive=junction_drive(circuit, dc0, ac0, regions) if has_ac else {})
+                       drive=junction_drive(circuit, dc0, ac0, regions) if has_ac else {},
+                       **(level_sweep(circuit, dc0, ac0) if has_ac else {}))
+
+
+def level_sweep(circuit, dc, ac, steps: int = SWEEP_STEPS) -> dict[str, Any]:
+    """The nominal unit's AC points (away from the signal's own node) under the case's
+    tone: {"swing": point -> (small-signal reading, volts rms, meter loading included;
+    the ratio r of its large-signal to its small-signal figure, largesignal.ratios),
+    "quiet": the largest level (volts rms) of a sweep from the case's down to a
+    thousandth of it, `steps` levels log-spaced, at which every r (and at every lower
+    level) is within DISTORTION_LIMIT of 1; None when none is}. Empty when the case has
+    no such point or its nominal unit does not solve."""
+    from diag.core import largesignal, meter, solver
+
+    case = circuit.case
+    sig = case.signal
+    src = sig.nodes[0] if sig is not None else None
+    obs = [o for o in case.observables if o.kind == "ac" and case.point(o.point).node != src]
+    if not obs or not bool(dc.ok[0]):
+        return {}
+    small = meter.observe(circuit, {}, dc, ac, obs, case.meter, large_signal=False)[0]
+    levels = float(circuit.nominal[f"{sig.ref}.vac"]) * np.geomspace(1.0, 1e-3, steps)
+    params = {f"{sig.ref}.vac": levels}
+    dcs = solver.solve_dc(circuit, params)  # the one operating point, once per level
+    pairs = [(case.point(o.point).node, case.point(o.point).minus or case.ground)
+             for o in obs]
+    r = largesignal.ratios(circuit, params, dcs, np.arange(steps), pairs)
+    ok = np.all(np.abs(r - 1.0) <= DISTORTION_LIMIT, axis=1)
+    # the largest level below which every level passes (a NaN ratio does not pass)
+    bad = np.flatnonzero(~ok)
+    first = int(bad.max()) + 1 if bad.size else 0
+    quiet = float(levels[first]) if first < steps else None
+    return {"swing": {o.point: (float(small[m]), float(r[0, m])) for m, o in enumerate(obs)},
+            "quiet": quiet}
 
 
 def junction_drive(circuit, dc, ac, regions: dict[str, str]
