@@ -361,3 +361,16 @@ def test_a_stage_clipped_by_the_case_level_is_named_with_a_level_that_is_not(ngs
     assert v * r == pytest.approx(at_case[k6] * linear[k6] * 0.01, rel=0.15)
     assert np.all(np.abs(at_quiet - 1) <= DISTORTION_LIMIT), at_quiet
     assert np.any(np.abs(above - 1) > DISTORTION_LIMIT), above
+
+
+def test_the_warning_offers_no_level_when_the_sweep_found_none():
+    # the sweep's level is None when the large-signal pass did not solve at some level:
+    # the text then says so and offers none, rather than "0 V"
+    import dataclasses
+
+    path = Path(__file__).parent / "data" / "dc-feedback-pair.yaml"
+    res = healthy_bands(load_case(str(path)), K=0)
+    assert res.quiet is not None and "or less" in res.signal_text()
+    text = dataclasses.replace(res, quiet=None).signal_text()
+    assert "did not solve" in text and "or less" not in text and "0 V" not in text
+    assert "TP6" in text

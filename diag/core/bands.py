@@ -122,8 +122,9 @@ class CheckResult:
                                      "size)" for pt, (v, r) in clip.items()))
         lower = (f"lower the generator level in the case ({sig.ref} `vrms`) to "
                  f"{format_value(most, 'V')} or less (" + " and ".join(why) + ")"
-                 if most > 0 else f"no level down to a thousandth of {sig.ref}'s keeps "
-                 "them small-signal (a stage that is off or saturated at rest)")
+                 if most > 0 else "lower the generator level in the case until the AC "
+                 "readings scale with it (diag's large-signal pass did not solve at every "
+                 f"level down to a thousandth of {sig.ref}'s, so it offers no level)")
         return (f"Signal level: {sig.ref}'s {format_value(sig.value, 'V')} rms drives "
                 + "; ".join(parts)
                 + ". The AC bands and diag's AC predictions assume a small signal, so a "
