@@ -150,7 +150,7 @@ class CheckResult:
 
     def to_json(self, case_path: str | None = None) -> dict[str, Any]:
         """SPEC section 6 object (plus the extra keys regions, failed, draws,
-        junction_signal, unused_model_params)."""
+        junction_signal, ac_swing, quiet_level, unused_model_params)."""
         def num(x: float) -> float | None:
             return float(x) if np.isfinite(x) else None
 
