@@ -65,8 +65,7 @@ def _tran_check(ngspice, case_file: str, fault: str, n: int, seed: int):
 
     rules = load_rules()
     case, circ, params, dc, ac = _drawn(case_file, fault, n, seed)
-    src = case.signal.nodes[0]
-    obs = [o for o in case.observables if o.kind == "ac" and case.point(o.point).node != src]
+    obs = [case.observables[m] for m in overdrive.swung(case, case.observables)]
     small = meter.observe(circ, params, dc, ac, obs, case.meter, large_signal=False)
 
     def at(u: float) -> np.ndarray:
@@ -147,8 +146,7 @@ def test_the_charge_balance_centres_the_large_signal_reading(ngspice, fault):
     from ngspice_util import tran_ac_rms
 
     case, circ, params, dc, ac = _drawn(UNBYPASSED, fault, 2, 1)
-    src = case.signal.nodes[0]
-    obs = [o for o in case.observables if o.kind == "ac" and case.point(o.point).node != src]
+    obs = [case.observables[m] for m in overdrive.swung(case, case.observables)]
     nodes = [case.point(o.point).node for o in obs]
     small = np.abs(np.stack([solver.node_v(circ, ac.v, n) for n in nodes], axis=1))
     r = largesignal.ratios(circ, params, dc, np.arange(2), [(n, case.ground) for n in nodes])

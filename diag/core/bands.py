@@ -244,21 +244,19 @@ def level_sweep(circuit, dc, ac, steps: int = SWEEP_STEPS) -> dict[str, Any]:
     thousandth of it, `steps` levels log-spaced, at which every r (and at every lower
     level) is within DISTORTION_LIMIT of 1; None when none is}. Empty when the case has
     no such point or its nominal unit does not solve."""
-    from diag.core import largesignal, meter, solver
+    from diag.core import largesignal, meter, overdrive, solver
 
     case = circuit.case
     sig = case.signal
-    src = sig.nodes[0] if sig is not None else None
-    obs = [o for o in case.observables if o.kind == "ac" and case.point(o.point).node != src]
+    obs = [case.observables[m] for m in overdrive.swung(case, case.observables)]
     if not obs or not bool(dc.ok[0]):
         return {}
     small = meter.observe(circuit, {}, dc, ac, obs, case.meter, large_signal=False)[0]
     levels = float(circuit.nominal[f"{sig.ref}.vac"]) * np.geomspace(1.0, 1e-3, steps)
     params = {f"{sig.ref}.vac": levels}
     dcs = solver.solve_dc(circuit, params)  # the one operating point, once per level
-    pairs = [(case.point(o.point).node, case.point(o.point).minus or case.ground)
-             for o in obs]
-    r = largesignal.ratios(circuit, params, dcs, np.arange(steps), pairs)
+    r = largesignal.ratios(circuit, params, dcs, np.arange(steps),
+                           overdrive.node_pairs(case, obs))
     ok = np.all(np.abs(r - 1.0) <= DISTORTION_LIMIT, axis=1)
     # the largest level below which every level passes (a NaN ratio does not pass)
     bad = np.flatnonzero(~ok)

@@ -118,6 +118,22 @@ def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
     return out
 
 
+def swung(case: Any, observables: Sequence[Any]) -> list[int]:
+    """Indices of the AC readings among `observables` that the tone's own size can
+    change: every AC point but those on the signal source's own node (the generator
+    sets what they read)."""
+    src = case.signal.nodes[0] if case.signal is not None else None
+    return [m for m, o in enumerate(observables)
+            if o.kind == "ac" and case.point(o.point).node != src]
+
+
+def node_pairs(case: Any, observables: Sequence[Any]) -> list[tuple[str, str]]:
+    """(node, reference node) each of `observables` is read between: its point's node
+    and its `minus`, or the case's ground."""
+    return [(pt.node, pt.minus or case.ground)
+            for pt in (case.point(o.point) for o in observables)]
+
+
 def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
                    observables: Sequence[Any], readings: np.ndarray) -> np.ndarray:
     """Meter readings at `observables` (Case.observables order) of the units in `params`
@@ -131,10 +147,7 @@ def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     FLOOR, log-uniformly (the unit's draw picks where), never above S/2. Where the pass
     did not solve, `limit`'s range."""
     case = circuit.case
-    sig = case.signal
-    src = sig.nodes[0] if sig is not None else None
-    cols = [m for m, o in enumerate(observables)
-            if o.kind == "ac" and case.point(o.point).node != src]
+    cols = swung(case, observables)
     if not cols or ac is None:
         return readings
     from diag.core import largesignal
@@ -153,10 +166,7 @@ def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     rows = np.flatnonzero(np.asarray(dc.ok, bool) & ((g > FLOOR) | (worst > ONSET)))
     if not rows.size:
         return out
-    pairs = []
-    for m in cols:
-        pt = case.point(observables[m].point)
-        pairs.append((pt.node, pt.minus or case.ground))
+    pairs = node_pairs(case, [observables[m] for m in cols])
     r = largesignal.ratios(circuit, params, dc, rows, pairs)
     ln_r = np.log(np.where(r > 0, r, np.nan))
     # the unit's own nonlinearity sets the spread at every one of its points
