@@ -9,7 +9,8 @@ cycle (where small-signal says almost no gain).
 
 `limit_observed` (called by meter.observe) checks each unit: its overdrive g, the
 largest AC reading over a sine across the rails, S/(2√2) (S = Case.supply_span), and
-each conducting junction's second harmonic (`junction_drive`). Where g passes FLOOR or a
+each conducting junction's second harmonic (`junction_drive`; `saturation_drive` for a
+saturated transistor's base-collector junction). Where g passes FLOOR or a
 junction passes ONSET, largesignal.py sweeps the tone through the DC solver and gives r,
 how much the tone's own size changes each reading. The reading then lies, log-uniformly
 (the unit's draw, "overdrive.<point>/ac", drawn last by ensemble.draw_unit, picks
@@ -118,6 +119,39 @@ def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
     return out
 
 
+def saturation_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
+                     ) -> np.ndarray:
+    """The largest second harmonic (B,), a fraction of the fundamental, that the tone
+    makes at the base-collector junction of a saturated transistor: saturated, that
+    junction conducts too, i = I0 exp(v / (NR VT)), and a sine of peak v across it makes
+    about v / (4 NR VT) (as in `junction_drive`, without its feedback divisor: this
+    only decides which units get the large-signal pass, which finds r near 1 where the
+    stage stays linear). 0 where no transistor is saturated. A stage
+    saturated by a fault passes its tone through that junction, and a few millivolts
+    across it swing the stage partly out of saturation every cycle (ngspice transient:
+    a cascode with its lower emitter shorted reads 1.5 times its small-signal output)."""
+    from diag.core import solver
+    from diag.core.parts.base import VT
+
+    B = ac.v.shape[0]
+    regions = solver.regions(circuit, params, dc)
+    worst = np.zeros(B)
+    for part in circuit.case.parts:
+        if part.kind not in ("npn", "pnp"):
+            continue
+        sat = np.asarray(regions[part.ref]) == "saturated"
+        if not sat.any():
+            continue
+        vbc = np.abs(solver.node_v(circuit, ac.v, part.terminal("b"))
+                     - solver.node_v(circuit, ac.v, part.terminal("c")))
+        nr = np.broadcast_to(np.asarray(params.get(f"{part.ref}.nr",
+                                                   circuit.nominal[f"{part.ref}.nr"]),
+                                        float), (B,))
+        worst = np.maximum(worst, np.where(sat, np.nan_to_num(
+            vbc * math.sqrt(2.0) / (4.0 * nr * VT)), 0.0))
+    return worst
+
+
 def swung(case: Any, observables: Sequence[Any]) -> list[int]:
     """Indices of the AC readings among `observables` that the tone's own size can
     change: every AC point but those on the signal source's own node (the generator
@@ -141,7 +175,8 @@ def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     out of the small-signal range where the tone takes the unit out of it.
 
     A unit is checked when its overdrive g passes FLOOR or a junction makes more than
-    ONSET second harmonic in its stage (junction_drive). For it, largesignal.ratios
+    ONSET second harmonic in its stage (junction_drive, and saturation_drive for the
+    base-collector junction of a saturated transistor). For it, largesignal.ratios
     gives r, how much the tone's own size changes each AC reading. The reading lies
     within a·r·exp(±SPREAD·max|ln r|), joined with `limit`'s rail range where g passes
     FLOOR, log-uniformly (the unit's draw picks where), never above S/2. Where the pass
@@ -163,7 +198,8 @@ def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     drive = junction_drive(circuit, params, dc, ac)
     worst = np.max(np.stack([h for _, h in drive.values()]), axis=0) if drive \
         else np.zeros(B)
-    rows = np.flatnonzero(np.asarray(dc.ok, bool) & ((g > FLOOR) | (worst > ONSET)))
+    sat = saturation_drive(circuit, params, dc, ac) > ONSET
+    rows = np.flatnonzero(np.asarray(dc.ok, bool) & ((g > FLOOR) | (worst > ONSET) | sat))
     if not rows.size:
         return out
     pairs = node_pairs(case, [observables[m] for m in cols])
@@ -181,7 +217,14 @@ def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
                     np.inf)
     hi_g = np.where(gr > FLOOR, 0.0, -np.inf)
     lo, hi = np.fmin(lo_q, lo_g), np.fmax(hi_q, hi_g)
-    got = np.minimum(a[rows] * np.exp(lo + (hi - lo) * draws[rows]), span / 2.0)
+    # a saturated stage: how far the tone swings it out of saturation rests on what the
+    # card leaves out or does not spread (reverse gain, collector resistance, high
+    # injection), so the reading lies anywhere from the small-signal figure to the pass's;
+    # one unknown of the part, so one draw places every point of the unit
+    sat_r = sat[rows][:, None]
+    lo, hi = np.where(sat_r, np.fmin(lo, 0.0), lo), np.where(sat_r, np.fmax(hi, 0.0), hi)
+    t = np.where(sat_r, draws[rows][:, :1], draws[rows])
+    got = np.minimum(a[rows] * np.exp(lo + (hi - lo) * t), span / 2.0)
     keep = np.isfinite(got)
     block = out[np.ix_(rows, cols)]
     out[np.ix_(rows, cols)] = np.where(keep, got, block)
