@@ -84,6 +84,11 @@ SPREAD = 0.2   # the large-signal reading's spread either way, per unit of the u
                # the saturated test stage, 0.18 on mic-preamp with R9 shorted)
 
 
+def _param(circuit: Any, params: Mapping[str, Any], name: str, B: int) -> np.ndarray:
+    """Parameter `name` per unit (B,): the drawn value, else the circuit's nominal."""
+    return np.broadcast_to(np.asarray(params.get(name, circuit.nominal[name]), float), (B,))
+
+
 def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
                    ) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """Transistor ref -> (signal across its base-emitter junction, volts rms, (B,); the
@@ -109,9 +114,7 @@ def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
             continue
         ve = np.abs(v(part.terminal("e")))
         vbe = np.abs(v(part.terminal("b")) - v(part.terminal("e")))
-        n = np.broadcast_to(np.asarray(params.get(f"{part.ref}.nf",
-                                                  circuit.nominal[f"{part.ref}.nf"]),
-                                       float), (B,))
+        n = _param(circuit, params, f"{part.ref}.nf", B)
         on = np.isin(np.asarray(regions[part.ref]), ("active", "saturated")) & (vbe > 0)
         with np.errstate(divide="ignore", invalid="ignore"):
             h = np.where(on, vbe * math.sqrt(2.0) / (4.0 * n * VT) / (1.0 + ve / vbe), 0.0)
@@ -144,9 +147,7 @@ def saturation_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
             continue
         vbc = np.abs(solver.node_v(circuit, ac.v, part.terminal("b"))
                      - solver.node_v(circuit, ac.v, part.terminal("c")))
-        nr = np.broadcast_to(np.asarray(params.get(f"{part.ref}.nr",
-                                                   circuit.nominal[f"{part.ref}.nr"]),
-                                        float), (B,))
+        nr = _param(circuit, params, f"{part.ref}.nr", B)
         worst = np.maximum(worst, np.where(sat, np.nan_to_num(
             vbc * math.sqrt(2.0) / (4.0 * nr * VT)), 0.0))
     return worst
