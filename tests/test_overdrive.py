@@ -256,3 +256,41 @@ def test_a_diode_clamp_shifts_the_tone_and_does_not_clip_it(ngspice, monkeypatch
     monkeypatch.setattr(largesignal, "BALANCE_STEPS", 0)
     held = largesignal.ratios(circ, {}, dc, np.array([0]), [("x", "gnd")])[0, 0]
     assert held < 0.75
+
+
+@pytest.mark.parametrize("case_file, fault", [
+    ("mic-preamp.yaml", "R4:short"),       # clipped second stage
+    ("sounder-driver.yaml", "R2:low"),     # a stage driven hard
+    (UNBYPASSED, "R3:high"),               # saturated, swung out of it
+    (UNBYPASSED, "R4:low"),                # saturated: its small run sits on a kink
+    (CASCODE, "R5:short"),                 # the saturated upper transistor
+])
+def test_the_four_phase_reference_run_matches_the_full_one(monkeypatch, case_file, fault):
+    """largesignal.ratios takes its reference run (at SMALL of the tone) at four phases
+    and runs it again at PHASES only where those four show it is not near enough
+    linear. Against the reference run at PHASES for every unit (ODD_TOL below zero
+    forces that): within 1e-3 in ln r (the bound the tolerances are derived for, in
+    largesignal.py), and the saturated stage's units whose run sits on a kink take the
+    full run (their four-phase figure alone was 14 % off)."""
+    case, circ, params, dc, ac = _drawn(case_file, fault, 12, 1)
+    obs = [case.observables[m] for m in overdrive.swung(case, case.observables)]
+    pairs = overdrive.node_pairs(case, obs)
+    rows = np.arange(12)
+    redone = []
+    inputs = largesignal._inputs
+
+    def counted(c, p, d, r, segments):
+        if len(segments) == 1:
+            redone.append(len(r))
+        return inputs(c, p, d, r, segments)
+
+    monkeypatch.setattr(largesignal, "_inputs", counted)
+    quick = largesignal.ratios(circ, params, dc, rows, pairs)
+    quick_redone = sum(redone)
+    monkeypatch.setattr(largesignal, "ODD_TOL", -1.0)
+    full = largesignal.ratios(circ, params, dc, rows, pairs)
+    assert np.all(np.isfinite(quick) == np.isfinite(full))
+    ok = np.isfinite(full)
+    assert np.max(np.abs(np.log(quick[ok] / full[ok]))) < 1e-3
+    if fault == "R4:low":
+        assert quick_redone > 0

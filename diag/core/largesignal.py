@@ -11,7 +11,9 @@ over the phases (exact for harmonics below PHASES/2). Inductors are shorts, as i
 The hold keeps a capacitor's admittance but not its phase, so on its own the pass reads a
 linear stage 10 to 20 % off. `ratios` therefore runs it twice, at the tone and at
 SMALL times it, and returns the ratio: 1 for a linear unit whatever the hold gets wrong,
-and how much the tone's own size changes the reading for one that is not.
+and how much the tone's own size changes the reading for one that is not. The run at
+SMALL is nearly always linear, so it takes four phases and its rms follows from them
+(CHECK_PHASES); the few units where it is not are run again at PHASES.
 
 Charge balance: in the steady state a capacitor carries no net charge over a period, so
 where the waveform is not symmetric (a stage clipping on one side, a junction that
@@ -43,6 +45,21 @@ PHASES = 16       # points per period of the tone: the ngspice-checked units' re
                   # (tests/test_overdrive.py) move by 1.1 % at most from 24 phases, the
                   # evaluation's figures not at all, and mic-preamp builds 0.06 s sooner
 SMALL = 0.01      # the reference run's tone, a fraction of the case's (small-signal)
+# The reference run first takes four phases: at ±π/2 a linear response is ±k, at π/6
+# and 7π/6 ±k/2, and half the difference at ±π/2 over √2 is its rms (4 solves per unit
+# rather than PHASES). Off it, within about 1e-3 of the rms over PHASES:
+# - a cubic term c sin³ moves the first difference d1 = 2(k + c) and the second
+#   d2 = k + c/4, and the rms to (k + 3c/4)/√2 (sin³ = (3 sin - sin 3φ)/4, handbook),
+#   so the estimate is off by about (d1 - 2 d2) / (3 d1): ODD_TOL bounds |d1 - 2 d2| / |d1|;
+# - an even term e sin² (or a response steeper on one side than the other by δ) puts
+#   the sum at ±π/2 off twice the operating point by 2e (δ k) and changes the rms by
+#   only (e/k)²/8 (a second harmonic adds in quadrature; δ²/7 for the kink): EVEN_TOL
+#   bounds that sum over |d1|.
+# A unit off either bound (its run sits on a kink, at the edge of saturation) is run
+# again at PHASES.
+CHECK_PHASES = (0.5 * math.pi, 1.5 * math.pi, math.pi / 6.0, 7.0 * math.pi / 6.0)
+ODD_TOL = 3e-3
+EVEN_TOL = 0.05
 # Charge balance (see above): a held voltage within a hundredth of the thermal voltage of
 # its balance moves a junction's current by under 1 %. Four steps, at about 0.1 s of
 # mic-preamp's cold build at 24 phases (bench/engine_bench.py): most units settle
@@ -56,29 +73,79 @@ def ratios(circuit: Any, params: Mapping[str, Any], dc: Any, rows: np.ndarray,
            pairs: Sequence[tuple[str, str]]) -> np.ndarray:
     """(len(rows), len(pairs)) ratio of the AC rms of V(a) - V(b) at the case's tone to
     that at SMALL of it (scaled up by 1/SMALL), for the units `rows` of `params`/`dc`
-    (B = dc.v's rows); NaN where a phase did not solve or the small reading is 0."""
+    (B = dc.v's rows); NaN where a phase did not solve or the small reading is 0.
+
+    The run at SMALL takes the four CHECK_PHASES first. Where it is near enough linear
+    (ODD_TOL, EVEN_TOL), its rms is half the difference at ±π/2 over √2; elsewhere (a
+    unit on the edge of saturation) it is run again at PHASES."""
     from diag.core import solver
 
-    case = circuit.case
-    sig = case.signal
     n, P = len(rows), PHASES
     out = np.full((n, len(pairs)), np.nan)
-    if sig is None or n == 0 or not pairs:
+    if circuit.case.signal is None or n == 0 or not pairs:
         return out
-    B = dc.v.shape[0]
-    R = 2 * n * P  # (level, unit, phase) variants, level-major
-
-    def per_variant(a: Any) -> Any:
-        a = np.asarray(a, dtype=float)
-        if a.ndim == 1 and a.shape[0] == B:
-            return np.tile(np.repeat(a[rows], P), 2)
-        return a
-
-    big: dict[str, Any] = {k: per_variant(v) for k, v in params.items()}
 
     def volts(v: np.ndarray, node: str) -> np.ndarray:
         return solver.node_v(circuit, v, node)
 
+    tone_ph = (np.arange(P) + 0.5) * 2.0 * math.pi / P
+    big, x0, caps, R = _inputs(circuit, params, dc, rows,
+                               [(tone_ph, 1.0), (np.asarray(CHECK_PHASES), SMALL)])
+    T = n * P                                   # the tone's variants come first
+    tone = np.full((n, len(pairs)), np.nan)
+    small = np.full((n, len(pairs)), np.nan)
+    linear = np.zeros((n, len(pairs)), dtype=bool)
+    with np.errstate(all="ignore"):
+        res = solver.solve_dc(circuit, big, x_start=x0)
+        v, ok = res.v, np.asarray(res.ok, bool)
+        if caps:
+            g = np.stack([np.asarray(big[f"{ref}.hold_g"])[:T].reshape(n, P)[:, 0]
+                          for ref, _, _ in caps], axis=1)
+            M = _newton_matrix(circuit, params, dc, rows, caps, g)
+            v, ok = _balanced(circuit, big, res, caps, n, R, M)
+        v0 = np.asarray(dc.v)[rows]
+        for m, (a, b) in enumerate(pairs):
+            w = np.where(ok, volts(v, a) - volts(v, b), np.nan)
+            tone[:, m] = np.std(w[:T].reshape(n, P), axis=1)
+            pk = w[T:].reshape(n, len(CHECK_PHASES))
+            d1, d2 = pk[:, 0] - pk[:, 1], pk[:, 2] - pk[:, 3]   # 2k and k when linear
+            even = pk[:, 0] + pk[:, 1] - 2.0 * (volts(v0, a) - volts(v0, b))
+            small[:, m] = np.abs(d1) / (2.0 * math.sqrt(2.0))
+            linear[:, m] = ((np.abs(d1 - 2.0 * d2) <= ODD_TOL * np.abs(d1))
+                            & (np.abs(even) <= EVEN_TOL * np.abs(d1)))
+        redo = np.flatnonzero(~linear.all(axis=1))
+        if redo.size:
+            big2, x2, _, _ = _inputs(circuit, params, dc, rows[redo], [(tone_ph, SMALL)])
+            res2 = solver.solve_dc(circuit, big2, x_start=x2)
+            ok2 = np.asarray(res2.ok, bool)
+            for m, (a, b) in enumerate(pairs):
+                w2 = np.where(ok2, volts(res2.v, a) - volts(res2.v, b), np.nan)
+                small[redo, m] = np.std(w2.reshape(len(redo), P), axis=1)
+        out = tone / (small / SMALL)
+    return np.where(np.isfinite(out), out, np.nan)
+
+
+def _inputs(circuit: Any, params: Mapping[str, Any], dc: Any, rows: np.ndarray,
+            segments: Sequence[tuple[np.ndarray, float]]) -> tuple[dict, np.ndarray, list, int]:
+    """The pass's variants: for each (phases (radians), level (of the tone)) of
+    `segments`, every unit of `rows` at each phase (segment-major, then unit, then
+    phase), with the capacitors held (module docstring). Returns (params, start points,
+    [(capacitor ref, node a, node b)], R variants)."""
+    from diag.core import solver
+
+    case = circuit.case
+    sig = case.signal
+    n = len(rows)
+    B = dc.v.shape[0]
+    R = n * sum(len(ph) for ph, _ in segments)
+
+    def per_variant(a: Any) -> Any:
+        a = np.asarray(a, dtype=float)
+        if a.ndim == 1 and a.shape[0] == B:
+            return np.concatenate([np.repeat(a[rows], len(ph)) for ph, _ in segments])
+        return a
+
+    big: dict[str, Any] = {k: per_variant(v) for k, v in params.items()}
     omega = 2.0 * math.pi * float(circuit.hz)
     caps = []
     for part in case.parts:
@@ -87,26 +154,15 @@ def ratios(circuit: Any, params: Mapping[str, Any], dc: Any, rows: np.ndarray,
             caps.append((part.ref, a, b))
             c = params.get(f"{part.ref}.c", circuit.nominal[f"{part.ref}.c"])
             big[f"{part.ref}.hold_g"] = omega * np.broadcast_to(per_variant(c), (R,))
-            big[f"{part.ref}.hold_v"] = per_variant(volts(dc.v, a) - volts(dc.v, b))
+            big[f"{part.ref}.hold_v"] = per_variant(solver.node_v(circuit, dc.v, a)
+                                                    - solver.node_v(circuit, dc.v, b))
     vac = np.broadcast_to(per_variant(params.get(f"{sig.ref}.vac",
                                                  circuit.nominal[f"{sig.ref}.vac"])), (R,))
-    level = np.repeat([1.0, SMALL], n * P)
-    phase = np.tile((np.arange(P) + 0.5) * 2.0 * math.pi / P, 2 * n)
+    level = np.concatenate([np.full(n * len(ph), lev) for ph, lev in segments])
+    phase = np.concatenate([np.tile(ph, n) for ph, _ in segments])
     big[f"{sig.ref}.vdc"] = vac * math.sqrt(2.0) * level * np.sin(phase)
-    x0 = np.tile(np.repeat(dc.x[rows], P, axis=0), (2, 1))
-    with np.errstate(all="ignore"):
-        res = solver.solve_dc(circuit, big, x_start=x0)
-        v, ok = res.v, np.asarray(res.ok, bool)
-        if caps:
-            g = np.stack([np.asarray(big[f"{ref}.hold_g"])[: n * P].reshape(n, P)[:, 0]
-                          for ref, _, _ in caps], axis=1)
-            M = _newton_matrix(circuit, params, dc, rows, caps, g)
-            v, ok = _balanced(circuit, big, res, caps, n, R, M)
-        for m, (a, b) in enumerate(pairs):
-            w = np.where(ok, volts(v, a) - volts(v, b), np.nan).reshape(2, n, P)
-            rms = np.std(w, axis=2)
-            out[:, m] = rms[0] / (rms[1] / SMALL)
-    return np.where(np.isfinite(out), out, np.nan)
+    x0 = np.concatenate([np.repeat(dc.x[rows], len(ph), axis=0) for ph, _ in segments])
+    return big, x0, caps, R
 
 
 def _balanced(circuit: Any, big: dict, res: Any, caps: Sequence[tuple[str, str, str]],
