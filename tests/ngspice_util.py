@@ -159,15 +159,7 @@ def tran_ac_rms(text: str, source: str, vpk: float, hz: float, nodes: list[str],
         for w, (t0, t1) in spans.items():
             body.append(f".meas tran r{w}_{n} rms v(acm_{n}) from={t0:.9g} to={t1:.9g}")
             body.append(f".meas tran m{w}_{n} avg v(acm_{n}) from={t0:.9g} to={t1:.9g}")
-    body.append(".end")
-    with tempfile.TemporaryDirectory(prefix="diag-ngspice-") as tmp:
-        cir = Path(tmp) / "deck.cir"
-        cir.write_text("\n".join(body) + "\n", encoding="utf-8")
-        proc = subprocess.run(["ngspice", "-b", str(cir)], cwd=tmp, capture_output=True,
-                              text=True, timeout=timeout)
-    log = proc.stdout + proc.stderr
-    got = {k.lower(): float(v) for k, v in
-           re.findall(r"^\s*(\w+)\s*=\s*([-+0-9.eE]+)", log, flags=re.MULTILINE)}
+    got, log = _measured(body, timeout)
     out = {}
     for n in nodes:
         vals = []
@@ -178,3 +170,37 @@ def tran_ac_rms(text: str, source: str, vpk: float, hz: float, nodes: list[str],
             vals.append((max(r * r - m * m, 0.0)) ** 0.5)
         out[n] = (vals[0], vals[1])
     return out
+
+
+def tran_from(text: str, start: dict[str, float], node_farads: float, t_end: float,
+              nodes: list[str], timeout: float = 120) -> dict[str, float]:
+    """Node voltages (ngspice names) at t_end of a transient run that starts from `start`
+    (node -> volts, `uic`: no operating point is solved first) with `node_farads` from
+    every node in `start` to ground standing for the parts' own capacitance. `text` is a
+    netlist as diag.core.spice.netlist writes it (its analyses are dropped)."""
+    body = [ln for ln in text.splitlines() if not ln.lower().startswith((".op", ".ac", ".end"))]
+    for n in start:
+        body.append(f"C_par_{n} {n} 0 {node_farads:.6g}")
+    body.append(".ic " + " ".join(f"v({n})={v:.9g}" for n, v in start.items()))
+    body.append(f".tran {t_end / 1000:.6g} {t_end:.6g} uic")
+    body += [f".meas tran fin_{n} find v({n}) at={t_end:.9g}" for n in nodes]
+    got, log = _measured(body, timeout)
+    missing = [n for n in nodes if f"fin_{n}".lower() not in got]
+    if missing:
+        raise RuntimeError(f"ngspice measured no {missing}:\n{log[-3000:]}")
+    return {n: got[f"fin_{n}".lower()] for n in nodes}
+
+
+def _measured(body: list[str], timeout: float) -> tuple[dict[str, float], str]:
+    """Run the netlist lines `body` (`.end` added) in one `ngspice -b` process; returns
+    its `.meas` results (lower-case name -> value) and its output."""
+    import re
+
+    with tempfile.TemporaryDirectory(prefix="diag-ngspice-") as tmp:
+        cir = Path(tmp) / "deck.cir"
+        cir.write_text("\n".join([*body, ".end"]) + "\n", encoding="utf-8")
+        proc = subprocess.run(["ngspice", "-b", str(cir)], cwd=tmp, capture_output=True,
+                              text=True, timeout=timeout)
+    log = proc.stdout + proc.stderr
+    return ({k.lower(): float(v) for k, v in
+             re.findall(r"^\s*(\w+)\s*=\s*([-+0-9.eE]+)", log, flags=re.MULTILINE)}, log)

@@ -76,6 +76,11 @@ class CheckResult:
     drive: dict[str, tuple[float, float]] = field(default_factory=dict)
     swing: dict[str, tuple[float, float]] = field(default_factory=dict)
     quiet: float | None = None
+    saddle: bool = False
+
+    def stability_text(self) -> str:
+        """`stability_text` of the nominal operating point."""
+        return stability_text(self.saddle)
 
     @property
     def overdriven(self) -> dict[str, tuple[float, float]]:
@@ -150,7 +155,8 @@ class CheckResult:
 
     def to_json(self, case_path: str | None = None) -> dict[str, Any]:
         """SPEC section 6 object (plus the extra keys regions, failed, draws,
-        junction_signal, ac_swing, quiet_level, unused_model_params)."""
+        junction_signal, ac_swing, quiet_level, unstable_operating_point,
+        unused_model_params)."""
         def num(x: float) -> float | None:
             return float(x) if np.isfinite(x) else None
 
@@ -169,6 +175,7 @@ class CheckResult:
             "ac_swing": {p: {"vrms": v, "large_signal_ratio": r}
                          for p, (v, r) in self.swing.items()},
             "quiet_level": self.quiet,
+            "unstable_operating_point": self.saddle,
             "unused_model_params": {r: list(n) for r, n in self.unused_model.items()},
         }
 
@@ -186,6 +193,19 @@ def case_cautions(case: Case) -> tuple[str, ...]:
     if high:
         out.append("capacitors")
     return tuple(out)
+
+
+def stability_text(saddle: bool) -> str:
+    """The warning that an operating point is a balance point a real unit leaves
+    (solver.saddle); "" when it is not."""
+    if not saddle:
+        return ""
+    return ("Operating point: the balance point diag solved is unstable. A loop in this "
+            "circuit has a gain above one at DC (a latch or flip-flop, or bias that feeds "
+            "itself), so a real unit leaves that point and settles in a switched state, "
+            "and diag's predicted readings, which are of the balance point, will not "
+            "match a working unit. Read a known-good unit before trusting a diagnosis of "
+            "this case.")
 
 
 def healthy_bands(case: Case, rules: Any = None, K: int = 400, seed: int = 0) -> CheckResult:
@@ -233,6 +253,7 @@ def healthy_bands(case: Case, rules: Any = None, K: int = 400, seed: int = 0) ->
                        failed=tuple(failed), cautions=case_cautions(case), K=K, seed=seed,
                        nominal_ok=bool(dc0.ok[0]), nominal_why=dc0.why[0],
                        drive=junction_drive(circuit, dc0, ac0, regions) if has_ac else {},
+                       saddle=bool(solver.saddle(circuit, {}, dc0)[0]),
                        **(level_sweep(circuit, dc0, ac0) if has_ac else {}))
 
 

@@ -253,6 +253,7 @@ class Engine:
         self._limits = None
         self._healthy_bands: tuple[Band, ...] | None = None  # bands()'s, once worked out
         self._signal_warning: str | None = None
+        self._stability_warning: str | None = None
         self._ref_slip = None
         self._boxes = None  # infer.boxes of the built hypotheses (groups with pairs)
         self._extra_spread: dict = {}  # kernel spreads of sets with pairs (_spread_for)
@@ -566,6 +567,17 @@ class Engine:
             self._signal_warning = healthy_bands(self.case, self.rules, K=0).signal_text()
         return self._signal_warning
 
+    def stability_warning(self) -> str:
+        """bands.CheckResult.stability_text of the nominal circuit: "" unless its
+        operating point is one a real unit leaves (worked out once)."""
+        if self._stability_warning is None:
+            from diag.core import bands, solver
+
+            circ = self.circuit
+            self._stability_warning = bands.stability_text(
+                bool(solver.saddle(circ, {}, solver.solve_dc(circ, {}))[0]))
+        return self._stability_warning
+
     def bands(self, fault_id: str = "healthy") -> tuple[Band, ...]:
         """About the 1st, 50th and 99th percentile of each observable's reading, as the
         meter shows them (rounded to its display resolution, meter.shown_band): a reading
@@ -770,6 +782,8 @@ class Engine:
             for j, v in zip(idx, vals, strict=True)], acc))
         if any(self.observables[j].kind == "ac" for j in idx) and self.signal_warning():
             nts = (self.signal_warning(), *nts)
+        if self.stability_warning():
+            nts = (self.stability_warning(), *nts)
         fit_text = self._fit_text(fits, pval, len(idx), specs[order[0]], pairs_tried)
         odd = self._odd_readings(U, specs, order[0], idx, u_read)
         slips = [] if fits else self._unit_slips(U, specs, idx, vals, hp, alpha)

@@ -45,6 +45,8 @@ RES_REL = 1e-5            # accepted KCL residual at the last iterate: below VNT
                           # node's conductance plus this fraction of its source and device
                           # currents
 RES_ABS = 1e-14           # amperes, accepted KCL residual floor
+SADDLE_S = 1e6            # past every growth rate: this many times the largest
+                          # conductance in the Jacobian, per farad (saddle)
 FLOAT_OHMS = 3e8          # a node whose resistance to ground exceeds this floats (opens: >=1e9)
 GMIN_STEPS = (1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10)   # siemens, then 0
 SOURCE_STEPS = tuple(np.linspace(0.0, 1.0, 21)[1:-1])              # then the full sources
@@ -805,6 +807,47 @@ def _floating(circuit, plan, DP, A_lin, x, act, probe) -> dict[int, list[str]]:
     return out
 
 
+def saddle(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult
+           ) -> np.ndarray:
+    """(B,) bool: each variant's operating point is one a real unit leaves (False where
+    the point is not ok). Small departures x from it obey C dx/dt = -J x, J the DC
+    Jacobian (the discrete capacitors open, as in J) and C an equal capacitance from
+    every node to ground standing for the parts' own (none on the branch currents).
+    P(s) = det(J + sC) is real, so its complex roots come in pairs, and it has an odd
+    number of real positive roots (growth rates) exactly when its sign at s = 0 differs
+    from its sign past its largest root: then the point is a saddle, whatever those
+    capacitances are (a loop with a gain above one at DC, a latch at its balance
+    point). The sign past the largest root is that at SADDLE_S times the largest
+    conductance the matrix holds, confirmed at ten times it."""
+    plan = _plan(circuit)
+    B, P = _batch(circuit, params)
+    B = max(B, dc.v.shape[0])
+    DP = _prepared(plan, P)
+    act = np.flatnonzero(dc.ok)
+    out = np.zeros(B, dtype=bool)
+    if act.size == 0:
+        return out
+    A_lin, _ = _linear(circuit, plan, P, B, None)
+    xp = np.vstack([dc.x.T, np.zeros((1, B))])
+    J = plan.dense(_jacobian(circuit, plan, DP, A_lin, xp, act))        # (Ba, n, n)
+    nn = circuit.n_nodes
+    C = np.zeros(plan.n)
+    C[:nn] = 1.0                                                        # farads
+    nodes = np.abs(J[:, :nn, :nn])
+    scale = np.maximum(nodes.max(axis=(1, 2)), 1.0)
+    branch = np.abs(np.diagonal(J, axis1=1, axis2=2)[:, nn:])
+    with np.errstate(divide="ignore"):
+        inv = np.where(branch > 0, 1.0 / branch, 0.0)
+    if inv.size:
+        scale = np.maximum(scale, inv.max(axis=1))                      # 1 / series ohms
+    s0, _ = np.linalg.slogdet(J)
+    far = [np.linalg.slogdet(J + (SADDLE_S * f * scale)[:, None, None] * np.diag(C))[0]
+           for f in (1.0, 10.0)]
+    out[act] = (s0 != 0) & (far[0] == far[1]) & (s0 != far[0])
+    return out
+
+
+# ----------------------------------------------------------------------------- AC
 # ----------------------------------------------------------------------------- AC
 
 def _ac_matrix(circuit, plan, P, DP, dc, B, act, load_idx=()):

@@ -709,6 +709,8 @@ def summarise(res: TriageResult) -> dict[str, Any]:
     rows (each unit's own rows are in its `rejected` list), `not_triaged` the units none
     of whose rows could be used, `rejected` the rows that belong to no triaged unit.
     `signal_warning`: Engine.signal_warning when any unit read AC, else "".
+    `stability_warning`: Engine.stability_warning (the case's balance point is one a
+    real unit leaves), else "".
     """
     hyps = {h.id: h for h in res.engine.ensemble.hypotheses}
     by_fault: Counter = Counter()
@@ -779,6 +781,7 @@ def summarise(res: TriageResult) -> dict[str, Any]:
         # the case's tone too big for small-signal AC predictions, once any unit read AC
         "signal_warning": (res.engine.signal_warning() if any(
             r.kind == "ac" for u in res.units for r in u.readings) else ""),
+        "stability_warning": res.engine.stability_warning(),
     }
 
 
@@ -878,8 +881,9 @@ def to_markdown(res: TriageResult, case_path: str, cautions: Sequence[str] = (),
     if n_ref:
         w.write(f" {_rows_word(n_ref)} of the batch file refused (see Refused rows).")
     w.write("\n\n")
-    if s.get("signal_warning"):
-        w.write(f"**{s['signal_warning']}**\n\n")
+    for key in ("stability_warning", "signal_warning"):
+        if s.get(key):
+            w.write(f"**{s[key]}**\n\n")
     if s["by_fault"]:
         w.write("## Faults found\n\nMost frequent first. units: the units whose leading "
                 "suspect it is; expected: its p summed over the units with a fault found "

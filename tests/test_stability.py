@@ -1,0 +1,156 @@
+"""Operating points a real unit leaves (solver.saddle): every bundled case's is stable; a
+two-transistor latch's balance point is a saddle, and ngspice's transient run (the
+reference simulator) leaves it where it returns to the others. The determinant test of
+solver.saddle is checked against the growth rates themselves (scipy's generalized
+eigenvalues of the same linearised circuit)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+from test_parts import RULES
+
+from diag.core import bands, ensemble, faults, netlist, solver, spice
+from diag.core.case import load_case
+
+LATCH = Path(__file__).parent / "data" / "latch.yaml"
+
+
+def _compiled(path):
+    return netlist.compile_case(load_case(path, RULES), RULES)
+
+
+def _growing(circ, params, dc) -> np.ndarray:
+    """Count (B,) of real positive eigenvalues of C dx/dt = -J x (1 F from every node to
+    ground, none on the branch currents), from scipy's generalized eigenvalues."""
+    from scipy.linalg import eigvals
+
+    plan = solver._plan(circ)
+    B, P = solver._batch(circ, params)
+    B = max(B, dc.v.shape[0])
+    A_lin, _ = solver._linear(circ, plan, P, B, None)
+    xp = np.vstack([dc.x.T, np.zeros((1, B))])
+    act = np.flatnonzero(dc.ok)
+    J = plan.dense(solver._jacobian(circ, plan, solver._prepared(plan, P), A_lin, xp, act))
+    C = np.diag([1.0] * circ.n_nodes + [0.0] * (plan.n - circ.n_nodes))
+    out = np.full(B, -1)
+    for q, Jq in zip(act, J, strict=True):
+        lam = eigvals(-Jq, C)
+        lam = lam[np.isfinite(lam)]
+        tol = 1e-9 * np.max(np.abs(lam))
+        out[q] = int(np.sum((lam.real > tol) & (np.abs(lam.imag) <= tol)))
+    return out
+
+
+def test_every_bundled_case_is_stable(case_paths):
+    # every bundled circuit is an amplifier, regulator or switch driven from outside:
+    # no growing mode at the nominal point or in 16 healthy units
+    for path in case_paths:
+        circ = _compiled(path)
+        dc = solver.solve_dc(circ, {})
+        assert not solver.saddle(circ, {}, dc)[0], path
+        assert _growing(circ, {}, dc)[0] == 0, path
+        params = ensemble.draw_unit(circ, faults.healthy_spec(), 16,
+                                    np.random.default_rng(0))
+        dc = solver.solve_dc(circ, params)
+        assert not solver.saddle(circ, params, dc)[dc.ok].any(), path
+        assert np.all(_growing(circ, params, dc)[dc.ok] == 0), path
+
+
+def test_the_latch_balance_point_is_a_saddle():
+    # two transistors cross-coupled through 22 kΩ into 47 kΩ, each collecting through
+    # an LED and 1 kΩ: the loop gain at the symmetric point is far above one, so one
+    # mode (the two collectors moving apart) grows
+    circ = _compiled(LATCH)
+    dc = solver.solve_dc(circ, {})
+    assert solver.saddle(circ, {}, dc)[0] and _growing(circ, {}, dc)[0] == 1
+    params = ensemble.draw_unit(circ, faults.healthy_spec(), 16, np.random.default_rng(1))
+    dcs = solver.solve_dc(circ, params)
+    assert solver.saddle(circ, params, dcs)[dcs.ok].all()
+    assert np.all(_growing(circ, params, dcs)[dcs.ok] == 1)
+    # a cross-coupling resistor open breaks the loop: nothing left to grow
+    dc_open = solver.solve_dc(circ, {"R3.r": 1e12})
+    assert not solver.saddle(circ, {"R3.r": 1e12}, dc_open)[0]
+    assert _growing(circ, {"R3.r": 1e12}, dc_open)[0] == 0
+
+
+def test_the_determinant_test_agrees_with_the_growth_rates_on_faulty_units(case_paths):
+    # over every modelled fault of three cases (shorts and opens move conductances by
+    # decades, the determinant's range with them): saddle is True exactly when the
+    # count of growing modes is odd
+    from diag.core.engine import Engine
+
+    for name in ("mic-preamp.yaml", "pushpull-output.yaml", "series-regulator.yaml"):
+        path = next(p for p in case_paths if p.name == name)
+        eng = Engine(load_case(path, RULES), RULES, K=8)
+        circ = eng.circuit
+        specs = [s for s in eng.specs if "+" not in s.id]
+        params = ensemble.draw_hypotheses(circ, specs, 4, 0)
+        with np.errstate(all="ignore"):  # as the engine solves them: a failed unit is NaN
+            dc = solver.solve_dc(circ, params)
+            grow = _growing(circ, params, dc)
+            sad = solver.saddle(circ, params, dc)
+        assert dc.ok.sum() > 0.9 * len(dc.ok)
+        np.testing.assert_array_equal(sad[dc.ok], grow[dc.ok] % 2 == 1)
+
+
+def test_check_and_diagnose_say_so():
+    res = bands.healthy_bands(load_case(LATCH, RULES), RULES, K=8)
+    assert res.saddle and res.to_json()["unstable_operating_point"] is True
+    assert "unstable" in res.stability_text() and "switched state" in res.stability_text()
+    assert bands.stability_text(False) == ""
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("opened, grows", [(None, True), ("R3", False)])
+def test_ngspice_leaves_the_balance_point(ngspice, opened, grows):
+    """ngspice solves the same balance point (.op), and a transient run started there
+    (1 nF from every node to ground; any capacitance would do: the count is odd
+    whatever they are), with a 1 mV kick between the collectors either way, ends with
+    the collectors volts apart, one transistor on and one off; with R3 open the kick
+    dies away and the run ends where it started."""
+    from ngspice_util import run_ngspice, tran_from
+
+    circ = _compiled(LATCH)
+    params = {} if opened is None else {f"{opened}.r": 1e12}
+    dc = solver.solve_dc(circ, params)
+    text = spice.netlist(circ, params)
+    op = run_ngspice(text)
+    nodes = [n for n in circ.case.nodes]
+    names = {n: spice.node_name(circ.case, n) for n in nodes}
+    v = {n: float(dc.v[0, circ.node_index[n]]) for n in nodes}
+    for n in nodes:
+        assert op.v(names[n]) == pytest.approx(v[n], abs=5e-3), n
+    assert bool(solver.saddle(circ, params, dc)[0]) == grows
+    for kick in (0.5e-3, -0.5e-3):
+        start = {names[n]: v[n] for n in nodes}
+        start[names["c1"]] += kick
+        start[names["c2"]] -= kick
+        end = tran_from(text, start, 1e-9, 2e-3, [names["c1"], names["c2"]])
+        if grows:
+            assert abs(end[names["c1"]] - end[names["c2"]]) > 3.0, kick
+        else:
+            assert end[names["c1"]] == pytest.approx(v["c1"], abs=1e-4)
+            assert end[names["c2"]] == pytest.approx(v["c2"], abs=1e-4)
+
+
+def test_diagnose_and_triage_carry_the_warning(tmp_path):
+    from diag.core import triage
+    from diag.core.engine import Engine
+
+    eng = Engine(load_case(LATCH, RULES), RULES, K=32)
+    rng = np.random.default_rng(3)
+    units = {f"U{k}": eng.simulate("healthy", rng) for k in range(2)}
+    d = eng.diagnose(units["U0"])
+    assert d.notes and d.notes[0] == eng.stability_warning() != ""
+    res = triage.triage(eng, units)
+    s = triage.summarise(res)
+    assert s["stability_warning"] == eng.stability_warning()
+    assert eng.stability_warning() in triage.to_markdown(res, str(LATCH))
+    # a stable case says nothing
+    from diag.core.paths import cases_dir
+
+    stable = Engine(load_case(cases_dir() / "line-driver.yaml", RULES), RULES, K=32)
+    assert stable.stability_warning() == ""
