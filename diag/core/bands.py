@@ -77,10 +77,11 @@ class CheckResult:
     swing: dict[str, tuple[float, float]] = field(default_factory=dict)
     quiet: float | None = None
     saddle: bool = False
+    switched: bool = False
 
     def stability_text(self) -> str:
         """`stability_text` of the nominal operating point."""
-        return stability_text(self.saddle)
+        return stability_text(self.saddle, self.switched)
 
     @property
     def overdriven(self) -> dict[str, tuple[float, float]]:
@@ -156,7 +157,7 @@ class CheckResult:
     def to_json(self, case_path: str | None = None) -> dict[str, Any]:
         """SPEC section 6 object (plus the extra keys regions, failed, draws,
         junction_signal, ac_swing, quiet_level, unstable_operating_point,
-        unused_model_params)."""
+        switched_states, unused_model_params)."""
         def num(x: float) -> float | None:
             return float(x) if np.isfinite(x) else None
 
@@ -176,6 +177,7 @@ class CheckResult:
                          for p, (v, r) in self.swing.items()},
             "quiet_level": self.quiet,
             "unstable_operating_point": self.saddle,
+            "switched_states": self.switched,
             "unused_model_params": {r: list(n) for r, n in self.unused_model.items()},
         }
 
@@ -195,9 +197,17 @@ def case_cautions(case: Case) -> tuple[str, ...]:
     return tuple(out)
 
 
-def stability_text(saddle: bool) -> str:
-    """The warning that an operating point is a balance point a real unit leaves
-    (solver.saddle); "" when it is not."""
+def stability_text(saddle: bool, switched: bool = False) -> str:
+    """What to say about a circuit whose DC solution was a balance point a real unit
+    leaves (solver.saddle): `switched`, it was moved to a switched state beside it
+    (solver.solve_dc); `saddle`, it could not be and is still there; "" for neither."""
+    if switched:
+        return ("Operating point: this circuit has two switched states (a loop in it has a "
+                "gain above one at DC: a latch, a flip-flop, or a trigger whose input sits "
+                "inside its hysteresis). The balance point between them is one no working "
+                "unit stays at, so diag puts each drawn unit in one of the states, half "
+                "each way: the bands cover both, and the nominal column shows one of them. "
+                "A unit's readings tell which state it is in.")
     if not saddle:
         return ""
     return ("Operating point: the balance point diag solved is unstable. A loop in this "
@@ -253,6 +263,7 @@ def healthy_bands(case: Case, rules: Any = None, K: int = 400, seed: int = 0) ->
                        failed=tuple(failed), cautions=case_cautions(case), K=K, seed=seed,
                        nominal_ok=bool(dc0.ok[0]), nominal_why=dc0.why[0],
                        drive=junction_drive(circuit, dc0, ac0, regions) if has_ac else {},
+                       switched=bool(dc0.settled[0]),
                        saddle=bool(solver.saddle(circuit, {}, dc0)[0]),
                        **(level_sweep(circuit, dc0, ac0) if has_ac else {}))
 

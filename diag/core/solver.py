@@ -47,6 +47,8 @@ RES_REL = 1e-5            # accepted KCL residual at the last iterate: below VNT
 RES_ABS = 1e-14           # amperes, accepted KCL residual floor
 SADDLE_S = 1e6            # past every growth rate: this many times the largest
                           # conductance in the Jacobian, per farad (saddle)
+SETTLE_PUSH = 1e-3        # volts at the largest node: the first push off a saddle (_settle)
+SETTLE_STEPS = 200        # most backward-Euler steps at twice the growth rate
 FLOAT_OHMS = 3e8          # a node whose resistance to ground exceeds this floats (opens: >=1e9)
 GMIN_STEPS = (1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10)   # siemens, then 0
 SOURCE_STEPS = tuple(np.linspace(0.0, 1.0, 21)[1:-1])              # then the full sources
@@ -66,6 +68,8 @@ class DCResult:
                such as a floating node when ok)
     iterations (B,) Newton iterations used
     x          (B, n_unknowns) volts at every unknown (internal nodes included)
+    settled    (B,) bool, the variant's first solution was a balance point a real unit
+               leaves (a saddle) and x is a stable point beside it (solve_dc)
     """
 
     v: np.ndarray
@@ -74,6 +78,7 @@ class DCResult:
     why: list
     iterations: np.ndarray
     x: np.ndarray
+    settled: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -667,7 +672,7 @@ def _stepped(plan, DP, A_lin, b_lin, x, live, probe, knob: str, steps):
 
 def solve_dc(circuit: Circuit, params: Mapping[str, object] | None = None, *,
              load: Sequence[tuple[str, str, object]] | None = None,
-             x_start: np.ndarray | None = None) -> DCResult:
+             x_start: np.ndarray | None = None, settle: bool = True) -> DCResult:
     """DC operating point of every variant (see DCResult). Starts from the nominal
     solution; never raises for a variant that fails (ok False, why says so).
 
@@ -675,7 +680,13 @@ def solve_dc(circuit: Circuit, params: Mapping[str, object] | None = None, *,
     scalar or (B,) per variant, between two case nodes (either may be the ground), e.g. a
     meter's input. i_supply does not count the current of such a branch. `x_start`
     (B, n_unknowns) volts, e.g. the unloaded solution (DCResult.x), is where Newton
-    starts instead of the nominal point (non-finite columns start from the nominal)."""
+    starts instead of the nominal point (non-finite columns start from the nominal).
+
+    A solution from the nominal start that is a balance point a real unit leaves (a
+    latch between its states: `saddle`) is moved to a stable point beside it, half the
+    variants each way (`_settle`; DCResult.settled), unless `settle` is False; a solve
+    from `x_start` is left where it lands (its caller chose the start: the same state
+    under a meter's load or through a tone)."""
     load_idx = _load_index(circuit, load)
     plan = _plan(circuit, load_idx)
     x0 = _nominal_x(circuit, plan)
@@ -702,6 +713,8 @@ def solve_dc(circuit: Circuit, params: Mapping[str, object] | None = None, *,
         x[:-1, fin] = xs0[:, fin]
         start = None
     ok, its = _robust(plan, DP, A_lin, b_lin, x, np.arange(B), x0[:, None], probe, start)
+    settled = (_settle(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its)
+               if x_start is None and settle else np.zeros(B, dtype=bool))
     why: list = [None] * B
     for q in np.flatnonzero(~ok):
         why[q] = ("did not converge: no consistent DC operating point found "
@@ -717,7 +730,7 @@ def solve_dc(circuit: Circuit, params: Mapping[str, object] | None = None, *,
     xs = x[:-1].T.copy()
     v = xs[:, :circuit.n_nodes]
     return DCResult(v=v, i_supply=_supply_currents(circuit, plan, P, DP, x, B), ok=ok,
-                    why=why, iterations=its, x=xs)
+                    why=why, iterations=its, x=xs, settled=settled)
 
 
 def _supply_currents(circuit, plan, P, DP, x, B):
@@ -818,36 +831,150 @@ def saddle(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult
     from its sign past its largest root: then the point is a saddle, whatever those
     capacitances are (a loop with a gain above one at DC, a latch at its balance
     point). The sign past the largest root is that at SADDLE_S times the largest
-    conductance the matrix holds, confirmed at ten times it."""
+    conductance the matrix holds; both signs come from the solver's own LU pivots."""
     plan = _plan(circuit)
     B, P = _batch(circuit, params)
     B = max(B, dc.v.shape[0])
     DP = _prepared(plan, P)
     act = np.flatnonzero(dc.ok)
     out = np.zeros(B, dtype=bool)
-    if act.size == 0:
-        return out
-    A_lin, _ = _linear(circuit, plan, P, B, None)
-    xp = np.vstack([dc.x.T, np.zeros((1, B))])
-    J = plan.dense(_jacobian(circuit, plan, DP, A_lin, xp, act))        # (Ba, n, n)
-    nn = circuit.n_nodes
-    C = np.zeros(plan.n)
-    C[:nn] = 1.0                                                        # farads
-    nodes = np.abs(J[:, :nn, :nn])
-    scale = np.maximum(nodes.max(axis=(1, 2)), 1.0)
-    branch = np.abs(np.diagonal(J, axis1=1, axis2=2)[:, nn:])
-    with np.errstate(divide="ignore"):
-        inv = np.where(branch > 0, 1.0 / branch, 0.0)
-    if inv.size:
-        scale = np.maximum(scale, inv.max(axis=1))                      # 1 / series ohms
-    s0, _ = np.linalg.slogdet(J)
-    far = [np.linalg.slogdet(J + (SADDLE_S * f * scale)[:, None, None] * np.diag(C))[0]
-           for f in (1.0, 10.0)]
-    out[act] = (s0 != 0) & (far[0] == far[1]) & (s0 != far[0])
+    if act.size:
+        A_lin, _ = _linear(circuit, plan, P, B, None)
+        xp = np.vstack([dc.x.T, np.zeros((1, B))])
+        out[act] = _saddle(plan, _jacobian(circuit, plan, DP, A_lin, xp, act),
+                           circuit.n_nodes)
     return out
 
 
-# ----------------------------------------------------------------------------- AC
+def _dense_jacobian(circuit, plan, DP, A_lin, x, act) -> np.ndarray:
+    """(Ba, n, n) dense DC Jacobians at x (n+1, B) for variants act."""
+    return plan.dense(_jacobian(circuit, plan, DP, A_lin, x, act))
+
+
+def _det_sign(plan, M: np.ndarray) -> np.ndarray:
+    """(B,) sign of det of each matrix of pattern values M (nz, B): the product of the
+    signs of its LU pivots (the elimination order permutes rows and columns alike, so
+    the determinant is the pivots' product); 0 where a pivot is 0 or not finite."""
+    with np.errstate(all="ignore"):
+        piv = plan.factor(M.copy())[plan.diag]
+    bad = ~np.isfinite(piv).all(axis=0) | (piv == 0).any(axis=0)
+    return np.where(bad, 0, np.prod(np.sign(piv), axis=0)).astype(int)
+
+
+def _saddle(plan, M: np.ndarray, n_nodes: int) -> np.ndarray:
+    """(Ba,) bool from DC Jacobians as pattern values M (nz, Ba): see `saddle`."""
+    node = plan.diag[:n_nodes]
+    branch = np.abs(M[plan.diag[n_nodes:]])
+    with np.errstate(divide="ignore"):
+        inv = np.where(branch > 1e-9, 1.0 / branch, 0.0)              # 1 / series ohms
+    scale = np.maximum(np.abs(M).max(axis=0), 1.0)
+    if inv.size:
+        scale = np.maximum(scale, inv.max(axis=0))
+    far = M.copy()
+    far[node] += SADDLE_S * scale                                     # 1 F on every node
+    s0, s_far = _det_sign(plan, M), _det_sign(plan, far)
+    return (s0 != 0) & (s_far != 0) & (s0 != s_far)
+
+
+def _growing(J: np.ndarray, n_nodes: int) -> tuple[np.ndarray, float] | None:
+    """(direction (n,), scaled to 1 V at its largest node; growth rate, per second with
+    1 F on every node) of the growing mode of a saddle with Jacobian J (n, n), or None:
+    the eigenvector of J^-1 C whose eigenvalue mu = -1 / rate is the most negative real
+    one, signed so that the first node (case order) that swings at least half as much as
+    the largest rises."""
+    C = np.zeros(J.shape[0])
+    C[:n_nodes] = 1.0
+    try:
+        mu, vec = np.linalg.eig(np.linalg.solve(J, np.diag(C)))
+    except np.linalg.LinAlgError:
+        return None
+    real = np.abs(mu.imag) <= 1e-9 * np.maximum(np.abs(mu), 1e-300)
+    neg = np.flatnonzero(real & (mu.real < 0))
+    if neg.size == 0:
+        return None
+    k = neg[np.argmin(mu.real[neg])]
+    d = vec[:, k].real
+    big = np.max(np.abs(d[:n_nodes]))
+    if not big > 0:
+        return None
+    # the sign: the first node (case order) at half the largest swing or more rises, so
+    # that every unit of a case is pushed the same way (an eigenvector's sign is free)
+    first = d[np.flatnonzero(np.abs(d[:n_nodes]) >= 0.5 * big)[0]]
+    return d / big * np.sign(first), -1.0 / float(mu.real[k])
+
+
+def _settle(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its) -> np.ndarray:
+    """Move the variants of x (n+1, B) whose solution is a saddle (`saddle`) to the
+    stable point it leads to, in place, and return (B,) bool, the variants moved.
+
+    From the saddle pushed SETTLE_PUSH volts along its growing mode (even-numbered
+    variants one way, odd ones the other: which switched state a unit is in is part of
+    the unit), backward-Euler steps with 1 F on every node follow the circuit as it
+    leaves: each step solves f(x) + g (x - x_prev) = 0 (Newton with the conductance g
+    from every unknown to its last value) at g twice the largest growth rate (steps
+    much longer than 1 / rate would hold the saddle) while its steps grow (leaving the
+    saddle speeds up; nearing a stable point slows down; at most SETTLE_STEPS), then
+    with g falling tenfold a step to nothing, and once at g = 0. A variant whose end
+    point is again a saddle, or fails, or never slowed, is put back where it was."""
+    B = x.shape[1]
+    moved = np.zeros(B, dtype=bool)
+    act = np.flatnonzero(ok)
+    if act.size == 0:
+        return moved
+    sad = _saddle(plan, _jacobian(circuit, plan, DP, A_lin, x, act), circuit.n_nodes)
+    if not sad.any():
+        return moved
+    rows, dirs, rates = [], [], []
+    J = _dense_jacobian(circuit, plan, DP, A_lin, x, act[sad])
+    for q, Jq in zip(act[sad], J, strict=True):
+        got = _growing(Jq, circuit.n_nodes)
+        if got is not None:
+            rows.append(q)
+            dirs.append(got[0] * (1.0 if q % 2 == 0 else -1.0))
+            rates.append(got[1])
+    if not rows:
+        return moved
+    rows = np.array(rows)
+    x0 = x[:, rows].copy()
+    x[:-1, rows] += SETTLE_PUSH * np.array(dirs).T
+    g0 = 2.0 * max(rates)
+    live = rows
+    last = np.zeros(rows.size)             # each variant's last step, volts
+    for _ in range(SETTLE_STEPS):          # at g0 until each has passed its fastest step
+        b = b_lin.copy()
+        b[:, live] += g0 * x[:-1, live]
+        before = x[:-1, live].copy()
+        good, it = _newton(plan, DP, A_lin, b, x, live, probe, gextra=g0, dense=True)
+        its[live] += it[live]
+        k = np.searchsorted(rows, live)
+        step = np.max(np.abs(x[:-1, live] - before), axis=0)
+        passed = step < last[k]            # slowing down: on its way to a stable point
+        last[k] = step
+        live = np.intersect1d(live[~passed], good)
+        if live.size == 0:
+            break
+    live = np.setdiff1d(rows, live)        # those past their fastest step
+    for g in g0 * 10.0 ** -np.arange(1, 13):   # then g falling to nothing
+        if live.size == 0:
+            break
+        b = b_lin.copy()
+        b[:, live] += g * x[:-1, live]
+        good, it = _newton(plan, DP, A_lin, b, x, live, probe, gextra=g, dense=True)
+        its[live] += it[live]
+        live = np.intersect1d(live, good)
+    if live.size:
+        good, it = _newton(plan, DP, A_lin, b_lin, x, live, probe, dense=True)
+        its[live] += it[live]
+        live = np.intersect1d(live, good)
+    if live.size:
+        still = _saddle(plan, _jacobian(circuit, plan, DP, A_lin, x, live), circuit.n_nodes)
+        live = live[~still]
+    moved[live] = True
+    back = ~np.isin(rows, live)
+    x[:, rows[back]] = x0[:, back]
+    return moved
+
+
 # ----------------------------------------------------------------------------- AC
 
 def _ac_matrix(circuit, plan, P, DP, dc, B, act, load_idx=()):
@@ -944,7 +1071,8 @@ def take_dc(dc: DCResult, idx: np.ndarray) -> DCResult:
     """The DCResult of variants idx alone."""
     return DCResult(v=dc.v[idx], i_supply=dc.i_supply[idx], ok=np.asarray(dc.ok)[idx],
                     why=[dc.why[i] for i in idx], iterations=np.asarray(dc.iterations)[idx],
-                    x=dc.x[idx])
+                    x=dc.x[idx],
+                    settled=None if dc.settled is None else np.asarray(dc.settled)[idx])
 
 
 # ----------------------------------------------------------------------------- regions
