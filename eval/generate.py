@@ -32,7 +32,7 @@ from diag.core.paths import cases_dir
 from diag.core.rules import load_rules
 from eval import inject, meterlike
 from eval.spicerun import ngspice_path, run_decks_tags
-from eval.unit import BenchUnit, bench, draw_unit, measure_script, transient_script
+from eval.unit import BenchUnit, bench, draw_unit, measure_script, power_up_deck, transient_script
 
 # Shares of a mixed triage batch (--units N): healthy, single fault, blunder, unmodelled.
 MIX = {"healthy": 0.15, "fault": 0.65, "blunder": 0.10, "unmodelled": 0.10}
@@ -127,6 +127,7 @@ def measure_benches(case: Case, units: list[BenchUnit], jobs: int | None = None,
     if not ac or case.signal is None:
         mode = "none"
     check = tuple(int(e) for e in tr["check_ends"]) if mode == "nonlinear" else ()
+    power_up(units, jobs)
     tagged = run_decks_tags([measure_script(u, obs, check) for u in units],
                             [len(obs)] * len(units), jobs)
     res = [r["@@"] for r in tagged]
@@ -142,6 +143,17 @@ def measure_benches(case: Case, units: list[BenchUnit], jobs: int | None = None,
         for j in ac:
             res[k][j] = t[j]
     return res
+
+
+def power_up(units: list[BenchUnit], jobs: int | None = None) -> None:
+    """Set each unit's `nodeset` to the state it is in once powered (unit.power_up_deck);
+    a unit whose run gave no answer keeps none."""
+    decks = [power_up_deck(u) for u in units]
+    got = run_decks_tags([d for d, _ in decks], [len(n) for _, n in decks], jobs)
+    for u, (_, nodes), r in zip(units, decks, got, strict=True):
+        vals = r.get("@p", [])
+        if len(vals) == len(nodes) and all(math.isfinite(v) for v in vals):
+            u.nodeset = dict(zip(nodes, vals, strict=True))
 
 
 def _tagged(r: dict[str, list[float]], tag: str, j: int) -> float:

@@ -54,13 +54,14 @@ class BenchUnit:
     lifted: set[tuple[str, str]] = field(default_factory=set)
     extra: list[tuple[str, str, float]] = field(default_factory=list)
     swapped_ce: set[str] = field(default_factory=set)
+    nodeset: dict[str, float] = field(default_factory=dict)
 
     def copy(self) -> BenchUnit:
         """An independent copy (the frozen case is shared)."""
         return BenchUnit(case=self.case, temp_c=self.temp_c,
                          values=copy.deepcopy(self.values), cards=copy.deepcopy(self.cards),
                          lifted=set(self.lifted), extra=list(self.extra),
-                         swapped_ce=set(self.swapped_ce))
+                         swapped_ce=set(self.swapped_ce), nodeset=dict(self.nodeset))
 
 
 def _tol(part: Part) -> float:
@@ -339,6 +340,8 @@ def _deck_head(u: BenchUnit) -> list[str]:
     case = u.case
     bb = bench()["meter"]
     lines = [f"* diag eval unit of {Path(case.path).name}"] + netlist_lines(u)
+    if u.nodeset:   # the state the unit powered up in (power_up_deck)
+        lines.append(".nodeset " + " ".join(f"v({n})={_fmt(v)}" for n, v in u.nodeset.items()))
     for p in case.points:
         if p.node is None:
             continue
@@ -349,6 +352,33 @@ def _deck_head(u: BenchUnit) -> list[str]:
         if "ac" in p.reads:
             lines.append(f"C_meter_{pid} {plus} {minus} 1e-18")
     return lines
+
+
+def power_up_deck(u: BenchUnit) -> tuple[str, list[str]]:
+    """ngspice deck (and the node names it reports, `@p <index> <volts>`) that finds the
+    state the unit is in once powered: a transient run from its operating point, with
+    `power_up.node_farads` from every case node to ground and a current kick of
+    `power_up.kick_amps` into each, of a sign drawn from the unit's own ambient draw. A
+    circuit with one stable point comes back to it; one the operating point left at the
+    balance point between two switched states (a latch: SPICE's Newton finds whichever
+    solution is nearest its start) ends in one of them, as a real unit does at power-up.
+    The end point becomes the unit's `.nodeset` for every later operating point."""
+    case = u.case
+    pu = bench()["power_up"]
+    nodes = [spice_node(case, n) for n in case.nodes if spice_node(case, n) != "0"]
+    rng = np.random.default_rng(int(abs(u.temp_c) * 1e9) % (2 ** 32))
+    lines = _deck_head(u)
+    t_end = float(pu["seconds"])
+    for i, n in enumerate(nodes):
+        amp = float(pu["kick_amps"]) * (1.0 if rng.random() < 0.5 else -1.0)
+        lines += [f"C_pu_{i} {n} 0 {_fmt(float(pu['node_farads']))}",
+                  f"I_pu_{i} 0 {n} PULSE(0 {_fmt(amp)} 0 1e-9 1e-9 {_fmt(t_end / 1000)} "
+                  f"{_fmt(10 * t_end)})"]
+    ctl = [".control", "set noaskquit", f"tran {_fmt(t_end / 2000)} {_fmt(t_end)}"]
+    for i, n in enumerate(nodes):
+        ctl += [f"meas tran f{i} find v({n}) at={_fmt(t_end)}", f"echo \"@p {i} $&f{i}\""]
+    ctl += ["quit", ".endc", ".end"]
+    return "\n".join(lines + ctl) + "\n", nodes
 
 
 def _probe(case: Case, point: Point) -> str:
