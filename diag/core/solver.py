@@ -479,9 +479,12 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
     compacted only when fewer than half of it are still iterating (gathers cost more than
     the arithmetic). For accepted variants (LU path) probe[:, q] gets J^-1 · 1 (A/V), the
     floating-node probe. `start` (per device, junction voltages (B,)) is where the devices
-    are evaluated in the first iteration (which accepts nothing); else at x. Returns the
-    accepted subset of act and iterations per variant."""
+    are evaluated in the first iteration (which accepts nothing); else at x. `gextra`
+    (siemens from every unknown to ground) is a number, or one per variant of act.
+    Returns the accepted subset of act and iterations per variant."""
     B = x.shape[1]
+    gw = np.asarray(gextra, dtype=float)       # per working column when not a number
+    has_g = bool(np.any(gw))
     its = np.zeros(B, dtype=int)
     conv = []
     W = act                                    # working set (indices into B)
@@ -513,14 +516,16 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
         if live.sum() < 0.5 * W.size:          # compact the working set
             keep = np.flatnonzero(live)
             W, Aw, bw, xw = W[keep], Aw[:, keep], bw[:, keep], xw[:, keep]
+            if gw.ndim:
+                gw = gw[keep]
             DPw = [_sub(d, keep) for d in DPw]
             state = [[s[keep] for s in st] for st in state]
             live = np.ones(W.size, dtype=bool)
         nw = W.size
         A = bufA[:, :nw]
         np.copyto(A, Aw)
-        if gextra:
-            A[plan.diag] += gextra
+        if has_g:
+            A[plan.diag] += gw
         first = start is not None and it_no == 0    # devices evaluated at `start`
         if dense:
             b = bw * scale
@@ -570,14 +575,14 @@ def _newton(plan, DP, A_lin, b_lin, x, act, probe, gextra=0.0, scale=1.0, dense=
             # a Newton step dx answers a residual of about J dx: allow that (the step is
             # accepted only when small), so a garbled linear solve still shows up here
             if ci.size > 0.3 * W.size:      # cheaper than gathering the columns: in place
-                good = _residual_ok(plan, Aw, bw, xw, dev_cur, dx, gdiag, scale, gextra,
+                good = _residual_ok(plan, Aw, bw, xw, dev_cur, dx, gdiag, scale, gw,
                                     bufF[:, :nw], bufS[:, :nw], tol, cmp)[ci]
             else:
                 F = plan.matvec(Aw[:, ci], xw[:, ci])
                 src = np.abs(bw[:, ci]) * scale + np.abs(dev_cur[:, ci])
                 F += dev_cur[:, ci] - bw[:, ci] * scale
-                if gextra:
-                    F += gextra * xw[:-1, ci]
+                if has_g:
+                    F += (gw[ci] if gw.ndim else gw) * xw[:-1, ci]
                 newton = 2.0 * dx[:, ci].max(axis=0) + VNTOL
                 with np.errstate(invalid="ignore"):
                     good = (np.abs(F) <= newton * gdiag[:, ci] + RES_REL * src
@@ -605,7 +610,7 @@ def _residual_ok(plan, A, b, x, dev_cur, dx, gdiag, scale, gextra, F, S, T, cmp)
         np.multiply(b, scale, out=T)       # F += device currents - b scale
         np.subtract(dev_cur, T, out=T)
         F += T
-        if gextra:
+        if np.any(gextra):
             F += gextra * x[:-1]
         newton = 2.0 * dx.max(axis=0) + VNTOL
         np.multiply(newton, gdiag, out=T)  # newton gdiag + RES_REL src + RES_ABS
@@ -911,7 +916,7 @@ def _settle(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its) -> np.ndarray:
     variants one way, odd ones the other: which switched state a unit is in is part of
     the unit), backward-Euler steps with 1 F on every node follow the circuit as it
     leaves: each step solves f(x) + g (x - x_prev) = 0 (Newton with the conductance g
-    from every unknown to its last value) at g twice the largest growth rate (steps
+    from every unknown to its last value) at g twice its own growth rate (steps
     much longer than 1 / rate would hold the saddle) while its steps grow (leaving the
     saddle speeds up; nearing a stable point slows down; at most SETTLE_STEPS), then
     with g falling tenfold a step to nothing, and once at g = 0. A variant whose end
@@ -937,16 +942,16 @@ def _settle(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its) -> np.ndarray:
     rows = np.array(rows)
     x0 = x[:, rows].copy()
     x[:-1, rows] += SETTLE_PUSH * np.array(dirs).T
-    g0 = 2.0 * max(rates)
+    g0 = 2.0 * np.array(rates)             # each variant's step conductance, siemens
     live = rows
     last = np.zeros(rows.size)             # each variant's last step, volts
     for _ in range(SETTLE_STEPS):          # at g0 until each has passed its fastest step
-        b = b_lin.copy()
-        b[:, live] += g0 * x[:-1, live]
-        before = x[:-1, live].copy()
-        good, it = _newton(plan, DP, A_lin, b, x, live, probe, gextra=g0, dense=True)
-        its[live] += it[live]
         k = np.searchsorted(rows, live)
+        b = b_lin.copy()
+        b[:, live] += g0[k] * x[:-1, live]
+        before = x[:-1, live].copy()
+        good, it = _newton(plan, DP, A_lin, b, x, live, probe, gextra=g0[k])
+        its[live] += it[live]
         step = np.max(np.abs(x[:-1, live] - before), axis=0)
         passed = step < last[k]            # slowing down: on its way to a stable point
         last[k] = step
@@ -954,12 +959,13 @@ def _settle(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its) -> np.ndarray:
         if live.size == 0:
             break
     live = np.setdiff1d(rows, live)        # those past their fastest step
-    for g in g0 * 10.0 ** -np.arange(1, 13):   # then g falling to nothing
+    for f in 10.0 ** -np.arange(1, 13):   # then g falling to nothing
         if live.size == 0:
             break
+        g = g0[np.searchsorted(rows, live)] * f
         b = b_lin.copy()
         b[:, live] += g * x[:-1, live]
-        good, it = _newton(plan, DP, A_lin, b, x, live, probe, gextra=g, dense=True)
+        good, it = _newton(plan, DP, A_lin, b, x, live, probe, gextra=g)
         its[live] += it[live]
         live = np.intersect1d(live, good)
     if live.size:
