@@ -978,6 +978,7 @@ def _settle(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its) -> np.ndarray:
     moved[live] = True
     back = ~np.isin(rows, live)
     x[:, rows[back]] = x0[:, back]
+    probe[:, rows] = np.nan        # the steps' probes held g: _floating works them out anew
     return moved
 
 
