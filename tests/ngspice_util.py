@@ -173,12 +173,15 @@ def tran_ac_rms(text: str, source: str, vpk: float, hz: float, nodes: list[str],
 
 
 def tran_from(text: str, start: dict[str, float], node_farads: float, t_end: float,
-              nodes: list[str], timeout: float = 120) -> dict[str, float]:
+              nodes: list[str], timeout: float = 120,
+              extra: tuple[str, ...] = ()) -> dict[str, float]:
     """Node voltages (ngspice names) at t_end of a transient run that starts from `start`
     (node -> volts, `uic`: no operating point is solved first) with `node_farads` from
     every node in `start` to ground standing for the parts' own capacitance. `text` is a
-    netlist as diag.core.spice.netlist writes it (its analyses are dropped)."""
+    netlist as diag.core.spice.netlist writes it (its analyses are dropped); `extra`
+    element lines are added (e.g. a trigger pulse)."""
     body = [ln for ln in text.splitlines() if not ln.lower().startswith((".op", ".ac", ".end"))]
+    body += list(extra)
     for n in start:
         body.append(f"C_par_{n} {n} 0 {node_farads:.6g}")
     body.append(".ic " + " ".join(f"v({n})={v:.9g}" for n, v in start.items()))

@@ -17,6 +17,7 @@ from diag.core import bands, ensemble, faults, netlist, solver, spice
 from diag.core.case import load_case
 
 LATCH = Path(__file__).parent / "data" / "latch.yaml"
+THYRISTOR = Path(__file__).parent / "data" / "thyristor.yaml"
 
 
 def _compiled(path):
@@ -175,3 +176,48 @@ def test_diagnose_and_triage_carry_the_warning(tmp_path):
 
     stable = Engine(load_case(cases_dir() / "line-driver.yaml", RULES), RULES, K=32)
     assert stable.stability_warning() == ""
+
+
+def test_a_thyristor_pair_has_two_stable_states_and_units_in_both(case_paths):
+    # a PNP and an NPN each driving the other's base (a thyristor): off, with both bases
+    # held off by 10 kΩ, and on, each transistor keeping the other saturated; neither is
+    # a saddle, so only a second start finds the on state
+    circ = _compiled(THYRISTOR)
+    assert solver.two_states(circ)
+    for path in case_paths:
+        assert not solver.two_states(_compiled(path)), path
+    assert not solver.two_states(_compiled(LATCH))     # its balance point is _settle's
+    params = ensemble.draw_unit(circ, faults.healthy_spec(), 8, np.random.default_rng(2))
+    dc = solver.solve_dc(circ, params)
+    assert dc.ok.all() and not solver.saddle(circ, params, dc).any()
+    np.testing.assert_array_equal(dc.settled, np.arange(8) % 2 == 1)
+    reg = solver.regions(circ, params, dc)
+    for q in range(8):
+        want = "saturated" if q % 2 else "off"
+        assert reg["Q1"][q] == want and reg["Q2"][q] == want, (q, reg)
+    res = bands.healthy_bands(load_case(THYRISTOR, RULES), RULES, K=8)
+    assert res.switched and "two switched states" in res.stability_text()
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("trigger", [False, True])
+def test_ngspice_holds_the_thyristor_in_the_state_it_is_put_in(ngspice, trigger):
+    """ngspice's transient run from diag's off state (1 nF from every node to ground)
+    stays there, and with a 1 mA, 10 µs pulse into the NPN's base it ends in the on
+    state, to 5 mV at every node of diag's other state (the state a unit is in depends on
+    its history: that is why diag draws both)."""
+    from ngspice_util import tran_from
+
+    circ = _compiled(THYRISTOR)
+    two = solver.solve_dc(circ, {"RL.r": np.full(2, circ.nominal["RL.r"])})
+    assert list(two.settled) == [False, True]
+    nodes = list(circ.case.nodes)
+    names = {n: spice.node_name(circ.case, n) for n in nodes}
+    off = {n: float(two.v[0, circ.node_index[n]]) for n in nodes}
+    on = {n: float(two.v[1, circ.node_index[n]]) for n in nodes}
+    pulse = (f"I_trig 0 {names['b2']} PULSE(0 1m 1e-4 1e-7 1e-7 1e-5 1)",) if trigger else ()
+    end = tran_from(spice.netlist(circ, {}), {names[n]: off[n] for n in nodes}, 1e-9,
+                    5e-3, [names[n] for n in nodes], extra=pulse)
+    want = on if trigger else off
+    for n in nodes:
+        assert end[names[n]] == pytest.approx(want[n], abs=5e-3), (n, end, want)

@@ -198,16 +198,19 @@ def case_cautions(case: Case) -> tuple[str, ...]:
 
 
 def stability_text(saddle: bool, switched: bool = False) -> str:
-    """What to say about a circuit whose DC solution was a balance point a real unit
-    leaves (solver.saddle): `switched`, it was moved to a switched state beside it
-    (solver.solve_dc); `saddle`, it could not be and is still there; "" for neither."""
+    """What to say about a circuit with two switched states: `switched`, diag draws its
+    units in both (solver.solve_dc: off the balance point a real unit leaves, or into
+    the other stable state); `saddle`, its solution is a balance point (solver.saddle)
+    that could not be left; "" for neither."""
     if switched:
         return ("Operating point: this circuit has two switched states (a loop in it has a "
-                "gain above one at DC: a latch, a flip-flop, or a trigger whose input sits "
-                "inside its hysteresis). The balance point between them is one no working "
-                "unit stays at, so diag puts each drawn unit in one of the states, half "
-                "each way: the bands cover both, and the nominal column shows one of them. "
-                "A unit's readings tell which state it is in.")
+                "gain above one at DC: a latch, a flip-flop, a thyristor pair, or a trigger "
+                "whose input sits inside its hysteresis), and which one a unit is in "
+                "depends on its history, not on its parts. diag puts each drawn unit in one "
+                "of them, half each way (off the balance point between them, where no "
+                "working unit stays, when that is where the solver lands), so the bands "
+                "cover both and the nominal column shows one of them. A unit's readings "
+                "tell which state it is in.")
     if not saddle:
         return ""
     return ("Operating point: the balance point diag solved is unstable. A loop in this "
@@ -263,7 +266,7 @@ def healthy_bands(case: Case, rules: Any = None, K: int = 400, seed: int = 0) ->
                        failed=tuple(failed), cautions=case_cautions(case), K=K, seed=seed,
                        nominal_ok=bool(dc0.ok[0]), nominal_why=dc0.why[0],
                        drive=junction_drive(circuit, dc0, ac0, regions) if has_ac else {},
-                       switched=bool(dc0.settled[0]),
+                       switched=bool(dc0.settled[0]) or solver.two_states(circuit),
                        saddle=bool(solver.saddle(circuit, {}, dc0)[0]),
                        **(level_sweep(circuit, dc0, ac0) if has_ac else {}))
 

@@ -215,7 +215,7 @@ def ids_index(specs, fault_id: str) -> int | None:
 
 
 # Bumped when the cached arrays change meaning (the cache key also holds both hashes).
-CACHE_VERSION = "e18"
+CACHE_VERSION = "e19"
 # Most on-demand hypotheses (pairs) kept in the extra cache file (14 kB each at K=128).
 EXTRA_KEEP = 2000
 # Most goodness-of-fit references kept in memory (Engine._fit; about R + K*d floats each).
@@ -576,7 +576,8 @@ class Engine:
             circ = self.circuit
             dc = solver.solve_dc(circ, {})
             self._stability_warning = bands.stability_text(
-                bool(solver.saddle(circ, {}, dc)[0]), bool(dc.settled[0]))
+                bool(solver.saddle(circ, {}, dc)[0]),
+                bool(dc.settled[0]) or solver.two_states(circ))
         return self._stability_warning
 
     def bands(self, fault_id: str = "healthy") -> tuple[Band, ...]:

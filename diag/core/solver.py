@@ -49,6 +49,10 @@ SADDLE_S = 1e6            # past every growth rate: this many times the largest
                           # conductance in the Jacobian, per farad (saddle)
 SETTLE_PUSH = 1e-3        # volts at the largest node: the first push off a saddle (_settle)
 SETTLE_STEPS = 200        # most backward-Euler steps at twice the growth rate
+ALT_JUNCTION = 0.7        # volts: every junction forward at the first iteration of the
+                          # search for a second stable state (_alternate_x)
+ALT_VOLTS = 0.01          # volts: two solutions further apart at some node are distinct
+                          # (Newton's tolerance is under a millivolt at these levels)
 FLOAT_OHMS = 3e8          # a node whose resistance to ground exceeds this floats (opens: >=1e9)
 GMIN_STEPS = (1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10)   # siemens, then 0
 SOURCE_STEPS = tuple(np.linspace(0.0, 1.0, 21)[1:-1])              # then the full sources
@@ -68,8 +72,9 @@ class DCResult:
                such as a floating node when ok)
     iterations (B,) Newton iterations used
     x          (B, n_unknowns) volts at every unknown (internal nodes included)
-    settled    (B,) bool, the variant's first solution was a balance point a real unit
-               leaves (a saddle) and x is a stable point beside it (solve_dc)
+    settled    (B,) bool, diag put the variant in a switched state of its choosing: its
+               first solution was a balance point a real unit leaves (a saddle), or the
+               circuit has two stable states and this is the other one (solve_dc)
     """
 
     v: np.ndarray
@@ -637,6 +642,72 @@ def _nominal_x(circuit: Circuit, plan: _Plan) -> np.ndarray:
     return x0
 
 
+def _alternate_x(circuit: Circuit, plan: _Plan) -> np.ndarray | None:
+    """A second stable operating point of the nominal circuit (n+1,), or None; cached on
+    the circuit. Newton from every junction forward-biased (ALT_JUNCTION volts at the
+    first iteration) ends, for a circuit with one operating point, where the nominal
+    start does; a latch with a stable off state (a thyristor pair) is found on. Kept
+    when it is more than ALT_VOLTS from the nominal point at some node and neither is a
+    saddle (a balance point is `_settle`'s)."""
+    if "x_alternate" in circuit.cache:
+        return circuit.cache["x_alternate"]
+    x0 = _nominal_x(circuit, plan)
+    B, P = _batch(circuit, None)
+    DP = _prepared(plan, P)
+    A_lin, b_lin = _linear(circuit, plan, P, 1, None)
+    DPn = _nominal_dp(circuit, plan)
+    start = [tuple(np.full(np.shape(j), ALT_JUNCTION) for j in
+                   dev.start(DP[q], DPn[q], x0[idx][:, None]))
+             for q, (_, dev, idx) in enumerate(plan.devices)]
+    x = np.zeros((plan.n + 1, 1))
+    probe = np.full((plan.n, 1), np.nan)
+    with np.errstate(all="ignore"):
+        ok, _ = _robust(plan, DP, A_lin, b_lin, x, np.arange(1),
+                        np.zeros((plan.n + 1, 1)), probe, start)
+        out = None
+        if ok[0] and np.max(np.abs(x[:circuit.n_nodes, 0] - x0[:circuit.n_nodes])) > ALT_VOLTS:
+            both = np.column_stack([x0, x[:, 0]])
+            J = _jacobian(circuit, plan, DP, np.repeat(A_lin, 2, axis=1), both, np.arange(2))
+            if not _saddle(plan, J, circuit.n_nodes).any():
+                out = x[:, 0].copy()
+    circuit.cache["x_alternate"] = out
+    return out
+
+
+def two_states(circuit: Circuit) -> bool:
+    """Whether the nominal circuit has a second stable operating point besides the one
+    the nominal start finds (`_alternate_x`: a latch with a stable off state)."""
+    return _alternate_x(circuit, _plan(circuit)) is not None
+
+
+def _other_state(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its) -> np.ndarray:
+    """Put the odd-numbered variants of x (n+1, B) in the circuit's other stable state
+    (`_alternate_x`), in place, where Newton from it converges to a point that is not a
+    saddle; returns (B,) bool, the variants moved."""
+    B = x.shape[1]
+    moved = np.zeros(B, dtype=bool)
+    xa = _alternate_x(circuit, plan)
+    if xa is None:
+        return moved
+    rows = np.flatnonzero(ok)
+    rows = rows[rows % 2 == 1]
+    if rows.size == 0:
+        return moved
+    x0 = x[:, rows].copy()
+    x[:, rows] = xa[:, None]
+    good, it = _newton(plan, DP, A_lin, b_lin, x, rows, probe)
+    its[rows] += it[rows]
+    if good.size:
+        still = _saddle(plan, _jacobian(circuit, plan, DP, A_lin, x, good), circuit.n_nodes)
+        good = good[~still]
+        moved[good] = np.max(np.abs(x[:circuit.n_nodes, good] - x0[:circuit.n_nodes,
+                             np.searchsorted(rows, good)]), axis=0) > ALT_VOLTS
+    back = ~moved[rows]
+    x[:, rows[back]] = x0[:, back]
+    probe[:, rows] = np.nan
+    return moved
+
+
 def _robust(plan, DP, A_lin, b_lin, x, act, x_start, probe, start=None):
     """Newton from x on `act`, then gmin stepping, then source stepping for the rest.
     Returns (ok (B,), iterations (B,)); x holds the accepted solutions."""
@@ -689,7 +760,9 @@ def solve_dc(circuit: Circuit, params: Mapping[str, object] | None = None, *,
 
     A solution from the nominal start that is a balance point a real unit leaves (a
     latch between its states: `saddle`) is moved to a stable point beside it, half the
-    variants each way (`_settle`; DCResult.settled), unless `settle` is False; a solve
+    variants each way (`_settle`); in a circuit with two stable states (`two_states`)
+    the odd-numbered variants are put in the other one (`_other_state`); both show in
+    DCResult.settled. `settle` False leaves every solution where it lands; a solve
     from `x_start` is left where it lands (its caller chose the start: the same state
     under a meter's load or through a tone)."""
     load_idx = _load_index(circuit, load)
@@ -718,8 +791,11 @@ def solve_dc(circuit: Circuit, params: Mapping[str, object] | None = None, *,
         x[:-1, fin] = xs0[:, fin]
         start = None
     ok, its = _robust(plan, DP, A_lin, b_lin, x, np.arange(B), x0[:, None], probe, start)
-    settled = (_settle(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its)
-               if x_start is None and settle else np.zeros(B, dtype=bool))
+    settled = np.zeros(B, dtype=bool)
+    if x_start is None and settle:
+        settled = _settle(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its)
+        settled |= _other_state(circuit, plan, DP, A_lin, b_lin, x, ok & ~settled, probe,
+                                its)
     why: list = [None] * B
     for q in np.flatnonzero(~ok):
         why[q] = ("did not converge: no consistent DC operating point found "
