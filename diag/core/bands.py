@@ -197,6 +197,16 @@ def case_cautions(case: Case) -> tuple[str, ...]:
     return tuple(out)
 
 
+def stability(circuit: Any, dc: Any) -> dict[str, bool]:
+    """{"saddle", "switched"} of the nominal solution `dc` (one variant) of `circuit`,
+    for `stability_text`: a balance point left in place, and a circuit diag draws in two
+    switched states (solver.solve_dc's settling, or solver.two_states)."""
+    from diag.core import solver
+
+    return {"saddle": bool(solver.saddle(circuit, {}, dc)[0]),
+            "switched": bool(dc.settled[0]) or solver.two_states(circuit)}
+
+
 def stability_text(saddle: bool, switched: bool = False) -> str:
     """What to say about a circuit with two switched states: `switched`, diag draws its
     units in both (solver.solve_dc: off the balance point a real unit leaves, or into
@@ -266,8 +276,7 @@ def healthy_bands(case: Case, rules: Any = None, K: int = 400, seed: int = 0) ->
                        failed=tuple(failed), cautions=case_cautions(case), K=K, seed=seed,
                        nominal_ok=bool(dc0.ok[0]), nominal_why=dc0.why[0],
                        drive=junction_drive(circuit, dc0, ac0, regions) if has_ac else {},
-                       switched=bool(dc0.settled[0]) or solver.two_states(circuit),
-                       saddle=bool(solver.saddle(circuit, {}, dc0)[0]),
+                       **stability(circuit, dc0),
                        **(level_sweep(circuit, dc0, ac0) if has_ac else {}))
 
 

@@ -568,16 +568,14 @@ class Engine:
         return self._signal_warning
 
     def stability_warning(self) -> str:
-        """bands.CheckResult.stability_text of the nominal circuit: "" unless its
-        operating point is one a real unit leaves (worked out once)."""
+        """bands.CheckResult.stability_text of the nominal circuit: "" unless it has two
+        switched states or a balance point a real unit leaves (worked out once)."""
         if self._stability_warning is None:
             from diag.core import bands, solver
 
             circ = self.circuit
-            dc = solver.solve_dc(circ, {})
             self._stability_warning = bands.stability_text(
-                bool(solver.saddle(circ, {}, dc)[0]),
-                bool(dc.settled[0]) or solver.two_states(circ))
+                **bands.stability(circ, solver.solve_dc(circ, {})))
         return self._stability_warning
 
     def bands(self, fault_id: str = "healthy") -> tuple[Band, ...]:
