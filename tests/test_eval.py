@@ -416,7 +416,8 @@ def test_selfcheck_counts_every_single_hypothesis_and_tabulates_by_mode():
 
 @pytest.mark.ngspice
 def test_a_latch_is_powered_up_into_one_of_its_states():
-    # ngspice's operating point of a two-transistor latch can be the balance point
+    # ngspice (the reference simulator that generates the units) can solve a
+    # two-transistor latch's operating point at the balance point
     # between its states (both collectors near 1.6 V), where no real unit stays. The
     # generator powers each unit up first (eval/unit.py power_up_deck: a transient from
     # the operating point with a small kick), so every healthy unit reads one transistor

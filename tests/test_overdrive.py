@@ -150,9 +150,10 @@ def test_a_tone_through_a_saturated_base_collector_junction(ngspice, fault):
 
 def test_a_saturated_unit_keeps_its_points_in_step():
     # TP6 (the upper collector) and TP7 (the output, through a 1 µF coupling capacitor
-    # into 22 kΩ) carry the same tone. How far the tone swings a saturated stage is one
-    # unknown of the part, so each unit's readings at both sit at the same ratio to their
-    # small-signal figures, anywhere from 1 to the pass's r (about 1.5 here)
+    # into 22 kΩ: 159 Ω of reactance at 1 kHz, 1/(2πfC), handbook) carry the same
+    # tone. How far the tone swings a saturated stage is one unknown of the part, so
+    # each unit's readings at both sit at the same ratio to their small-signal figures,
+    # anywhere from 1 to the pass's r (about 1.5 here)
     case, circ, params, dc, ac = _drawn(CASCODE, "R5:short", 64, 3)
     obs = [case.observables[m] for m in overdrive.swung(case, case.observables)]
     small = meter.observe(circ, params, dc, ac, obs, case.meter, large_signal=False)
@@ -271,7 +272,9 @@ def test_the_four_phase_reference_run_matches_the_full_one(monkeypatch, case_fil
     linear. Against the reference run at PHASES for every unit (ODD_TOL below zero
     forces that): within 1e-3 in ln r (the bound the tolerances are derived for, in
     largesignal.py), and the saturated stage's units whose run sits on a kink take the
-    full run (their four-phase figure alone was 14 % off)."""
+    full run (their four-phase figure alone was 14 % off). The reference is the pass's own
+    run at PHASES; the bounds come from the handbook identity sin³ = (3 sin − sin 3φ)/4
+    and the rms of a second harmonic adding in quadrature (largesignal.py)."""
     case, circ, params, dc, ac = _drawn(case_file, fault, 12, 1)
     obs = [case.observables[m] for m in overdrive.swung(case, case.observables)]
     pairs = overdrive.node_pairs(case, obs)

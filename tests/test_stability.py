@@ -48,7 +48,8 @@ def _growing(circ, params, dc) -> np.ndarray:
 
 def test_every_bundled_case_is_stable(case_paths):
     # every bundled circuit is an amplifier, regulator or switch driven from outside:
-    # no growing mode at the nominal point or in 16 healthy units
+    # no growing mode at the nominal point or in 16 healthy units, by the determinant
+    # test and by scipy's generalized eigenvalues (_growing)
     for path in case_paths:
         circ = _compiled(path)
         dc = solver.solve_dc(circ, {})
@@ -77,7 +78,9 @@ def test_the_latch_balance_point_is_a_saddle_and_settles_both_ways():
     assert np.all(_growing(circ, params, dcs) == 0)
     c1, c2 = dcs.v[:, circ.node_index["c1"]], dcs.v[:, circ.node_index["c2"]]
     # one transistor saturated (its collector under 0.2 V), the other off (its LED lit
-    # from the collector side: above 6 V), half the units each way, alternating
+    # from the collector side: above 6 V), half the units each way, alternating (the
+    # thresholds: common practice, no source; the states themselves are checked against
+    # ngspice below)
     on1 = c1 < 0.2
     assert np.all(on1 ^ (c2 < 0.2)) and np.all(np.where(on1, c2, c1) > 6.0)
     assert on1[1::2].all() and not on1[0::2].any()
@@ -90,7 +93,7 @@ def test_the_latch_balance_point_is_a_saddle_and_settles_both_ways():
 def test_the_determinant_test_agrees_with_the_growth_rates_on_faulty_units(case_paths):
     # over every modelled fault of three cases (shorts and opens move conductances by
     # decades, the determinant's range with them): saddle is True exactly when the
-    # count of growing modes is odd
+    # count of growing modes scipy's generalized eigenvalues give is odd
     from diag.core.engine import Engine
 
     for name in ("mic-preamp.yaml", "pushpull-output.yaml", "series-regulator.yaml"):
@@ -108,6 +111,8 @@ def test_the_determinant_test_agrees_with_the_growth_rates_on_faulty_units(case_
 
 
 def test_check_says_so_and_its_bands_cover_both_states():
+    # diag's own report (common practice, no source): the band of a collector of a
+    # latch runs from saturated (under 0.2 V) to off (above 6 V)
     res = bands.healthy_bands(load_case(LATCH, RULES), RULES, K=16)
     assert res.switched and not res.saddle
     js = res.to_json()
@@ -158,6 +163,7 @@ def test_ngspice_leaves_the_balance_point_for_a_state_diag_settles_in(ngspice, o
 
 
 def test_diagnose_and_triage_carry_the_warning(tmp_path):
+    # diag's own output carries the note (common practice, no source)
     from diag.core import triage
     from diag.core.engine import Engine
 
@@ -180,8 +186,9 @@ def test_diagnose_and_triage_carry_the_warning(tmp_path):
 
 def test_a_thyristor_pair_has_two_stable_states_and_units_in_both(case_paths):
     # a PNP and an NPN each driving the other's base (a thyristor): off, with both bases
-    # held off by 10 kΩ, and on, each transistor keeping the other saturated; neither is
-    # a saddle, so only a second start finds the on state
+    # held off by 10 kΩ, and on, each transistor keeping the other saturated (common
+    # practice, no source; both states against ngspice below); neither is a saddle, so
+    # only a second start finds the on state
     circ = _compiled(THYRISTOR)
     assert solver.two_states(circ)
     for path in case_paths:

@@ -89,7 +89,8 @@ def _param(circuit: Any, params: Mapping[str, Any], name: str, B: int) -> np.nda
     return np.broadcast_to(np.asarray(params.get(name, circuit.nominal[name]), float), (B,))
 
 
-def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
+def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
+                   regions: Mapping[str, np.ndarray] | None = None
                    ) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """Transistor ref -> (signal across its base-emitter junction, volts rms, (B,); the
     second harmonic its stage makes, a fraction of the fundamental, (B,)). A conducting
@@ -97,13 +98,15 @@ def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
     harmonic of about v / (4 N VT) (the exponential's Taylor series); an emitter that
     follows the signal (an unbypassed emitter resistor, a follower) is series feedback and
     divides it by 1 + v_e / v_be (negative feedback divides distortion by 1 + loop gain,
-    handbook). 0 where the transistor does not conduct."""
+    handbook). 0 where the transistor does not conduct. `regions` (solver.regions) when
+    the caller has them."""
     from diag.core import solver
     from diag.core.parts.base import VT
 
     case = circuit.case
     B = ac.v.shape[0]
-    regions = solver.regions(circuit, params, dc)
+    if regions is None:
+        regions = solver.regions(circuit, params, dc)
 
     def v(node: str) -> np.ndarray:
         return solver.node_v(circuit, ac.v, node)
@@ -122,8 +125,8 @@ def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
     return out
 
 
-def saturation_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
-                     ) -> np.ndarray:
+def saturation_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
+                     regions: Mapping[str, np.ndarray] | None = None) -> np.ndarray:
     """The largest second harmonic (B,), a fraction of the fundamental, that the tone
     makes at the base-collector junction of a saturated transistor: saturated, that
     junction conducts too, i = I0 exp(v / (NR VT)), and a sine of peak v across it makes
@@ -137,7 +140,8 @@ def saturation_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any
     from diag.core.parts.base import VT
 
     B = ac.v.shape[0]
-    regions = solver.regions(circuit, params, dc)
+    if regions is None:
+        regions = solver.regions(circuit, params, dc)
     worst = np.zeros(B)
     for part in circuit.case.parts:
         if part.kind not in ("npn", "pnp"):
@@ -196,10 +200,13 @@ def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     out = limit(readings, cols, span, draws)  # the fallback where the pass fails
     a = np.asarray(readings, float)[:, cols]
     g = overdrive_of(a, span)
-    drive = junction_drive(circuit, params, dc, ac)
+    from diag.core import solver
+
+    regions = solver.regions(circuit, params, dc)    # once, for both junction tests
+    drive = junction_drive(circuit, params, dc, ac, regions)
     worst = np.max(np.stack([h for _, h in drive.values()]), axis=0) if drive \
         else np.zeros(B)
-    sat = saturation_drive(circuit, params, dc, ac) > ONSET
+    sat = saturation_drive(circuit, params, dc, ac, regions) > ONSET
     rows = np.flatnonzero(np.asarray(dc.ok, bool) & ((g > FLOOR) | (worst > ONSET) | sat))
     if not rows.size:
         return out

@@ -927,11 +927,6 @@ def saddle(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult
     return out
 
 
-def _dense_jacobian(circuit, plan, DP, A_lin, x, act) -> np.ndarray:
-    """(Ba, n, n) dense DC Jacobians at x (n+1, B) for variants act."""
-    return plan.dense(_jacobian(circuit, plan, DP, A_lin, x, act))
-
-
 def _det_sign(plan, M: np.ndarray) -> np.ndarray:
     """(B,) sign of det of each matrix of pattern values M (nz, B): the product of the
     signs of its LU pivots (the elimination order permutes rows and columns alike, so
@@ -984,6 +979,17 @@ def _growing(J: np.ndarray, n_nodes: int) -> tuple[np.ndarray, float] | None:
     return d / big * np.sign(first), -1.0 / float(mu.real[k])
 
 
+def _pulled(plan, DP, A_lin, b_lin, x, live, probe, g, its) -> np.ndarray:
+    """One backward-Euler step of the variants `live` of x (n+1, B), in place: Newton on
+    f(x) + g (x - x_prev) = 0, g (siemens, one per variant of live) from every unknown
+    to its value now. Returns the variants that converged; adds to `its`."""
+    b = b_lin.copy()
+    b[:, live] += g * x[:-1, live]
+    good, it = _newton(plan, DP, A_lin, b, x, live, probe, gextra=g)
+    its[live] += it[live]
+    return good
+
+
 def _settle(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its) -> np.ndarray:
     """Move the variants of x (n+1, B) whose solution is a saddle (`saddle`) to the
     stable point it leads to, in place, and return (B,) bool, the variants moved.
@@ -1006,7 +1012,7 @@ def _settle(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its) -> np.ndarray:
     if not sad.any():
         return moved
     rows, dirs, rates = [], [], []
-    J = _dense_jacobian(circuit, plan, DP, A_lin, x, act[sad])
+    J = plan.dense(_jacobian(circuit, plan, DP, A_lin, x, act[sad]))
     for q, Jq in zip(act[sad], J, strict=True):
         got = _growing(Jq, circuit.n_nodes)
         if got is not None:
@@ -1023,11 +1029,8 @@ def _settle(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its) -> np.ndarray:
     last = np.zeros(rows.size)             # each variant's last step, volts
     for _ in range(SETTLE_STEPS):          # at g0 until each has passed its fastest step
         k = np.searchsorted(rows, live)
-        b = b_lin.copy()
-        b[:, live] += g0[k] * x[:-1, live]
         before = x[:-1, live].copy()
-        good, it = _newton(plan, DP, A_lin, b, x, live, probe, gextra=g0[k])
-        its[live] += it[live]
+        good = _pulled(plan, DP, A_lin, b_lin, x, live, probe, g0[k], its)
         step = np.max(np.abs(x[:-1, live] - before), axis=0)
         passed = step < last[k]            # slowing down: on its way to a stable point
         last[k] = step
@@ -1038,11 +1041,8 @@ def _settle(circuit, plan, DP, A_lin, b_lin, x, ok, probe, its) -> np.ndarray:
     for f in 10.0 ** -np.arange(1, 13):   # then g falling to nothing
         if live.size == 0:
             break
-        g = g0[np.searchsorted(rows, live)] * f
-        b = b_lin.copy()
-        b[:, live] += g * x[:-1, live]
-        good, it = _newton(plan, DP, A_lin, b, x, live, probe, gextra=g)
-        its[live] += it[live]
+        good = _pulled(plan, DP, A_lin, b_lin, x, live, probe,
+                       g0[np.searchsorted(rows, live)] * f, its)
         live = np.intersect1d(live, good)
     if live.size:
         good, it = _newton(plan, DP, A_lin, b_lin, x, live, probe, dense=True)
