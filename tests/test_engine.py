@@ -7,6 +7,7 @@ import shutil
 import numpy as np
 import pytest
 
+from diag.core import workers
 from diag.core.case import load_case
 from diag.core.engine import Engine, Reading
 from diag.core.errors import DiagError
@@ -384,12 +385,16 @@ def test_cache_keeps_only_the_newest_ensembles(tmp_path):
     assert (tmp_path / "session.json").exists()
 
 
-def test_build_does_not_depend_on_threads_or_chunks():
+@pytest.mark.parametrize("processes", [False, True])
+def test_build_does_not_depend_on_threads_processes_or_chunks(processes):
     """Each hypothesis draws from its own random stream and the solver keeps its work
-    buffers per thread, so solving in parallel chunks gives the same arrays."""
+    buffers per thread, so solving in parallel chunks, on threads or forked processes,
+    gives the same arrays."""
+    if processes and not workers.forkable():
+        pytest.skip("worker processes are forked on Linux only, from a single thread")
     e = Engine(load_case(RELAY), K=16)
     one = e._solve(e.specs, 16, threads=1, chunk=16)
-    two = e._solve(e.specs, 16, threads=2, chunk=5)
+    two = e._solve(e.specs, 16, threads=2, chunk=5, processes=processes)
     for a, b in zip(one[:2], two[:2], strict=True):
         np.testing.assert_array_equal(a, b)
     assert one[2] == two[2]

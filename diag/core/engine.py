@@ -332,25 +332,28 @@ class Engine:
         return a, b
 
     def _solve(self, specs, K: int, progress=None, cancelled=None, chunk: int | None = None,
-               threads: int | None = None):
+               threads: int | None = None, processes: bool | None = None):
         """Meter readings (H, K, M) of K units per spec, and the hidden readings
         (H, K, X) with their names; progress over chunks of hypotheses. Chunks are
-        solved on `threads` worker threads (default: the CPU count, at most 2; the
-        solver keeps its work buffers per thread and every hypothesis draws from its own
-        random stream, so the result does not depend on the thread count or the chunk).
-        Default chunk: 16 hypotheses on one thread; with more, one chunk per thread
-        (the solver's Python overhead holds the interpreter lock, so large chunks that
-        spend their time in numpy overlap best: 0.41 s against 0.54 s on mic-preamp)."""
-        from concurrent.futures import ThreadPoolExecutor
-
-        from diag.core import ensemble, meter, solver
+        solved by `threads` workers (default: the CPU count, at most 2), forked processes
+        where that is safe, else threads (diag.core.workers; `processes` forces one or the
+        other). Every hypothesis draws from its own random stream and the solver keeps
+        its work buffers per thread, so the result depends on none of these. Default
+        chunk: 16 hypotheses on one worker; with more, one chunk per worker (large
+        chunks spend their time in numpy rather than in Python)."""
+        from diag.core import ensemble, meter, solver, workers
 
         circ = self.circuit
         need_ac = any(o.kind == "ac" for o in self.observables) or self.case.signal is not None
 
-        def one(block):
-            if cancelled is not None and cancelled():
-                raise DiagError("ensemble build cancelled")
+        if threads is None:
+            threads = max(1, min(2, os.cpu_count() or 1))
+        if chunk is None:
+            chunk = 16 if threads <= 1 else max(1, -(-len(specs) // threads))
+        blocks = [specs[i:i + chunk] for i in range(0, len(specs), chunk)]
+
+        def one(i):
+            block = blocks[i]
             params = ensemble.draw_hypotheses(circ, block, K, self.seed,
                                               self.inf.get("ambient"))
             with np.errstate(all="ignore"):  # a failed variant is data (NaN), not an error
@@ -366,27 +369,13 @@ class Engine:
             h[~ok] = np.nan
             return x.reshape(len(block), K, -1), h.reshape(len(block), K, -1)
 
-        if threads is None:
-            threads = max(1, min(2, os.cpu_count() or 1))
-        if chunk is None:
-            chunk = 16 if threads <= 1 else max(1, -(-len(specs) // threads))
-        blocks = [specs[i:i + chunk] for i in range(0, len(specs), chunk)]
-        outs, hid = [], []
-        done = 0
-        with ThreadPoolExecutor(max_workers=max(1, min(threads, len(blocks)))) as pool:
-            futures = [pool.submit(one, b) for b in blocks]
-            try:
-                for b, f in zip(blocks, futures, strict=True):
-                    x, h = f.result()
-                    outs.append(x)
-                    hid.append(h)
-                    done += len(b)
-                    if progress is not None:
-                        progress(min(1.0, done / len(specs)))
-            except BaseException:
-                for f in futures:
-                    f.cancel()
-                raise
+        ends = np.cumsum([len(b) for b in blocks])
+        got = workers.run(one, len(blocks), threads,
+                          None if progress is None
+                          else (lambda i: progress(min(1.0, ends[i] / len(specs)))),
+                          cancelled, processes)
+        outs = [x for x, _ in got]
+        hid = [h for _, h in got]
         names = [f"dc {n}" for n in circ.nodes]
         if need_ac:
             names += [f"ac {n}" for n in circ.nodes]

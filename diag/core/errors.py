@@ -29,6 +29,17 @@ class DiagError(Exception):
         tail = f" ({self.hint})" if self.hint else ""
         return f"{loc}{who}{self.message}{tail}"
 
+    def __reduce__(self):
+        # whole, fields and all, across a process boundary (diag.core.workers)
+        return _restore, (type(self), dict(self.__dict__))
+
+
+def _restore(cls: type, state: dict) -> DiagError:
+    err = cls.__new__(cls)
+    err.__dict__.update(state)
+    Exception.__init__(err, str(err))
+    return err
+
 
 class CaseErrors(DiagError):
     """Several problems found in one file; `errors` holds each as a DiagError."""
