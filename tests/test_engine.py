@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import math
 import shutil
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -186,6 +188,40 @@ def test_bench_notes_from_readings_alone(eng):
     text = " ".join(d.notes)
     assert "sits at vcc" in text and "off" in text
     assert d.to_json("x")["notes"] == list(d.notes)
+
+
+def test_junction_notes_follow_the_transistor_s_material():
+    """A germanium card (tests/data/ge-pnp-stage.yaml, IS 0.3 µA) drops
+    VT ln(1 + 1 mA / 0.3 µA) = 0.21 V at 1 mA (Shockley diode law, handbook; VT from
+    CODATA constants at 27 °C), nearest rules/checks.yaml's germanium figure: its 0.2 V
+    base to emitter is a conducting germanium junction, not a silicon one that is off
+    (the figures: common practice, no source). The generic silicon cards stay silicon."""
+    from scipy import constants
+
+    from diag.core import notes
+    from diag.core.rules import load_rules
+
+    rules = load_rules()
+    case = load_case(Path(__file__).parent / "data" / "ge-pnp-stage.yaml", rules)
+    q1 = next(p for p in case.parts if p.ref == "Q1")
+    vt = constants.k * (27 + constants.zero_Celsius) / constants.e
+    assert vt * math.log1p(1e-3 / 3e-7) == pytest.approx(0.2098, abs=2e-4)
+    mats = rules["checks"]["materials"]
+    assert notes.material(q1, mats) == "germanium"
+    for c in (load_case(p, rules) for p in sorted(cases_dir().glob("*.yaml"))):
+        assert {notes.material(p, mats) for p in c.parts if p.kind in ("npn", "pnp")} \
+            <= {"silicon"}
+    # PNP on a negative rail: base -0.93 V, emitter -0.73 V
+    got = " ".join(notes.bench_notes(case, rules, [Reading("TP2", "dc", -0.93),
+                                                   Reading("TP3", "dc", -0.73)]))
+    assert "Q1: base-emitter reads 0.2 V" in got and "conducting germanium junction" in got
+    assert "silicon" not in got and " off " not in got
+    got = " ".join(notes.bench_notes(case, rules, [Reading("TP2", "dc", -0.73),
+                                                   Reading("TP3", "dc", -0.73)]))
+    assert "too little for a germanium junction to conduct" in got
+    got = " ".join(notes.bench_notes(case, rules, [Reading("TP2", "dc", -1.5),
+                                                   Reading("TP3", "dc", -0.7)]))
+    assert "more than a germanium junction drops" in got
 
 
 def test_a_note_is_stated_only_when_the_meter_band_lies_inside_its_range(eng):

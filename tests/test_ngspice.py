@@ -23,6 +23,7 @@ from diag.core.case import load_case
 from diag.core.netlist import compile_case
 from diag.core.rules import load_rules
 
+DATA = CASES_DIR.parent / "tests" / "data"
 V_ATOL, V_RTOL = 1e-3, 2e-3      # volts; the project's agreement target with ngspice
 I_ATOL, I_RTOL = 1e-6, 2e-3      # amperes
 AC_RTOL = 1e-2
@@ -146,6 +147,25 @@ def test_operating_point_matches_ngspice(case_path, ngspice, runs):
         assert dc.ok[b], f"{label}: diag did not converge: {dc.why[b]}"
     bad = _dc_off(case, circuit, labels, dc, ref)
     assert not bad, "\n".join(bad)
+
+
+@pytest.mark.ngspice
+def test_germanium_card_on_a_negative_rail_matches_ngspice(ngspice, runs):
+    """A germanium PNP card typed in by hand (IS 0.3 µA, tests/data/ge-pnp-stage.yaml),
+    the battery's positive terminal on the chassis: every node's DC voltage, the supply
+    current and the AC magnitudes of each variant as ngspice gives them, and the nominal
+    unit's base-emitter junction at about 0.2 V (ngspice), not a silicon 0.6 V."""
+    path = DATA / "ge-pnp-stage.yaml"
+    case, circuit, labels, params, dc, ac, ref = _cached(runs, path, ngspice)
+    assert all(dc.ok), [dc.why[b] for b in range(len(labels)) if not dc.ok[b]]
+    bad = _dc_off(case, circuit, labels, dc, ref) + _ac_off(case, circuit, labels, ac, ref)
+    for b, label in enumerate(labels):
+        ours, theirs = dc.i_supply[b, 0], -ref.i(spice.source_name("V1", b))
+        if abs(ours - theirs) > max(I_ATOL, I_RTOL * abs(theirs)):
+            bad.append(f"{label}: V1 diag {ours:.6g} A, ngspice {theirs:.6g} A")
+    assert not bad, "\n".join(bad)
+    vbe = ref.v(spice.node_name(case, "emit", 0)) - ref.v(spice.node_name(case, "base", 0))
+    assert 0.15 < vbe < 0.25
 
 
 @pytest.mark.ngspice

@@ -7,7 +7,9 @@ the whole band the reading could be in (value ± the meter's bound, summed over 
 readings used) lies inside the check's range; a difference of two readings too coarse
 for that says so, and names the reading that would settle it. In a circuit with nothing
 below ground, a DC reading below 0 V by more than the meter's bound is named first.
-Nothing here consults the model: these are what a technician would say looking at the meter.
+Nothing here consults the simulation: these are what a technician would say looking at
+the meter, knowing what each part is (a check may apply to one junction material only;
+`material` tells a transistor's from its card).
 """
 
 from __future__ import annotations
@@ -90,15 +92,32 @@ def _below_ground(case: Case, readings: Sequence, meter_accuracy, text: str | No
     return out
 
 
+def material(part, materials: dict) -> str | None:
+    """The junction material (a key of `materials`, name -> volts at 1 mA) whose
+    base-emitter drop at 1 mA is nearest the drop of the transistor's card, by the
+    Shockley diode law V = NF VT ln(1 + 1 mA / IS) at 27 °C; None for other kinds or
+    without materials."""
+    from diag.core.parts.base import VT
+
+    if part.kind not in ("npn", "pnp") or not materials or not part.model:
+        return None
+    drop = float(part.model.get("NF", 1.0)) * VT * math.log1p(1e-3 / float(part.model["IS"]))
+    return min(materials, key=lambda m: abs(float(materials[m]) - drop))
+
+
 def _applicable(case: Case, rules) -> list[tuple]:
     """(part, check, node at t1, node at t2) for every check that applies to a part, in
     case part order then checks order."""
     checks = rules["checks"].get("checks") or []
+    materials = rules["checks"].get("materials") or {}
     out = []
     for part in case.parts:
         model = (part.model or {}).get("name")  # the card's name in rules/models.yaml
+        mat = material(part, materials)
         for chk in checks:
             if part.kind not in chk.get("kinds", ()):
+                continue
+            if "material" in chk and chk["material"] != mat:
                 continue
             if "models" in chk and model not in chk["models"]:
                 continue
