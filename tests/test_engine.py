@@ -516,9 +516,10 @@ def test_a_unit_drawn_healthy_is_said_to_read_like_a_good_one():
 
 def test_no_good_unit_sentence_when_a_good_unit_cannot_give_the_readings():
     """sounder-driver: the reversed output electrolytic C2 shares the healthy group
-    (`diag faults`: its mild end reads like a good unit), but this unit (seed 1) has
-    its far end: the speaker tag reads about 0.16 V DC. A good coupling capacitor blocks
-    DC, so a good unit's speaker tag reads 0 V (common practice, no source). The
+    (`diag faults`: its mild end reads like a good unit), but the first three drawn
+    units with its far end put more than 0.1 V DC on the speaker tag. A good coupling
+    capacitor blocks DC, so a good unit's speaker tag reads 0 V (common practice, no
+    source). The
     leader's group holds healthy, the readings fit the leader, and yet the text must
     not say they also fit a good unit: a good unit fails the fit test on them."""
     from diag.commands.diagnose import format_text
@@ -526,14 +527,21 @@ def test_no_good_unit_sentence_when_a_good_unit_cannot_give_the_readings():
 
     case = load_case("cases/sounder-driver.yaml")
     eng = Engine(case, K=128, seed=0)
-    readings = list(eng.simulate("C2:reversed", np.random.default_rng(1)))
-    spk = next(r.value for r in readings if (r.point, r.kind) == ("TP6", "dc"))
-    assert spk > 0.1  # volts: DC on the speaker, which a good unit never shows
-    d = eng.diagnose(readings)
-    assert d.fits and d.suspects[0].fault == "C2:reversed" and healthy_leads(d.suspects)
-    assert d.extra["healthy_fits"] is False
-    assert not d.reads_healthy() and d.healthy_alike() == ""
-    assert "also fit a good unit" not in format_text(case, d, 10)
+    far = []                # the first drawn units at the far end
+    for seed in range(60):
+        readings = list(eng.simulate("C2:reversed", np.random.default_rng(seed)))
+        spk = next(r.value for r in readings if (r.point, r.kind) == ("TP6", "dc"))
+        if spk > 0.1:       # volts: DC on the speaker, which a good unit never shows
+            far.append(readings)
+        if len(far) == 3:
+            break
+    assert len(far) == 3
+    for readings in far:
+        d = eng.diagnose(readings)
+        assert d.fits and d.suspects[0].fault == "C2:reversed" and healthy_leads(d.suspects)
+        assert d.extra["healthy_fits"] is False
+        assert not d.reads_healthy() and d.healthy_alike() == ""
+        assert "also fit a good unit" not in format_text(case, d, 10)
 
 
 def test_a_voltage_from_two_readings_shows_the_meter_error_of_both():

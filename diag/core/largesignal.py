@@ -47,7 +47,8 @@ PHASES = 16       # points per period of the tone: the ngspice-checked units' re
 SMALL = 0.01      # the reference run's tone, a fraction of the case's (small-signal)
 # The reference run first takes four phases: at ±π/2 a linear response is ±k, at π/6
 # and 7π/6 ±k/2, and half the difference at ±π/2 over √2 is its rms (4 solves per unit
-# rather than PHASES). Off it, within about 1e-3 of the rms over PHASES:
+# rather than PHASES). Off it, within ODD_TOL/3 + EVEN_TOL²/8 (1.3e-3) of the rms over
+# PHASES:
 # - a cubic term c sin³ moves the first difference d1 = 2(k + c) and the second
 #   d2 = k + c/4, and the rms to (k + 3c/4)/√2 (sin³ = (3 sin - sin 3φ)/4, handbook),
 #   so the estimate is off by about (d1 - 2 d2) / (3 d1): ODD_TOL bounds |d1 - 2 d2| / |d1|;

@@ -133,6 +133,8 @@ class BJT(PartKind):
             out.append(Spread((f"{part.ref}.bf",), "loguniform", float(hfe[0]), float(hfe[1])))
         if s.get("is_sigma"):
             out.append(Spread((f"{part.ref}.is",), "lognormal", float(s["is_sigma"])))
+        if s.get("ise_sigma") and nominal["ise"] > 0:
+            out.append(Spread((f"{part.ref}.ise",), "lognormal", float(s["ise_sigma"])))
         if s.get("bvebo") and math.isfinite(nominal["bvebo"]):
             lo, hi = (float(x) for x in s["bvebo"])
             out.append(Spread((f"{part.ref}.bvebo",), "loguniform", lo, hi))
