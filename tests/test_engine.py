@@ -222,6 +222,15 @@ def test_junction_notes_follow_the_transistor_s_material():
     got = " ".join(notes.bench_notes(case, rules, [Reading("TP2", "dc", -1.5),
                                                    Reading("TP3", "dc", -0.7)]))
     assert "more than a germanium junction drops" in got
+    # positive ground: the PNP's collector load returns to the -9 V rail, so a collector
+    # at the rail carries no current (common practice, no source); at -6 V it does
+    assert case.nothing_above_ground and not case.nothing_below_ground
+    at_rail = [Reading("TP1", "dc", -8.6), Reading("TP4", "dc", -8.58),
+               Reading("TP3", "dc", 0.0)]
+    got = " ".join(notes.bench_notes(case, rules, at_rail))
+    assert "Q1: the collector sits at vneg (-8.58 V), the far end of its load" in got
+    at_rail[1] = Reading("TP4", "dc", -6.0)
+    assert "far end of its load" not in " ".join(notes.bench_notes(case, rules, at_rail))
 
 
 def test_a_note_is_stated_only_when_the_meter_band_lies_inside_its_range(eng):

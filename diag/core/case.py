@@ -171,6 +171,14 @@ class Case:
         return all((p.value or 0) >= 0 and p.nodes[1] == self.ground
                    for p in self.parts if p.kind == "supply")
 
+    @property
+    def nothing_above_ground(self) -> bool:
+        """True when every supply has its positive terminal on ground (a positive-ground
+        set, its rails below the chassis): the mirror image of `nothing_below_ground`."""
+        rails = [p for p in self.parts if p.kind == "supply"]
+        return bool(rails) and all((p.value or 0) >= 0 and p.nodes[0] == self.ground
+                                   for p in rails)
+
     def parts_at(self, node: str) -> tuple[tuple[Part, str], ...]:
         """Parts touching `node`, each with the terminal name that touches it."""
         out = []

@@ -69,9 +69,10 @@ def bench_notes_many(case: Case, rules, units: Sequence[Sequence], meter_accurac
     ctx = (rules["checks"].get("terminal_names") or {},
            rules["checks"].get("uncertain") or "", across)
     below = rules["checks"].get("below_ground") if case.nothing_below_ground else None
+    mirrored = case.nothing_above_ground
     return [_below_ground(case, rs, meter_accuracy, below)
             + _notes(checks, rails, fixed, node_volts(case, rs), meter_accuracy,
-                     case.ground, direct_volts(case, rs), ctx)
+                     case.ground, direct_volts(case, rs), ctx, mirrored)
             for rs in units]
 
 
@@ -160,11 +161,13 @@ def _round_up(err: float) -> float:
 
 
 def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy, ground: str,
-           direct: dict[tuple[str, str], float] | None = None, ctx=({}, "", {})
-           ) -> list[str]:
+           direct: dict[tuple[str, str], float] | None = None, ctx=({}, "", {}),
+           mirrored: bool = False) -> list[str]:
     """The notes of one unit's node volts `v` and direct readings `direct` (see
     `bench_notes`). `{rail}` in a near-supply text names the rail the collector sits at:
-    the supply's node for an NPN, ground for a PNP (whose load returns there)."""
+    the supply's node for an NPN, ground for a PNP (whose load returns there); in a
+    `mirrored` circuit (Case.nothing_above_ground: every rail below ground) the other
+    way round, an NPN's load returning to ground and a PNP's to the rail."""
     names, uncertain, across = ctx
     direct = direct or {}
     out, doubtful = [], {}
@@ -173,14 +176,16 @@ def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy, ground: st
             if n1 not in v or n2 not in v or n1 in fixed:  # wired to a rail: says nothing
                 continue
             hit, rail_name = False, ""
+            to_rail = (part.kind == "pnp") == mirrored   # the load returns to the rail
             for sp in rails:
-                rail = v.get(sp.nodes[0], sp.value or 0.0)
-                target = rail if part.kind != "pnp" else 0.0
+                live = sp.nodes[1] if mirrored else sp.nodes[0]   # the terminal off ground
+                rail = v.get(live, -(sp.value or 0.0) if mirrored else sp.value or 0.0)
+                target = rail if to_rail else 0.0
                 tol = (meter_accuracy(abs(target)) if meter_accuracy
                        else 0.01 * abs(target)) + 0.02 * abs(rail)
-                if rail > 0.5 and abs(v[n1] - target) <= tol:
+                if abs(rail) > 0.5 and (rail < 0) == mirrored and abs(v[n1] - target) <= tol:
                     hit = True
-                    rail_name = sp.nodes[0] if part.kind != "pnp" else ground
+                    rail_name = live if to_rail else ground
             if not hit:
                 continue
             out.append(chk["text"].format(ref=part.ref, kind=part.kind, rail=rail_name,
