@@ -53,14 +53,15 @@ def _drawn(case_file: str, fault: str, n: int, seed: int):
     return case, circ, params, dc, solver.solve_ac(circ, params, dc)
 
 
-def _tran_check(ngspice, case_file: str, fault: str, n: int, seed: int):
+def _tran_check(ngspice, case_file: str, fault: str, n: int, seed: int,
+                settle_cycles: int = 400):
     """For n units of `fault` drawn by diag: the ngspice transient AC rms at each AC
     point (away from the generator's node) and diag's range for it (meter.observe with
     every overdrive draw at 0 and at 1: the least and the most it can read), widened by
     what diag allows around its own AC predictions: the model error (rules/faults.yaml
     model_error ac_v, ac_rel) and the meter's accuracy (meter.accuracy). Rows: (point,
     overdrive g, small-signal reading, transient reading, the window before, low,
-    high)."""
+    high). The transient settles for `settle_cycles` periods of the tone."""
     from ngspice_util import tran_ac_rms
 
     rules = load_rules()
@@ -83,7 +84,7 @@ def _tran_check(ngspice, case_file: str, fault: str, n: int, seed: int):
                for k, v in params.items() if not k.startswith(overdrive.PREFIX)}
         names = [spice.node_name(case, case.point(o.point).node) for o in obs]
         tr = tran_ac_rms(spice.netlist(circ, one), spice.source_name(case.signal.ref),
-                         vpk, float(circ.hz), names)
+                         vpk, float(circ.hz), names, settle_cycles=settle_cycles)
         g = float(np.max(small[b])) / (S / (2 * math.sqrt(2)))
         for m, o in enumerate(obs):
             last, before = tr[names[m]]
@@ -93,6 +94,45 @@ def _tran_check(ngspice, case_file: str, fault: str, n: int, seed: int):
             rows.append((o.point, g, float(small[b, m]), last, before, lo - slack,
                          hi + slack))
     return rows
+
+
+def test_an_off_junction_counts_as_driven_only_where_the_tone_s_peak_turns_it_on():
+    """overdrive.junction_drive: line-driver's follower Q2 with R6 open sits off, and the
+    tone's 0.5 V peak across its junction turns it on (Shockley: IS (exp((v_be + v_pk) /
+    (NF VT)) - 1) past parts.bjt.ON_CURRENT), so its harmonic estimate v/(4 NF VT) is
+    large; with its base-emitter junction open (hook k_be 0) it never conducts, and with
+    the fault absent it conducts at its operating point as before."""
+    from diag.core.parts.bjt import ON_CURRENT
+
+    for fault, driven in (("R6:open", True), ("Q2:be-open", False)):
+        case, circ, params, dc, ac = _drawn("line-driver.yaml", fault, 8, 1)
+        regions = solver.regions(circ, params, dc)
+        assert not np.isin(regions["Q2"], ("active", "saturated")).any()
+        vbe, h = overdrive.junction_drive(circ, params, dc, ac, regions)["Q2"]
+        assert (h > overdrive.ONSET).all() if driven else (h == 0).all()
+        if driven:   # the peak current by hand, against the 1 µA threshold
+            is_ = float(circ.nominal["Q2.is"])
+            assert ON_CURRENT == 1e-6 and is_ * math.expm1(
+                (0.0 + math.sqrt(2) * float(vbe.min())) / 0.02585) > ON_CURRENT
+
+
+@pytest.mark.ngspice
+def test_a_junction_the_tone_turns_on_at_its_peaks_gets_the_large_signal_pass(ngspice):
+    """line-driver with the follower's emitter resistor R6 open: Q2 sits off (its
+    emitter's only DC path is the output capacitor's leakage) with 0.35 V rms of tone
+    across its base-emitter junction, so it conducts on the tone's peaks only, charging
+    C3 until it barely conducts at all. The small-signal figure at the emitter and the
+    line is 30 to 80 mV; ngspice's transient settles (over seconds: C3 into the line)
+    to about 2 mV, and diag's range, from the large-signal pass, holds it (Shockley's
+    law at the tone's peak decides that the junction conducts: overdrive.junction_drive).
+    """
+    rows = _tran_check(ngspice, "line-driver.yaml", "R6:open", n=1, seed=1,
+                       settle_cycles=6000)
+    for point, g, a, last, before, lo, hi in rows:
+        assert last == pytest.approx(before, rel=0.05, abs=2e-4), (point, "not settled")
+        assert lo <= last <= hi, (point, g, a, last, lo, hi)
+    swung = [(a, last) for point, g, a, last, *_ in rows if point in ("TP7", "TP8")]
+    assert swung and all(last < 0.01 < a for a, last in swung if a > 0.01)
 
 
 @pytest.mark.ngspice

@@ -98,10 +98,13 @@ def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     harmonic of about v / (4 N VT) (the exponential's Taylor series); an emitter that
     follows the signal (an unbypassed emitter resistor, a follower) is series feedback and
     divides it by 1 + v_e / v_be (negative feedback divides distortion by 1 + loop gain,
-    handbook). 0 where the transistor does not conduct. `regions` (solver.regions) when
-    the caller has them."""
+    handbook). 0 where the transistor does not conduct at its operating point and the
+    tone's peak does not take its junction past parts.bjt.ON_CURRENT either (Shockley:
+    IS (exp((v_be + √2 v) / (NF VT)) - 1)). `regions` (solver.regions) when the caller
+    has them."""
     from diag.core import solver
     from diag.core.parts.base import VT
+    from diag.core.parts.bjt import ON_CURRENT
 
     case = circuit.case
     B = ac.v.shape[0]
@@ -118,7 +121,17 @@ def junction_drive(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
         ve = np.abs(v(part.terminal("e")))
         vbe = np.abs(v(part.terminal("b")) - v(part.terminal("e")))
         n = _param(circuit, params, f"{part.ref}.nf", B)
-        on = np.isin(np.asarray(regions[part.ref]), ("active", "saturated")) & (vbe > 0)
+        # a junction off at its operating point that the tone's peak drives into
+        # conduction (a follower whose emitter resistor is open, biased by leakage alone)
+        # conducts on peaks only: as nonlinear as it gets
+        pol = 1.0 if part.kind == "npn" else -1.0
+        vbe_dc = pol * (solver.node_v(circuit, dc.v, part.terminal("b"))
+                        - solver.node_v(circuit, dc.v, part.terminal("e")))
+        i_pk = (_param(circuit, params, f"{part.ref}.is", B)      # an open junction's
+                * _param(circuit, params, f"{part.ref}.k_be", B)     # hook k_be is 0
+                * np.expm1(np.minimum((vbe_dc + math.sqrt(2.0) * vbe) / (n * VT), 700.0)))
+        on = ((np.isin(np.asarray(regions[part.ref]), ("active", "saturated"))
+               | (np.asarray(dc.ok, bool) & (i_pk > ON_CURRENT))) & (vbe > 0))
         with np.errstate(divide="ignore", invalid="ignore"):
             h = np.where(on, vbe * math.sqrt(2.0) / (4.0 * n * VT) / (1.0 + ve / vbe), 0.0)
         out[part.ref] = (vbe, np.nan_to_num(h))
