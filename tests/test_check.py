@@ -12,6 +12,7 @@ import pytest
 from diag.cli import main
 from diag.core.bands import case_cautions, healthy_bands
 from diag.core.case import load_case
+from diag.core.paths import cases_dir
 from diag.core.rules import load_rules
 
 SMALL = """\
@@ -374,3 +375,17 @@ def test_the_warning_offers_no_level_when_the_sweep_found_none():
     text = dataclasses.replace(res, quiet=None).signal_text()
     assert "did not solve" in text and "or less" not in text and "0 V" not in text
     assert "TP6" in text
+
+
+def test_check_says_a_supply_s_current_limit_is_not_modelled(capsys):
+    """series-regulator's adaptor gives `amps: 0.5`: diag models every supply as its
+    volts behind its source resistance (parts/sources.py), so check says the limit is
+    read and not modelled, in its text and its JSON; a case without one says nothing."""
+    path = str(cases_dir() / "series-regulator.yaml")
+    assert main(["check", path]) == 0
+    out = " ".join(capsys.readouterr().out.split())
+    assert "Supply limits: V1 gives amps 0.5 A, which diag reads and does not model" in out
+    assert main(["check", path, "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["unmodelled_supply_limits"] == {"V1": 0.5}
+    assert main(["check", str(cases_dir() / "relay-switch.yaml"), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["unmodelled_supply_limits"] == {}

@@ -143,6 +143,28 @@ class CheckResult:
 
         return {p.ref: u for p in self.case.parts if (u := unused_card_names(p))}
 
+    @property
+    def supply_limits(self) -> dict[str, float]:
+        """Supply ref -> the `amps` it gives (its current limit or rating), amperes: read
+        and not modelled (every supply is its volts behind r_source)."""
+        return {p.ref: float(p.fields["amps"]) for p in self.case.parts
+                if p.kind == "supply" and p.fields.get("amps")}
+
+    def supply_limit_text(self) -> str:
+        """The sentence on supplies' current limits diag does not model; "" if none."""
+        from diag.core.values import format_value
+
+        lim = self.supply_limits
+        if not lim:
+            return ""
+        return ("Supply limits: " + "; ".join(f"{ref} gives amps {format_value(a, 'A')}"
+                                              for ref, a in lim.items())
+                + ", which diag reads and does not model: each supply is its volts behind "
+                  "its source resistance, so diag predicts a fault that would draw more (a "
+                  "short) at whatever current that resistance lets through, where a "
+                  "current-limited supply holds the current at its limit and lets its "
+                  "voltage fall.")
+
     def unused_model_text(self) -> str:
         """The sentence naming card parameters diag leaves out; "" when there are none."""
         un = self.unused_model
@@ -157,7 +179,7 @@ class CheckResult:
     def to_json(self, case_path: str | None = None) -> dict[str, Any]:
         """SPEC section 6 object (plus the extra keys regions, failed, draws,
         junction_signal, ac_swing, quiet_level, unstable_operating_point,
-        switched_states, unused_model_params)."""
+        switched_states, unused_model_params, unmodelled_supply_limits)."""
         def num(x: float) -> float | None:
             return float(x) if np.isfinite(x) else None
 
@@ -179,6 +201,7 @@ class CheckResult:
             "unstable_operating_point": self.saddle,
             "switched_states": self.switched,
             "unused_model_params": {r: list(n) for r, n in self.unused_model.items()},
+            "unmodelled_supply_limits": self.supply_limits,
         }
 
 
