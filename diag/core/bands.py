@@ -154,27 +154,21 @@ class CheckResult:
         """The sentence on supplies' current limits diag does not model; "" if none."""
         from diag.core.values import format_value
 
-        lim = self.supply_limits
-        if not lim:
-            return ""
-        return ("Supply limits: " + "; ".join(f"{ref} gives amps {format_value(a, 'A')}"
-                                              for ref, a in lim.items())
-                + ", which diag reads and does not model: each supply is its volts behind "
-                  "its source resistance, so diag predicts a fault that would draw more (a "
-                  "short) at whatever current that resistance lets through, where a "
-                  "current-limited supply holds the current at its limit and lets its "
-                  "voltage fall.")
+        return _read_not_used(
+            "Supply limits", {r: f"amps {format_value(a, 'A')}"
+                              for r, a in self.supply_limits.items()},
+            "does not model: each supply is its volts behind its source resistance, so diag "
+            "predicts a fault that would draw more (a short) at whatever current that "
+            "resistance lets through, where a current-limited supply holds the current at "
+            "its limit and lets its voltage fall.")
 
     def unused_model_text(self) -> str:
         """The sentence naming card parameters diag leaves out; "" when there are none."""
-        un = self.unused_model
-        if not un:
-            return ""
-        return ("Model cards: " + "; ".join(f"{ref} gives {' '.join(n)}"
-                                            for ref, n in un.items())
-                + ", which diag reads and does not use (junction capacitance, transit "
-                  "time, noise and temperature: its AC analysis is low-frequency, and "
-                  "the ambient moves every junction by the rules' figure).")
+        return _read_not_used(
+            "Model cards", {r: " ".join(n) for r, n in self.unused_model.items()},
+            "does not use (junction capacitance, transit time, noise and temperature: its "
+            "AC analysis is low-frequency, and the ambient moves every junction by the "
+            "rules' figure).")
 
     def to_json(self, case_path: str | None = None) -> dict[str, Any]:
         """SPEC section 6 object (plus the extra keys regions, failed, draws,
@@ -343,3 +337,12 @@ def junction_drive(circuit, dc, ac, regions: dict[str, str]
     drive = overdrive.junction_drive(circuit, {}, dc, ac)
     return {ref: (float(v[0]), float(h[0])) for ref, (v, h) in drive.items()
             if regions.get(ref) in ("active", "saturated") and v[0] > 0}
+
+
+def _read_not_used(label: str, given: dict[str, str], why: str) -> str:
+    """"{label}: {ref} gives {what}; ..., which diag reads and {why}" for the parts in
+    `given` (ref -> what it gives); "" when there are none."""
+    if not given:
+        return ""
+    return (f"{label}: " + "; ".join(f"{ref} gives {what}" for ref, what in given.items())
+            + f", which diag reads and {why}")
