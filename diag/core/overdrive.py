@@ -82,6 +82,10 @@ SPREAD = 0.2   # the large-signal reading's spread either way, per unit of the u
                # holds' phase, a charge balance not fully reached in its steps), set from
                # ngspice transient runs (tests/test_overdrive.py: up to 0.14 needed on
                # the saturated test stage, 0.18 on mic-preamp with R9 shorted)
+SPREAD_TOP = math.log(10.0)   # the |ln r| that SPREAD is applied up to: it was set on
+               # units within a factor of a few of linear; a unit whose reading somewhere
+               # collapses (a stage cut off: r of 1e-6) would otherwise spread every other
+               # point of it twentyfold, where those read as before
 
 
 def _param(circuit: Any, params: Mapping[str, Any], name: str, B: int) -> np.ndarray:
@@ -228,7 +232,8 @@ def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     ln_r = np.log(np.where(r > 0, r, np.nan))
     # the unit's own nonlinearity sets the spread at every one of its points
     with np.errstate(invalid="ignore"):
-        width = SPREAD * np.nanmax(np.abs(ln_r), axis=1, initial=0.0)[:, None]
+        width = SPREAD * np.minimum(np.nanmax(np.abs(ln_r), axis=1, initial=0.0),
+                                    SPREAD_TOP)[:, None]
     lo_q, hi_q = ln_r - width, ln_r + width
     # with the rail range of `limit` (clipping; what the pass's balance steps leave of its
     # charge shift reaches back into the stages before the clipped one) where the unit
