@@ -222,6 +222,9 @@ def test_junction_notes_follow_the_transistor_s_material():
     got = " ".join(notes.bench_notes(case, rules, [Reading("TP2", "dc", -1.5),
                                                    Reading("TP3", "dc", -0.7)]))
     assert "more than a germanium junction drops" in got
+    # a card that gives no IS has SPICE's 1e-16 A (parts.bjt.card): silicon, no error
+    bare = q1.__class__(**{**q1.__dict__, "model": {"name": "inline", "BF": 80.0}})
+    assert notes.material(bare, mats) == "silicon"
     # positive ground: the PNP's collector load returns to the -9 V rail, so a collector
     # at the rail carries no current (common practice, no source); at -6 V it does
     assert case.nothing_above_ground and not case.nothing_below_ground

@@ -99,10 +99,12 @@ def material(part, materials: dict) -> str | None:
     Shockley diode law V = NF VT ln(1 + 1 mA / IS) at 27 °C; None for other kinds or
     without materials."""
     from diag.core.parts.base import VT
+    from diag.core.parts.bjt import card
 
     if part.kind not in ("npn", "pnp") or not materials or not part.model:
         return None
-    drop = float(part.model.get("NF", 1.0)) * VT * math.log1p(1e-3 / float(part.model["IS"]))
+    q = card(part.model)
+    drop = float(q["NF"]) * VT * math.log1p(1e-3 / float(q["IS"]))
     return min(materials, key=lambda m: abs(float(materials[m]) - drop))
 
 

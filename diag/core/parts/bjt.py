@@ -44,6 +44,8 @@ current. Shunts g_be, g_bc, g_ce (siemens) sit between the external leads.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
+from typing import Any
 
 import numpy as np
 
@@ -94,6 +96,13 @@ def _is(value, const: float) -> bool:
     return isinstance(value, float) and value == const
 
 
+def card(model: Mapping[str, Any]) -> dict[str, Any]:
+    """A bipolar model mapping (its "name" aside) with upper-case SPICE names over
+    SPICE_DEFAULTS: every name a card leaves out has SPICE's value."""
+    return {**SPICE_DEFAULTS,
+            **{str(k).upper(): v for k, v in model.items() if k != "name"}}
+
+
 class BJT(PartKind):
     kinds = ("npn", "pnp")
     names = tuple(k.lower() for k in MODEL_NAMES) + ("k_be", "k_bc", "g_be", "g_bc", "g_ce")
@@ -103,7 +112,7 @@ class BJT(PartKind):
 
     def nominal(self, part, ctx):
         _, m = model_of(part, ctx, DEFAULT_MODEL[part.kind])
-        q = {**SPICE_DEFAULTS, **{k.upper(): v for k, v in m.items()}}
+        q = card(m)
         if "RBM" not in {k.upper() for k in m}:
             q["RBM"] = q["RB"]
         out = {k.lower(): float(q[k]) for k in MODEL_NAMES}
