@@ -102,6 +102,7 @@ def test_an_off_junction_counts_as_driven_only_where_the_tone_s_peak_turns_it_on
     (NF VT)) - 1) past parts.bjt.ON_CURRENT), so its harmonic estimate v/(4 NF VT) is
     large; with its base-emitter junction open (hook k_be 0) it never conducts, and with
     the fault absent it conducts at its operating point as before."""
+    from diag.core.parts.base import VT
     from diag.core.parts.bjt import ON_CURRENT
 
     for fault, driven in (("R6:open", True), ("Q2:be-open", False)):
@@ -113,7 +114,36 @@ def test_an_off_junction_counts_as_driven_only_where_the_tone_s_peak_turns_it_on
         if driven:   # the peak current by hand, against the 1 µA threshold
             is_ = float(circ.nominal["Q2.is"])
             assert ON_CURRENT == 1e-6 and is_ * math.expm1(
-                (0.0 + math.sqrt(2) * float(vbe.min())) / 0.02585) > ON_CURRENT
+                math.sqrt(2) * float(vbe.min()) / VT) > ON_CURRENT
+
+
+def test_a_collapsed_reading_does_not_spread_the_unit_s_other_points():
+    """line-driver with R6 open: the pass reads the emitter and the line at a millionth
+    of small-signal (r near 1e-6, |ln r| near 14), while Q1's base and collector read
+    as before (r near 1). The spread of every point follows the unit's largest |ln r|,
+    taken up to overdrive.SPREAD_TOP (ln 10): at Q1's collector the range stays within
+    exp(±SPREAD·ln 10) of small-signal, where without the cap it reached twenty times
+    (a rule of the engine's own; the pass's figures are checked against ngspice in
+    test_a_junction_the_tone_turns_on_at_its_peaks_gets_the_large_signal_pass)."""
+    case, circ, params, dc, ac = _drawn("line-driver.yaml", "R6:open", 4, 1)
+    obs = [case.observables[m] for m in overdrive.swung(case, case.observables)]
+    r = largesignal.ratios(circ, params, dc, np.arange(4),
+                           overdrive.node_pairs(case, obs))
+    points = [o.point for o in obs]
+    assert (np.nanmax(np.abs(np.log(r)), axis=1) > 3 * overdrive.SPREAD_TOP).all()
+    small = meter.observe(circ, params, dc, ac, obs, case.meter, large_signal=False)
+
+    def at(u: float) -> np.ndarray:
+        p = {k: (np.full(4, u) if k.startswith(overdrive.PREFIX) else v)
+             for k, v in params.items()}
+        return meter.observe(circ, p, dc, ac, obs, case.meter)
+
+    m = points.index("TP6")                     # Q1 collector, Q2 base
+    assert (np.abs(np.log(r[:, m])) < 0.01).all()
+    bound = np.exp(overdrive.SPREAD * overdrive.SPREAD_TOP + np.abs(np.log(r[:, m]))) * 1.001
+    for got in (at(0.0), at(1.0)):
+        assert (got[:, m] / small[:, m] <= bound).all()
+        assert (small[:, m] / got[:, m] <= bound).all()
 
 
 @pytest.mark.ngspice
