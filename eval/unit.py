@@ -213,6 +213,9 @@ def draw_unit(case: Case, rng: np.random.Generator) -> BenchUnit:
         elif k == "supply":
             vals[p.ref] = {"v": p.value * (1 + rng.uniform(-t, t)),
                            "r": float(f.get("r_source") or bb["supply_r_source"])}
+            if f.get("limit"):
+                lt = bb["supply_limit_tol"]
+                vals[p.ref]["ilim"] = float(f["limit"]) * (1 + rng.uniform(-lt, lt))
         elif k == "signal":
             e = bb["signal_vrms_tol"]
             vals[p.ref] = {"vac": p.value * (1 + rng.uniform(-e, e)),
@@ -296,7 +299,10 @@ def netlist_lines(u: BenchUnit) -> list[str]:
         elif k == "supply":
             plus, minus = node(p, "plus"), node(p, "minus")
             out.append(f"V_{r} s_{r} {minus} DC {_fmt(v['v'])}")
-            out.append(f"R_{r}_src s_{r} a_{r} {_fmt(v['r'])}")
+            if "ilim" in v:
+                out.append(f"B_{r}_lim s_{r} a_{r} I={_limit_expr(f'v(s_{r},a_{r})', v)}")
+            else:
+                out.append(f"R_{r}_src s_{r} a_{r} {_fmt(v['r'])}")
             out.append(f"R_{r}_amm a_{r} {plus} {_fmt(bb['meter']['burden_idle_ohms'])}")
         elif k == "signal":
             plus, minus = node(p, "plus"), node(p, "minus")
@@ -320,6 +326,19 @@ def netlist_lines(u: BenchUnit) -> list[str]:
     for i, (a, b, ohms) in enumerate(u.extra):
         out.append(f"R_extra_{i} {spice_node(case, a)} {spice_node(case, b)} {_fmt(ohms)}")
     return out
+
+
+def _limit_expr(v: str, vals: dict) -> str:
+    """Current (amperes) through a current-limited bench supply's output, `v` the voltage
+    across its source resistance: v / r up to the limit ilim, then ilim, joined by a
+    knee of sharpness bench.yaml `supply_limit_knee` (n): ilim s / (1 + s^n)^(1/n),
+    s = v / (ilim r), written in 1/s above s = 1 (no overflow); v / r below zero."""
+    n = int(bench()["supply_limit_knee"])
+    ilim, r = vals["ilim"], vals["r"]
+    s = f"({v}/{_fmt(ilim * r)})"
+    up = f"pow(1+pow(1/{s},{n}),{_fmt(-1.0 / n)})"
+    mid = f"{s}/pow(1+pow({s},{n}),{_fmt(1.0 / n)})"
+    return f"{{{_fmt(ilim)}*({s}>1 ? {up} : ({s}>0 ? {mid} : {s}))}}"
 
 
 def _signal_hz(u: BenchUnit) -> float:

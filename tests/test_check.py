@@ -389,3 +389,28 @@ def test_check_says_a_supply_s_current_limit_is_not_modelled(capsys):
     assert json.loads(capsys.readouterr().out)["unmodelled_supply_limits"] == {"V1": 0.5}
     assert main(["check", str(cases_dir() / "relay-switch.yaml"), "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["unmodelled_supply_limits"] == {}
+
+
+def test_check_names_a_modelled_current_limit_and_warns_when_good_units_reach_it(
+        tmp_path, capsys):
+    """pushpull-output's bench supply is limited to 250 mA (`limit:`): check names the
+    limit in text and JSON (with the healthy band's top at the supply point, about the
+    27 mA idle draw). The lamp fixture (tests/data/limited-lamp.yaml, 109 mA healthy) set
+    to 110 mA is within the limit's 5 % spread of good units: check says to set it
+    higher; at 150 mA it does not."""
+    path = str(cases_dir() / "pushpull-output.yaml")
+    assert main(["check", path]) == 0
+    out = " ".join(capsys.readouterr().out.split())
+    assert "Current limits: V1 holds its current at 0.25 A." in out
+    assert main(["check", path, "--json"]) == 0
+    got = json.loads(capsys.readouterr().out)
+    assert got["current_limits"]["V1"]["limit"] == pytest.approx(0.25)
+    assert 0.02 < got["current_limits"]["V1"]["high"] < 0.05
+    assert got["unmodelled_supply_limits"] == {}
+    lamp = Path(__file__).parent / "data" / "limited-lamp.yaml"
+    assert main(["check", str(lamp)]) == 0
+    assert "set it higher" not in capsys.readouterr().out
+    tight = tmp_path / "tight.yaml"
+    tight.write_text(lamp.read_text().replace("limit: 150m", "limit: 110m"))
+    assert main(["check", str(tight)]) == 0
+    assert "set it higher" in " ".join(capsys.readouterr().out.split())

@@ -190,6 +190,23 @@ def test_bench_notes_from_readings_alone(eng):
     assert d.to_json("x")["notes"] == list(d.notes)
 
 
+def test_a_supply_reading_at_its_current_limit_gets_a_note():
+    """pushpull-output's supply is limited to 250 mA: a supply reading within the
+    limit's spread (5 %) and the meter's error of it says the supply holds its current
+    and its rail has fallen; the idle 27 mA, or 200 mA, says nothing of the kind."""
+    from diag.core import notes
+    from diag.core.rules import load_rules
+
+    case = load_case(str(cases_dir() / "pushpull-output.yaml"))
+    rules = load_rules()
+    def said(amps):
+        return " ".join(notes.bench_notes(case, rules, [Reading("TP1", "dc", amps)]))
+
+    assert "at V1's current limit of" in said(0.245)
+    assert "collapsed rail" in said(0.24)
+    assert "current limit" not in said(0.027) + said(0.2)
+
+
 def test_junction_notes_follow_the_transistor_s_material():
     """A germanium card (tests/data/ge-pnp-stage.yaml, IS 0.3 µA) drops
     VT ln(1 + 1 mA / 0.3 µA) = 0.21 V at 1 mA (Shockley diode law, handbook; VT from

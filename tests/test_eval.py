@@ -15,6 +15,7 @@ sys.path.insert(0, str(ROOT))
 from diag.core.case import load_case  # noqa: E402
 from diag.core.rules import load_rules  # noqa: E402
 from eval import generate, inject, meterlike, score  # noqa: E402
+from eval.unit import bench  # noqa: E402
 
 CASE = ROOT / "cases" / "sounder-driver.yaml"
 
@@ -78,6 +79,36 @@ points:
     assert g.true[1] == pytest.approx(5e-6, rel=1e-4)
     # the displayed reading is within the meter's stated accuracy of the true one
     assert abs(g.shown[0] - g.true[0]) <= 0.005 * g.true[0] + 2.5 * 0.001
+
+
+@pytest.mark.ngspice
+def test_a_current_limited_bench_supply_holds_its_limit(ngspice, tmp_path):
+    """The evaluation's bench supply with `limit: 100m` (its own knee, eval/bench.yaml
+    supply_limit_knee, and the limit drawn within supply_limit_tol of its setting) into
+    100 Ω (120 mA asked) and into 10 Ω (1.2 A asked). Ohm's law by hand: each is held at
+    the drawn limit, and the rail reads the limit times the load (the ammeter's burden,
+    a fraction of an ohm, in series)."""
+    text = """case: 1
+title: limit
+about: one resistor on a current-limited supply
+parts:
+  V1: {kind: supply, plus: top, minus: gnd, volts: 12, tol: 0.000001, r_source: 0.5,
+       limit: 100m}
+  R1: {kind: resistor, nodes: [top, gnd], ohms: 100, tol: 0.000001}
+points:
+  TP1: {node: top, where: "rail"}
+  TP2: {supply: V1, where: "ammeter"}
+"""
+    for ohms in (100, 10):
+        path = tmp_path / f"limit{ohms}.yaml"
+        path.write_text(text.replace("ohms: 100,", f"ohms: {ohms},"), encoding="utf-8")
+        units, dropped = generate.generate_case(load_case(str(path)), [("healthy", None)],
+                                                seed=3)
+        assert dropped == 0
+        tol = bench()["supply_limit_tol"]
+        rail, amps = units[0].true
+        assert 0.1 * (1 - tol) <= amps <= 0.1 * (1 + tol)
+        assert rail == pytest.approx(amps * ohms, rel=1e-3)
 
 
 @pytest.mark.ngspice

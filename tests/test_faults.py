@@ -247,6 +247,25 @@ def test_a_fuse_blows_only_past_twice_its_rating_with_the_cause_in_place(tmp_pat
     assert not {"F1:open+R7:short", "F1:open+Q1:ce-short"} & half
 
 
+def test_a_current_limit_below_the_blowing_current_keeps_the_fuse(tmp_path, rules):
+    """The case of the test above on a bench supply limited to 1 A (`limit:`): a fuse
+    rated 0.5 A blows past 1.05 A (IEC 60127-2, rules/collateral.yaml), which the supply
+    never delivers, so no fault takes the fuse with it; limited to 2 A it can, and the
+    pairs of the test above return."""
+    from diag.core.engine import Engine
+
+    def linked(limit: str) -> set[str]:
+        p = tmp_path / f"l{limit}.yaml"
+        p.write_text(CASE.replace(
+            "F1: {kind: fuse, nodes: [vcc, vf]}", "F1: {kind: fuse, nodes: [vcc, vf], amps: 0.5}"
+        ).replace("volts: 12, r_source: 0.5}", f"volts: 12, r_source: 0.5, limit: {limit}}}"))
+        return {s.id for s in Engine(load_case(p, rules), rules).specs
+                if "F1:" in s.id} - {"F1:open"}
+
+    assert linked("1") == set()
+    assert {"F1:open+Q2:ce-short", "F1:open+R6:short"} <= linked("2")
+
+
 def test_supply_span_is_the_rails_apart(tmp_path, rules):
     # rails from ground through the supplies, each at the top of its tolerance
     def span(parts: str) -> float:

@@ -169,6 +169,31 @@ def test_germanium_card_on_a_negative_rail_matches_ngspice(ngspice, runs):
 
 
 @pytest.mark.ngspice
+def test_current_limited_supply_matches_ngspice(ngspice):
+    """A bench supply with a 150 mA constant-current limit (tests/data/limited-lamp.yaml;
+    diag's knee written as an ngspice B-source, diag.core.spice.limit_expr): the usual
+    variants, among them a shorted electrolytic across the rail that would draw amperes,
+    plus lamp loads that put the supply below, at and beyond its knee. Every node and
+    the supply current as ngspice gives them; the shorted rail held at the limit."""
+    case = load_case(str(DATA / "limited-lamp.yaml"))
+    circuit = compile_case(case, load_rules())
+    variants = _variants(circuit) + [(f"lamp {r} ohm", {"R6.r": r}) for r in (80, 66, 40, 1)]
+    labels, params = _batch(circuit, variants)
+    dc = solver.solve_dc(circuit, params)
+    ref = ngspice.run_ngspice(spice.netlist(circuit, params))
+    assert all(dc.ok), [dc.why[b] for b in range(len(labels)) if not dc.ok[b]]
+    bad = _dc_off(case, circuit, labels, dc, ref)
+    for b, label in enumerate(labels):
+        ours, theirs = dc.i_supply[b, 0], -ref.i(spice.source_name("V1", b))
+        if abs(ours - theirs) > max(I_ATOL, I_RTOL * abs(theirs)):
+            bad.append(f"{label}: V1 diag {ours:.6g} A, ngspice {theirs:.6g} A")
+    assert not bad, "\n".join(bad)
+    short = labels.index("C1 shorted")
+    assert dc.i_supply[short, 0] == pytest.approx(0.150, rel=1e-3)
+    assert ref.v(spice.node_name(case, "vcc", short)) < 0.5   # the rail collapsed
+
+
+@pytest.mark.ngspice
 def test_supply_currents_match_ngspice(case_path, ngspice, runs):
     case, circuit, labels, params, dc, ac, ref = _cached(runs, case_path, ngspice)
     bad = []

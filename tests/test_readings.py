@@ -86,6 +86,16 @@ def test_check_value_for_one_typed_reading(case):
             readings.check_value(case, point, kind, text)
 
 
+def test_a_supply_current_above_its_limit_is_refused(case):
+    """pushpull-output's bench supply holds its current at 250 mA (`limit:`): a supply
+    reading above the limit with its spread and the readings' over-supply margin (5 %
+    each: 276 mA) cannot come from this circuit, one at the limit can."""
+    assert case.part("V1").fields["limit"] == pytest.approx(0.25)
+    assert readings.check_value(case, "TP1", "dc", "262m") == pytest.approx(0.262)
+    with pytest.raises(DiagError):
+        readings.check_value(case, "TP1", "dc", "0.3")
+
+
 def test_missing_header_and_empty(case):
     rf = readings.parse_text("TP2,11.9\n", case)  # no header: point,value assumed
     assert len(rf.single()) == 1

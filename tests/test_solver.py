@@ -60,6 +60,51 @@ def test_supply_source_resistance_and_current():
     assert_allclose(dc.v[0, c.node_index["vcc"]], 12 - 100 * i, rtol=1e-9)
 
 
+def test_current_limited_supply_by_ohms_law():
+    """A bench supply set to 12 V with a 100 mA limit across one resistor. Ohm's law by
+    hand: below the limit I = 12 / (R + r); far beyond it the supply is a 100 mA source
+    and the rail reads 0.1 R; the knee (parts.sources.limit_curve) keeps the current
+    within 0.1 % of the straight line up to half the limit."""
+    def one(r_load):
+        return compiled(part("V1", "supply", ["vcc", "gnd"], 12.0, r_source=0.5,
+                             limit=0.1),
+                        part("R1", "resistor", ["vcc", "gnd"], r_load))
+
+    c = one(1e3)
+    loads = np.array([1e3, 240.0, 100.0, 10.0, 1.0, 1e-3])
+    dc = solver.solve_dc(c, {"R1.r": loads})
+    assert dc.ok.all()
+    i, vcc = dc.i_supply[:, 0], dc.v[:, c.node_index["vcc"]]
+    assert_allclose(i[:2], 12 / (loads[:2] + 0.5), rtol=1e-3)     # 12 mA, 50 mA
+    assert_allclose(i[3:], 0.1, rtol=1e-9)                         # 1.2 A, 12 A, ... asked
+    assert_allclose(vcc[3:], 0.1 * loads[3:], rtol=1e-9)
+    assert 0.09 < i[2] < 0.1                                       # 120 mA asked: the knee
+    assert_allclose(vcc, i * loads, rtol=1e-9)                     # KCL at the rail
+    # the same supply with no limit: the source resistance alone
+    free = compiled(part("V1", "supply", ["vcc", "gnd"], 12.0, r_source=0.5),
+                    part("R1", "resistor", ["vcc", "gnd"], 1.0))
+    assert_allclose(solver.solve_dc(free).i_supply[0, 0], 12 / 1.5, rtol=1e-9)
+
+
+def test_limit_curve_is_smooth_and_safe():
+    """The knee: f(s) = s up to s = 1/2 within 0.1 %, f -> 1 beyond, slope as the finite
+    difference, finite at any s (no overflow), and s itself below zero."""
+    from diag.core.parts.sources import limit_curve
+
+    s = np.concatenate([np.linspace(-3, 3, 601), np.geomspace(3, 1e300, 50)])
+    f, d = limit_curve(s)
+    assert np.isfinite(f).all() and np.isfinite(d).all()
+    assert (np.diff(f) >= 0).all() and (f <= 1).all()
+    low = (s > 0) & (s <= 0.5)
+    assert_allclose(f[low], s[low], rtol=1e-3)
+    assert_allclose(f[s < 0], s[s < 0], rtol=0)
+    assert_allclose(f[s > 1e3], 1.0, rtol=1e-12)
+    h = 1e-6
+    mid = np.linspace(0.01, 5, 50)
+    fd = (limit_curve(mid + h)[0] - limit_curve(mid - h)[0]) / (2 * h)
+    assert_allclose(limit_curve(mid)[1], fd, rtol=1e-5, atol=1e-8)
+
+
 def test_batched_solve_equals_single_solves():
     # independent path: one batched solve against B separate one-variant solves
     c = follower()

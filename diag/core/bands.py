@@ -145,10 +145,41 @@ class CheckResult:
 
     @property
     def supply_limits(self) -> dict[str, float]:
-        """Supply ref -> the `amps` it gives (its current limit or rating), amperes: read
-        and not modelled (every supply is its volts behind r_source)."""
+        """Supply ref -> the `amps` it gives (a rating), amperes: read and not modelled
+        (a current limit that is modelled is given as `limit:`)."""
         return {p.ref: float(p.fields["amps"]) for p in self.case.parts
                 if p.kind == "supply" and p.fields.get("amps")}
+
+    @property
+    def current_limits(self) -> dict[str, dict[str, float | None]]:
+        """Supply ref -> {"limit": its `limit:` in amperes, "high": the healthy band's top
+        at a point reading that supply's current (None without one)}."""
+        out = {}
+        for p in self.case.parts:
+            if p.kind == "supply" and p.fields.get("limit"):
+                tops = [b.high for b in self.points if b.kind == "dc"
+                        and self.case.point(b.point).supply == p.ref and np.isfinite(b.high)]
+                out[p.ref] = {"limit": float(p.fields["limit"]),
+                              "high": max(tops) if tops else None}
+        return out
+
+    def current_limit_text(self) -> str:
+        """The sentence on modelled current limits, and a warning where a healthy unit
+        comes within the limit's spread of it; "" when no supply has one."""
+        from diag.core.parts.sources import LIMIT_TOL
+        from diag.core.values import format_value
+
+        parts = []
+        for ref, c in self.current_limits.items():
+            s = f"{ref} holds its current at {format_value(c['limit'], 'A')}"
+            if c["high"] is not None and c["high"] >= c["limit"] * (1 - LIMIT_TOL):
+                s += (f" (a healthy unit draws up to {format_value(c['high'], 'A')}, close "
+                      f"enough for the limit to shape good readings: set it higher)")
+            parts.append(s)
+        if not parts:
+            return ""
+        return ("Current limits: " + "; ".join(parts) + ". A fault that would draw more is "
+                "predicted at the limit with its rail fallen.")
 
     def supply_limit_text(self) -> str:
         """The sentence on supplies' current limits diag does not model; "" if none."""
@@ -157,10 +188,11 @@ class CheckResult:
         return _read_not_used(
             "Supply limits", {r: f"amps {format_value(a, 'A')}"
                               for r, a in self.supply_limits.items()},
-            "does not model: each supply is its volts behind its source resistance, so diag "
-            "predicts a fault that would draw more (a short) at whatever current that "
-            "resistance lets through, where a current-limited supply holds the current at "
-            "its limit and lets its voltage fall.")
+            "does not model: such a supply is its volts behind its source resistance, so "
+            "diag predicts a fault that would draw more (a short) at whatever current that "
+            "resistance lets through. If the supply holds its current at a set limit and "
+            "lets its voltage fall (a bench supply's constant-current setting), give that "
+            "as `limit:` instead, which diag models.")
 
     def unused_model_text(self) -> str:
         """The sentence naming card parameters diag leaves out; "" when there are none."""
@@ -173,7 +205,7 @@ class CheckResult:
     def to_json(self, case_path: str | None = None) -> dict[str, Any]:
         """SPEC section 6 object (plus the extra keys regions, failed, draws,
         junction_signal, ac_swing, quiet_level, unstable_operating_point,
-        switched_states, unused_model_params, unmodelled_supply_limits)."""
+        switched_states, unused_model_params, unmodelled_supply_limits, current_limits)."""
         def num(x: float) -> float | None:
             return float(x) if np.isfinite(x) else None
 
@@ -196,6 +228,7 @@ class CheckResult:
             "switched_states": self.switched,
             "unused_model_params": {r: list(n) for r, n in self.unused_model.items()},
             "unmodelled_supply_limits": self.supply_limits,
+            "current_limits": self.current_limits,
         }
 
 

@@ -220,7 +220,7 @@ FIELDS: Mapping[str, tuple[str, ...]] = MappingProxyType({
     "speaker": ("r_dc", "watts"),
     "fuse": ("amps",),
     "link": (),
-    "supply": ("tol", "r_source", "amps"),
+    "supply": ("tol", "r_source", "amps", "limit"),
     "signal": ("hz", "r_source"),
     "pot": ("tol", "set"),
     "npn": ("model", "hfe"), "pnp": ("model", "hfe"),
@@ -233,7 +233,8 @@ REQUIRED: Mapping[str, tuple[str, ...]] = MappingProxyType({"pot": ("set",), "si
 _FIELD_UNITS: Mapping[str, tuple[str, float | None, bool]] = MappingProxyType({
     "ohms": ("ohm", 0.0, False), "farads": ("F", 0.0, False), "henries": ("H", 0.0, False),
     "volts": ("V", None, False), "vrms": ("V", 0.0, False), "hz": ("Hz", 0.0, False),
-    "watts": ("W", 0.0, False), "amps": ("A", 0.0, False), "volts_rated": ("V", 0.0, False),
+    "watts": ("W", 0.0, False), "amps": ("A", 0.0, False), "limit": ("A", 0.0, False),
+    "volts_rated": ("V", 0.0, False),
     "esr": ("ohm", 0.0, True), "leak": ("ohm", 0.0, False), "r_dc": ("ohm", 0.0, True),
     "r_source": ("ohm", 0.0, True), "bv": ("V", 0.0, False),
 })

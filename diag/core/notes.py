@@ -70,7 +70,9 @@ def bench_notes_many(case: Case, rules, units: Sequence[Sequence], meter_accurac
            rules["checks"].get("uncertain") or "", across)
     below = rules["checks"].get("below_ground") if case.nothing_below_ground else None
     mirrored = case.nothing_above_ground
-    return [_below_ground(case, rs, meter_accuracy, below)
+    limit = rules["checks"].get("at_limit")
+    return [_at_limit(case, rs, meter_accuracy, limit)
+            + _below_ground(case, rs, meter_accuracy, below)
             + _notes(checks, rails, fixed, node_volts(case, rs), meter_accuracy,
                      case.ground, direct_volts(case, rs), ctx, mirrored)
             for rs in units]
@@ -90,6 +92,26 @@ def _below_ground(case: Case, readings: Sequence, meter_accuracy, text: str | No
             if x < -err:
                 out.append(text.format(point=pt.id, v=format_value(x, "V"),
                                        err=format_value(_round_up(err), "V")))
+    return out
+
+
+def _at_limit(case: Case, readings: Sequence, meter_accuracy, text: str | None) -> list[str]:
+    """A note for each supply-point reading at that supply's current limit: at or above
+    the limit less its spread (parts.sources.LIMIT_TOL) and the meter's bound (1 % of
+    the reading without one)."""
+    from diag.core.parts.sources import LIMIT_TOL
+
+    if not text:
+        return []
+    out = []
+    for pt, x in _dc_points(case, readings):
+        lim = case.part(pt.supply).fields.get("limit") if pt.supply else None
+        if not lim:
+            continue
+        err = meter_accuracy(abs(x)) if meter_accuracy else 0.01 * abs(x)
+        if x + err >= float(lim) * (1.0 - LIMIT_TOL):
+            out.append(text.format(point=pt.id, i=format_value(x, "A"), ref=pt.supply,
+                                   limit=format_value(float(lim), "A")))
     return out
 
 

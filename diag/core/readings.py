@@ -19,6 +19,7 @@ from pathlib import Path
 from diag.core.case import Case, Point
 from diag.core.engine import Reading
 from diag.core.errors import DiagError
+from diag.core.parts.sources import LIMIT_TOL
 from diag.core.rules import load_rules
 from diag.core.values import format_value, parse_value
 
@@ -66,10 +67,12 @@ def limits(case: Case, rules=None) -> dict[tuple[str, str], tuple[float, float]]
     vpk = (sig.value or 0.0) * math.sqrt(2) if sig is not None else 0.0
     vmax = (vsum + vpk) * (1 + over) + neg_v
     positive = case.nothing_below_ground
-    def most_amps(sp) -> float:  # what the supply's source resistance lets through
+    def most_amps(sp) -> float:  # what the source resistance or current limit lets through
         r = float(sp.fields.get("r_source", 0.0) or 0.0)
         v = abs(sp.value or 0.0) * (1 + (sp.tol or 0.0)) * (1 + over)
-        return v / r if r > 0 else math.inf
+        lim = sp.fields.get("limit")
+        cap = float(lim) * (1 + LIMIT_TOL) * (1 + over) if lim else math.inf
+        return min(v / r if r > 0 else math.inf, cap)
 
     out = {}
     for pt in case.points:

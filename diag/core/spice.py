@@ -24,7 +24,8 @@ How each part and fault hook maps (element names are <letter>_<ref>[_<role>]):
   is (z - r) / (2 pi f 1 MH), below 1e-8 of z at 20 Hz and up); with z < r (a shorted
   coil drawn with its own r and z): `r` in parallel with r z / (r - z) behind a 1 MF
   capacitor (its reactance, under 1e-8 ohm at 20 Hz, is left out).
-- supply: DC source `v` behind its source resistance `r`; signal: 0 V DC, AC `vac`
+- supply: DC source `v` behind its source resistance `r` (with a current limit `ilim`,
+  a B-source of `limit_expr` in place of `r`); signal: 0 V DC, AC `vac`
   (volts rms, so ngspice's AC phasors are rms too) behind `r`.
 - diode, led, zener: ngspice diode with IS N RS BV IBV. `k = 0` (open) opens the anode
   lead with a 1e12 ohm resistor; `g_sh` > 0 adds a resistor 1/g_sh across the terminals.
@@ -70,6 +71,20 @@ SPEAKER_C_FARADS = 1e6   # passes the AC-only branch of a speaker whose z is bel
 _BJT_PARAMS = tuple(k.lower() for k in bjt.MODEL_NAMES if k not in ("BVEBO", "BVCBO"))
 _DIODE_PARAMS = tuple(k.lower() for k in diode.SPICE_DEFAULTS)
 _INFINITE_WHEN_ZERO = {"bv", *bjt.INFINITE_WHEN_ZERO}
+
+
+def limit_expr(v: str, ilim: float, r: float, n: int | None = None) -> str:
+    """ngspice B-source current (amperes) of a current-limited supply (parts/sources.py
+    limit_curve) with `v` the voltage across its source resistance r and limit ilim:
+    ilim s / (1 + s^n)^(1/n) for s = v / (ilim r) > 0, written in 1/s above s = 1 so
+    that no power can overflow, and s ilim below 0 (n is LIMIT_KNEE unless given)."""
+    from diag.core.parts.sources import LIMIT_KNEE, R_FLOOR
+
+    n = LIMIT_KNEE if n is None else n
+    s = f"({v}/{_fmt(ilim * max(r, R_FLOOR))})"
+    up = f"pow(1+pow(1/{s},{n}),{_fmt(-1.0 / n)})"
+    mid = f"{s}/pow(1+pow({s},{n}),{_fmt(1.0 / n)})"
+    return f"{{{_fmt(ilim)}*({s}>1 ? {up} : ({s}>0 ? {mid} : {s}))}}"
 
 
 def _fmt(x: float) -> str:
@@ -255,7 +270,12 @@ def _part_lines(case, part, val, var) -> list[str]:
             wave = f"dc {_fmt(val(f'{ref}.v'))} ac 0"
         else:
             wave = f"dc 0 ac {_fmt(val(f'{ref}.vac'))}"
-        if r > 0:
+        ilim = val(f"{ref}.ilim", math.inf) if k == "supply" else math.inf
+        if math.isfinite(ilim):
+            x = inner("src")
+            out += [f"{src} {x} {minus} {wave}",
+                    f"{el('B', 'lim')} {x} {plus} I={limit_expr(f'v({x},{plus})', ilim, r)}"]
+        elif r > 0:
             x = inner("src")
             out += [f"{src} {x} {minus} {wave}", res(el("R", "src"), x, plus, r)]
         else:
