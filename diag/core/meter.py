@@ -181,6 +181,11 @@ LOAD_EXACT = 1e-3   # divider correction (Rth / (Rth + r_in), or the burden's sh
 LINEAR_START = 0.05  # up to this divider correction Newton starts from the linearised
                      # loaded state, beyond it from the unloaded one (far from linear, the
                      # extrapolation overshoots and junction limiting crawls back)
+METER_BIAS = 0.1     # divider correction past which the meter's current is a sizeable
+                     # part of the node's bias (a starved emitter: about 1), so that a
+                     # large-signal pass for the reading is run with the meter connected
+                     # (overdrive._metered); below it the bias moves by under a tenth,
+                     # well inside the pass's own spread (overdrive.SPREAD)
 
 
 def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
@@ -199,7 +204,9 @@ def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     against the AC Thevenin impedance at the signal frequency; for the variants solved
     again, the small-signal system about the loaded operating point with r_in ∥ c_in in it,
     then (`large_signal`) limited where the unit is overdriven (overdrive.limit_observed: no
-    stage swings past its rails; False gives the small-signal readings). Supply points: the
+    stage swings past its rails; a reading solved again with the meter gets its
+    large-signal pass with the meter connected too; False gives the small-signal
+    readings). Supply points: the
     DC current drawn from that supply (dc.i_supply, amperes), with the ammeter's burden
     (`a_burden` ohms, in series with the supply while it is read) applied by a solve with
     the supply's source resistance raised by it where the burden is more than LOAD_EXACT of
@@ -233,13 +240,14 @@ def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
 
     r_in = float(input_impedance(meter))
     pairs = list(volt_cols)
+    again = []
+    biased = {}   # pair -> variants whose bias the meter moves (METER_BIAS)
     if pairs:
         rth, resp = solver.thevenin(circuit, params, dc, pairs, columns=True)
         ac_pairs = [p for p in pairs if any(k == "ac" for _, k in volt_cols[p])]
         zth = (np.asarray(solver.thevenin(circuit, params, dc, ac_pairs, ac=ac))
                if ac_pairs else None)
         zin = input_impedance(meter, float(circuit.hz)) if ac_pairs else None
-        again = []
         for j, pair in enumerate(pairs):
             a, b = pair
             for m, kind in volt_cols[pair]:
@@ -262,6 +270,7 @@ def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
                 far = frac[idx] > LINEAR_START
                 x0[far] = dc.x[idx][far]
                 again.append((pair, idx, x0))
+                biased[pair] = idx[frac[idx] > METER_BIAS]
         if again:
             _reload(circuit, params, B, again, volt_cols, r_in, zin, out)
     burden = float(meter.get("a_burden", 0.0) or 0.0)
@@ -273,7 +282,8 @@ def observe(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
         return out
     from diag.core import overdrive
 
-    return overdrive.limit_observed(circuit, params, dc, ac, observables, out)
+    reloaded = {pair: (idx, 1.0 / r_in) for pair, idx in biased.items() if idx.size}
+    return overdrive.limit_observed(circuit, params, dc, ac, observables, out, reloaded)
 
 
 def _reload(circuit, params, B, again, volt_cols, r_in, zin, out) -> None:

@@ -190,8 +190,44 @@ def node_pairs(case: Any, observables: Sequence[Any]) -> list[tuple[str, str]]:
             for pt in (case.point(o.point) for o in observables)]
 
 
+def _metered(circuit: Any, params: Mapping[str, Any], dc: Any, rows: np.ndarray,
+             pairs: Sequence[tuple[str, str]], r: np.ndarray,
+             reloaded: Mapping[tuple[str, str], tuple[np.ndarray, float]]) -> np.ndarray:
+    """`r` (len(rows), len(pairs)) with the units that meter.observe solved again at a
+    pair (the meter's own current moves their operating point: an emitter whose only
+    other DC path is a capacitor's leakage) given the ratio of a pass run with the meter
+    connected across that pair. Without it the pass's r, from a unit the meter does not
+    bias, scales a small-signal reading that the meter's bias sets. (line-driver with R6
+    open, whose emitter the meter's 0.7 µA biases: r 0.20 without, 0.21 with, of a
+    70 mV small-signal figure; ngspice's transient with the meter reads 16 mV.)"""
+    from diag.core import largesignal, solver
+
+    B = dc.v.shape[0]
+    out = np.array(r, dtype=float)
+    for j, pair in enumerate(pairs):
+        got = reloaded.get(pair)
+        if got is None:
+            continue
+        idx, g = got
+        sel = np.flatnonzero(np.isin(rows, idx))
+        if not sel.size:
+            continue
+        units = rows[sel]
+        sub = solver.take(params, units, B)
+        load = [(pair[0], pair[1], np.full(units.size, float(g)))]
+        with np.errstate(all="ignore"):
+            dcl = solver.solve_dc(circuit, sub, load=load, x_start=dc.x[units])
+            rl = largesignal.ratios(circuit, sub, dcl, np.arange(units.size), [pair],
+                                    load=load)[:, 0]
+        fine = np.asarray(dcl.ok, bool) & np.isfinite(rl)
+        out[sel[fine], j] = rl[fine]
+    return out
+
+
 def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
-                   observables: Sequence[Any], readings: np.ndarray) -> np.ndarray:
+                   observables: Sequence[Any], readings: np.ndarray,
+                   reloaded: Mapping[tuple[str, str], tuple[np.ndarray, float]] | None = None
+                   ) -> np.ndarray:
     """Meter readings at `observables` (Case.observables order) of the units in `params`
     (B = readings' rows) with their AC points (away from the signal's own node) taken
     out of the small-signal range where the tone takes the unit out of it.
@@ -202,7 +238,10 @@ def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
     gives r, how much the tone's own size changes each AC reading. The reading lies
     within a·r·exp(±SPREAD·max|ln r|), joined with `limit`'s rail range where g passes
     FLOOR, log-uniformly (the unit's draw picks where), never above S/2. Where the pass
-    did not solve, `limit`'s range."""
+    did not solve, `limit`'s range. `reloaded` {(node, reference node): (units, meter
+    siemens)}: readings meter.observe solved again with the meter connected (its current
+    moves the operating point); their r comes from a pass with the meter connected too,
+    so that r and the small-signal reading it scales rest on one bias (`_metered`)."""
     case = circuit.case
     cols = swung(case, observables)
     if not cols or ac is None:
@@ -229,6 +268,8 @@ def limit_observed(circuit: Any, params: Mapping[str, Any], dc: Any, ac: Any,
         return out
     pairs = node_pairs(case, [observables[m] for m in cols])
     r = largesignal.ratios(circuit, params, dc, rows, pairs)
+    if reloaded:
+        r = _metered(circuit, params, dc, rows, pairs, r, reloaded)
     ln_r = np.log(np.where(r > 0, r, np.nan))
     # the unit's own nonlinearity sets the spread at every one of its points
     with np.errstate(invalid="ignore"):

@@ -1097,14 +1097,16 @@ def solve_ac(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult
 
 def thevenin(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult,
              pairs: Sequence[tuple[str, str]], ac: ACResult | None = None, *,
-             columns: bool = False):
+             columns: bool = False, load: Sequence[tuple[str, str, object]] | None = None):
     """Impedance seen between each (node_plus, node_minus) pair at each variant's
     operating point: (B, P) ohms from the DC Jacobian, or complex ohms at circuit.hz when
     `ac` is given. Either node may be the ground. NaN where the DC point is not ok.
     With `columns`, returns (impedances, transfer) where transfer (B, P, n_unknowns) is
     the change of every unknown per ampere driven into node_plus and out of node_minus
-    (volts per ampere, the linearised response)."""
-    plan = _plan(circuit)
+    (volts per ampere, the linearised response). `load` as in solve_dc (admittances at
+    circuit.hz with `ac`): branches that are not parts, such as a meter's input."""
+    load_idx = _load_index(circuit, load)
+    plan = _plan(circuit, load_idx)
     B, P = _batch(circuit, params)
     B = max(B, dc.v.shape[0])
     DP = _prepared(plan, P)
@@ -1117,10 +1119,11 @@ def thevenin(circuit: Circuit, params: Mapping[str, object] | None, dc: DCResult
         return (out, cols) if columns else out
     if ac is None:
         A_lin, _ = _linear(circuit, plan, P, B, None)
+        _stamp_load(plan, A_lin, load_idx)
         xp = np.vstack([dc.x.T, np.zeros((1, B))])
         A = _jacobian(circuit, plan, DP, A_lin, xp, act)
     else:
-        A, _ = _ac_matrix(circuit, plan, P, DP, dc, B, act)
+        A, _ = _ac_matrix(circuit, plan, P, DP, dc, B, act, load_idx)
     rhs = np.zeros((plan.n, len(idx), act.size), dtype=dtype)
     for k, (i, j) in enumerate(idx):
         if i >= 0:
