@@ -168,6 +168,8 @@ def draw_unit(case: Case, rng: np.random.Generator) -> BenchUnit:
     # stream, seeded from `rng`'s state without advancing it: every other draw of a unit
     # is what it was before, so figures before and after compare on the same units
     side = np.random.default_rng(rng.bit_generator.state["state"]["state"])
+    # a supply's current limit likewise (giving a case a limit leaves every other draw)
+    lim = np.random.default_rng([rng.bit_generator.state["state"]["state"], 1])
     for p in case.parts:
         f = p.fields
         t = _tol(p)
@@ -213,9 +215,9 @@ def draw_unit(case: Case, rng: np.random.Generator) -> BenchUnit:
         elif k == "supply":
             vals[p.ref] = {"v": p.value * (1 + rng.uniform(-t, t)),
                            "r": float(f.get("r_source") or bb["supply_r_source"])}
-            if f.get("limit"):
+            if f.get("limit"):  # from a stream of its own, as `side` below
                 lt = bb["supply_limit_tol"]
-                vals[p.ref]["ilim"] = float(f["limit"]) * (1 + rng.uniform(-lt, lt))
+                vals[p.ref]["ilim"] = float(f["limit"]) * (1 + lim.uniform(-lt, lt))
         elif k == "signal":
             e = bb["signal_vrms_tol"]
             vals[p.ref] = {"vac": p.value * (1 + rng.uniform(-e, e)),

@@ -353,3 +353,29 @@ def test_reused_work_buffers_carry_nothing_between_solves_or_threads():
         t.join()
     assert all(np.array_equal(x, first.x, equal_nan=True) for x in got["a"])
     assert all(np.array_equal(x, alone.x) for x in got["b"])
+
+
+def test_a_supply_limit_leaves_every_other_draw_as_it_was(tmp_path):
+    """Giving diff-receiver's two rails a 20 mA limit (it draws about 2 mA): the healthy
+    draws of every other parameter, and the faults' values drawn after them, are the
+    same numbers (the limit draws from a stream of its own), and the solved units agree
+    to 1e-9 V, so a limit no unit reaches changes nothing."""
+    from diag.core.paths import cases_dir
+
+    text = (cases_dir() / "diff-receiver.yaml").read_text()
+    lim = tmp_path / "lim.yaml"
+    lim.write_text(text.replace("r_source: 1,", "r_source: 1, limit: 20m,"))
+    a = netlist.compile_case(load_case(str(cases_dir() / "diff-receiver.yaml")))
+    b = netlist.compile_case(load_case(str(lim)))
+    da = ensemble.draw_healthy(a, 64, np.random.default_rng(5))
+    rb = np.random.default_rng(5)
+    db = ensemble.draw_healthy(b, 64, rb)
+    ra = np.random.default_rng(5)
+    ensemble.draw_healthy(a, 64, ra)
+    assert ra.random() == rb.random()             # the stream goes on alike
+    assert set(db) - set(da) == {"V1.ilim", "V3.ilim"}
+    for k in da:
+        assert_allclose(db[k], da[k], rtol=0)
+    va = solver.solve_dc(a, da).v
+    vb = solver.solve_dc(b, db).v
+    assert_allclose(vb, va, atol=1e-9)

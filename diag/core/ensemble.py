@@ -24,12 +24,18 @@ def draw_healthy(circuit: Circuit, K: int, rng: np.random.Generator) -> dict[str
     between the leakage-limit value and 100 times it) and scales the other keys with it;
     "lognormal" multiplies by exp(N(0, a)) (saturation currents). Keys without a spread
     are left out (nominal). Draws follow circuit.spreads order, so a seed gives the same
-    units for the same circuit.
+    units for the same circuit. A supply's current limit (`.ilim`) draws from a stream
+    of its own, seeded from `rng` without advancing it, so that giving a supply a limit
+    leaves every other draw, here and after (the faults' values), as it was: a limit no
+    unit reaches changes nothing.
     """
     out: dict[str, np.ndarray] = {}
+    side = np.random.default_rng([int(rng.bit_generator.state["state"]["state"]), 1])
     for s in circuit.spreads:
         nom0 = circuit.nominal[s.keys[0]]
-        if s.dist == "uniform":
+        if s.keys[0].endswith(".ilim"):
+            f = 1.0 + side.uniform(s.a, s.b, K)
+        elif s.dist == "uniform":
             f = 1.0 + rng.uniform(s.a, s.b, K)
         elif s.dist == "loguniform":
             f = np.exp(rng.uniform(np.log(s.a), np.log(s.b), K)) / nom0
