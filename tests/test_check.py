@@ -397,7 +397,8 @@ def test_check_names_a_modelled_current_limit_and_warns_when_good_units_reach_it
     limit in text and JSON (with the healthy band's top at the supply point, about the
     27 mA idle draw). The lamp fixture (tests/data/limited-lamp.yaml, 109 mA healthy) set
     to 110 mA is within the limit's 5 % spread of good units: check says to set it
-    higher; at 150 mA it does not."""
+    higher; at 150 mA it does not (the 5 % is from memory, parts/sources.py LIMIT_TOL;
+    the warning is a rule of the engine's own)."""
     path = str(cases_dir() / "pushpull-output.yaml")
     assert main(["check", path]) == 0
     out = " ".join(capsys.readouterr().out.split())

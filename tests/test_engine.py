@@ -193,7 +193,8 @@ def test_bench_notes_from_readings_alone(eng):
 def test_a_supply_reading_at_its_current_limit_gets_a_note():
     """pushpull-output's supply is limited to 250 mA: a supply reading within the
     limit's spread (5 %) and the meter's error of it says the supply holds its current
-    and its rail has fallen; the idle 27 mA, or 200 mA, says nothing of the kind."""
+    and its rail has fallen; the idle 27 mA, or 200 mA, says nothing of the kind (a
+    supply at its limit means a short: common practice, no source)."""
     from diag.core import notes
     from diag.core.rules import load_rules
 

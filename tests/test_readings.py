@@ -89,7 +89,8 @@ def test_check_value_for_one_typed_reading(case):
 def test_a_supply_current_above_its_limit_is_refused(case):
     """pushpull-output's bench supply holds its current at 250 mA (`limit:`): a supply
     reading above the limit with its spread and the readings' over-supply margin (5 %
-    each: 276 mA) cannot come from this circuit, one at the limit can."""
+    each: 276 mA) cannot come from this circuit, one at the limit can (SPEC section 2:
+    a reading far outside what the circuit can produce is refused)."""
     assert case.part("V1").fields["limit"] == pytest.approx(0.25)
     assert readings.check_value(case, "TP1", "dc", "262m") == pytest.approx(0.262)
     with pytest.raises(DiagError):

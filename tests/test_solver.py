@@ -87,8 +87,10 @@ def test_current_limited_supply_by_ohms_law():
 
 
 def test_limit_curve_is_smooth_and_safe():
-    """The knee: f(s) = s up to s = 1/2 within 0.1 %, f -> 1 beyond, slope as the finite
-    difference, finite at any s (no overflow), and s itself below zero."""
+    """The knee: f(s) = s up to s = 1/2 within 0.1 %, f -> 1 beyond, slope as the central
+    finite difference (handbook numerical differentiation), finite at any s (no
+    overflow), and s itself below zero (the knee's shape is a rule of the engine's own,
+    parts/sources.py)."""
     from diag.core.parts.sources import limit_curve
 
     s = np.concatenate([np.linspace(-3, 3, 601), np.geomspace(3, 1e300, 50)])
@@ -359,7 +361,7 @@ def test_a_supply_limit_leaves_every_other_draw_as_it_was(tmp_path):
     """Giving diff-receiver's two rails a 20 mA limit (it draws about 2 mA): the healthy
     draws of every other parameter, and the faults' values drawn after them, are the
     same numbers (the limit draws from a stream of its own), and the solved units agree
-    to 1e-9 V, so a limit no unit reaches changes nothing."""
+    to 1e-9 V, so a limit no unit reaches changes nothing (a rule of the engine's own)."""
     from diag.core.paths import cases_dir
 
     text = (cases_dir() / "diff-receiver.yaml").read_text()
