@@ -8,6 +8,7 @@ import json
 
 import numpy as np
 import pytest
+from textual.widgets import Input
 from tui_support import (  # noqa: F401
     CASES,
     fixture_diag_home,
@@ -337,6 +338,53 @@ async def test_fast_typing_reaches_the_entry(diag_home):
         assert r is not None and r.value == pytest.approx(1.25)  # typed text, parsed
 
 
+def _burst(app, text: str) -> None:
+    """Send `text` as one burst of key events, the way a terminal delivers a paste or
+    fast typing: "\r" is enter, "\b" backspace."""
+    from textual import events
+
+    names = {".": "full_stop", "-": "minus", "+": "plus", " ": "space", "\r": "enter",
+             "\b": "backspace"}
+    for ch in text:
+        app._driver.send_message(events.Key(names.get(ch, ch), ch if ch != "\b" else None))
+
+
+def _taken(screen, n: int) -> list[float | None]:
+    """The values read at the case's first n observables (None where none is taken)."""
+    got = [screen.session.reading(o.point, o.kind) for o in screen.case.observables[:n]]
+    return [r.value if r else None for r in got]
+
+
+@sync
+async def test_burst_of_readings_lands_row_by_row(diag_home):
+    # several values and enters in one burst, from the table (our own interface rule: no
+    # key typed is lost or moved to another row however fast it comes)
+    app = DiagApp(case_path=CASE)
+    async with app.run_test(size=(120, 40)) as pilot:
+        screen = await _open(pilot)
+        _burst(app, "15m\r4.9\r1.7x\b\r")
+        await settle(pilot)
+        assert _taken(screen, 3) == pytest.approx([0.015, 4.9, 1.7])
+        assert screen.query_one(PointsTable).cursor_row == 3
+        assert screen.query_one("#entry", Input).value == ""
+
+
+@sync
+async def test_burst_in_the_entry_field_lands_row_by_row(diag_home):
+    # the same burst once the entry field has the focus (e typed on the table): each
+    # enter records the value on its own row and the next value goes to the next row
+    app = DiagApp(case_path=CASE)
+    async with app.run_test(size=(120, 40)) as pilot:
+        screen = await _open(pilot)
+        await pilot.press("e")
+        await settle(pilot)
+        assert isinstance(screen.focused, Input)
+        _burst(app, "15m\r4.9\r")
+        await settle(pilot)
+        assert _taken(screen, 2) == pytest.approx([0.015, 4.9])
+        assert screen.query_one(PointsTable).cursor_row == 2
+
+
 @sync
 async def test_cold_build_reports_progress(tmp_path, monkeypatch):
     # a private, empty cache: the predictions are built in the worker, with progress
@@ -513,3 +561,64 @@ async def test_help_explains_the_marks_of_the_session_screen(diag_home):
         words = str(app.screen.query_one("#help-words").content)
         for term in ("healthy", "off healthy", "→", "posterior", "grp, ≡", "bits"):
             assert term in words
+
+
+@sync
+async def test_pasted_column_lands_row_by_row(diag_home):
+    # a column of values pasted on the table: each whole line on its own row, a last
+    # line without a line break left in the field; a refused line stops the paste there
+    # and says how many were taken (our own interface rule)
+    from textual import events
+
+    app = DiagApp(case_path=CASE)
+    async with app.run_test(size=(120, 40)) as pilot:
+        screen = await _open(pilot)
+        app._driver.send_message(events.Paste("15m\n4.9\n1.7"))
+        await settle(pilot)
+        assert _taken(screen, 3)[:2] == pytest.approx([0.015, 4.9])
+        assert _taken(screen, 3)[2] is None
+        assert screen.query_one("#entry", Input).value == "1.7"
+        _burst(app, "\r")
+        await settle(pilot)
+        assert _taken(screen, 3)[2] == pytest.approx(1.7)
+
+        table = screen.query_one(PointsTable)
+        table.move_cursor(row=0, animate=False)
+        await pilot.pause()
+        app._driver.send_message(events.Paste("12m\n4kk\n1.6\n"))
+        await settle(pilot)
+        assert _taken(screen, 3) == pytest.approx([0.012, 4.9, 1.7])
+        assert screen.query_one("#entry", Input).value == "4kk"
+        msg = str(screen.query_one("#entry-msg").content)
+        assert "4kk" in msg and "1 pasted value taken, 1 after it not entered" in msg
+
+
+@sync
+async def test_refused_value_is_replaced_by_the_next_key(diag_home):
+    # a refused value stays in view with the reason; the next value typed starts afresh,
+    # backspace edits the refused one instead; up drops it and moves the cursor
+    app = DiagApp(case_path=CASE)
+    async with app.run_test(size=(120, 40)) as pilot:
+        screen = await _open(pilot)
+        table = screen.query_one(PointsTable)
+        table.move_cursor(row=1, animate=False)
+        await pilot.pause()
+        entry = screen.query_one("#entry", Input)
+        _burst(app, "4kk\r")
+        await settle(pilot)
+        assert entry.value == "4kk" and _taken(screen, 2)[1] is None
+        _burst(app, "4.8\r")
+        await settle(pilot)
+        assert _taken(screen, 2)[1] == pytest.approx(4.8)
+        assert table.cursor_row == 2
+        _burst(app, "3.3kk\r\b\b\r")
+        await settle(pilot)
+        assert _taken(screen, 3)[2] == pytest.approx(3.3)
+        assert table.cursor_row == 3
+        from textual import events
+
+        app._driver.send_message(events.Key("2", "2"))
+        app._driver.send_message(events.Key("up", None))
+        await settle(pilot)
+        assert entry.value == "" and table.cursor_row == 2
+        assert _taken(screen, 4)[3] is None

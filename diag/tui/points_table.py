@@ -1,11 +1,15 @@
 """The test-point table of the session screen: the healthy band, the reading taken, how far
 it sits from healthy and where to probe (last, so that a narrow panel cuts the description
 rather than the figures). An arrow marks the advised next reading. Rows are keyed
-"POINT/kind"."""
+"POINT/kind". Keys and pastes are first offered to the screen's `typed` and `pasted`
+(a value typed in place), in the order they arrive."""
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from rich.text import Text
+from textual import events
 from textual.widgets import DataTable
 
 from diag.core.case import Case, Observable
@@ -26,9 +30,11 @@ class PointsTable(DataTable):
                ("reading", "reading"), ("off healthy", "off"), ("where to probe", "where"))
     NEXT_MARK = "→"
 
-    def __init__(self, case: Case, **kwargs) -> None:
+    def __init__(self, case: Case, typed: Callable[[events.Key], bool] | None = None,
+                 pasted: Callable[[str], None] | None = None, **kwargs) -> None:
         super().__init__(cursor_type="row", zebra_stripes=True, **kwargs)
         self.case = case
+        self._typed, self._pasted = typed, pasted
         self.observables: tuple[Observable, ...] = case.observables
         self._shown: dict[str, tuple] = {}
         self._marked: str | None = None
@@ -45,6 +51,18 @@ class PointsTable(DataTable):
             where = self.case.point(o.point).where
             self.add_row("", Text(o.point, style="bold"), o.kind, "…", "", "",
                          Text(where, overflow="ellipsis"), key=row_key(o.point, o.kind))
+
+    async def _on_key(self, event: events.Key) -> None:
+        # before the table's bindings, which run once the key has passed up to the app:
+        # a burst of keys keeps its order (see diag.tui.entry_field)
+        if self._typed is not None and self._typed(event):
+            event.stop()
+            event.prevent_default()
+
+    def _on_paste(self, event: events.Paste) -> None:
+        if self._pasted is not None:
+            event.stop()
+            self._pasted(event.text)
 
     def mark_next(self, point: str | None, kind: str | None = None) -> None:
         """Put the arrow on the advised next reading's row (None: on no row)."""

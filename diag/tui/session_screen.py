@@ -16,10 +16,16 @@ CONSTRUCTOR (stable; diag.tui.batch_screen and the app use it):
 
 Every accepted reading is autosaved at once (atomic write) and the ranking is redone in a
 thread worker; stale results (an older reading set) are dropped.
+
+Values are typed in place on the points table (a digit starts the entry) or in the entry
+field (e); either way enter records the value and moves to the next row, the field's text
+is handled key by key in the order typed (a burst of values and enters lands row by row),
+and a pasted column of values is entered row by row.
 """
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 from textual import on, work
@@ -35,6 +41,7 @@ from diag.core.engine import Band, Diagnosis, Engine, Reading
 from diag.core.errors import DiagError
 from diag.core.session import Session, new_session, report_name
 from diag.tui.advice_panel import BenchNotesPanel, NextReadingPanel
+from diag.tui.entry_field import EntryField
 from diag.tui.fit_banner import FitBanner
 from diag.tui.fmt import esc
 from diag.tui.messages import (
@@ -102,7 +109,9 @@ class SessionScreen(Screen[None]):
         self.shown_serial = -1
         self._awaiting_advice = False  # the ranking on screen still waits for its advice
         self.last_error = ""
-        self._typing = False
+        self._typing = False  # a value is being typed in place on the points table
+        self._typing_row = -1
+        self._refused_text = False  # the field shows a value just refused
         self._binding_state: tuple = ()
 
     # ------------------------------------------------------------------ layout
@@ -114,11 +123,14 @@ class SessionScreen(Screen[None]):
         yield FitBanner(id="fit-banner")
         with Horizontal(id="body"):
             with Vertical(id="left"):
-                yield PointsTable(self.case, id="points")
+                yield PointsTable(self.case, typed=self._typed, pasted=self._pasted,
+                                  id="points")
                 with Horizontal(id="entry-row"):
                     yield Label("", id="entry-label")
-                    yield Input(placeholder="type a value, e.g. 1.48, 312m, 0.71 V",
-                                id="entry", select_on_focus=False)
+                    yield EntryField(self._submit, self._step, self.action_leave_entry,
+                                     self._pasted,
+                                     placeholder="type a value, e.g. 1.48, 312m, 0.71 V",
+                                     id="entry", select_on_focus=False)
                 yield Static("", id="entry-msg", markup=False)
             with Vertical(id="right"):
                 with Horizontal(id="build-row"):
@@ -218,79 +230,147 @@ class SessionScreen(Screen[None]):
 
     @on(DataTable.RowHighlighted, "#points")
     def _row_moved(self) -> None:
+        # a value typed in place belongs to its row: moved away from it, it is dropped
+        if self._typing and self.query_one("#points", PointsTable).cursor_row != \
+                self._typing_row:
+            self._set_typing(False)
+            self.query_one("#entry", Input).value = ""
         self._sync_entry_label()
 
     @on(DataTable.RowSelected, "#points")
     def _row_chosen(self) -> None:
-        if self._typing:  # enter typed fast after a value: it reached the table first
-            self._submit(self.query_one("#entry", Input).value)
-        else:
-            self.action_enter_reading()
+        self.action_enter_reading()
 
     @on(DataTable.RowSelected, "#suspects")
     def _suspect_chosen(self) -> None:
         self.action_detail()
 
-    def on_key(self, event: Key) -> None:
-        # Typing a digit (or the O of OL) on the table starts the entry in place for the
-        # highlighted row.
-        # Keys typed fast reach the table before the focus has moved and bubble up here
-        # after it: while an entry is being typed they are appended, not lost.
-        if not event.is_printable:
-            return
+    def _typed(self, event: Key) -> bool:
+        """A key on the points table, in the order typed: a digit (or the O of OL) starts
+        a value in place for the highlighted row; while one is typed, characters and
+        backspace edit it, enter records it, escape, up and down drop it (the last two
+        then move the cursor), and left, right, home and end hand it to the entry field.
+        True when the key was used here."""
         entry = self.query_one("#entry", Input)
-        if isinstance(self.focused, PointsTable) and event.character in _TYPING:
-            entry.value = event.character
-            self._typing = True
-        elif self._typing:  # the Input stops its own keys: this one came from the table
-            entry.value += event.character
+        if not self._typing:
+            if not (event.is_printable and event.character in _TYPING):
+                return False
+            self._set_typing(True)
+            entry.value = ""
+        if event.key in ("up", "down", "pageup", "pagedown"):
+            self._set_typing(False)
+            entry.value = ""
+            return False
+        if event.key == "enter":
+            self._submit(entry.value)
+        elif event.key == "backspace":
+            entry.value = entry.value[:-1]
+            self._refused_text = False
+        elif event.key == "escape":
+            self.action_leave_entry()
+        elif event.is_printable and event.character:
+            # a refused value stays shown until a key is typed, which starts afresh
+            entry.value = ("" if self._refused_text else entry.value) + event.character
+            self._refused_text = False
+        elif event.key in ("left", "right", "home", "end"):  # edit the value in the field
+            self._set_typing(False)
+            entry.focus()
         else:
-            return
+            return False
         entry.cursor_position = len(entry.value)
-        self.set_focus(entry)
-        event.stop()
-        event.prevent_default()
+        return True
+
+    def _set_typing(self, on: bool) -> None:
+        self._typing = on
+        self._typing_row = self.query_one("#points", PointsTable).cursor_row if on else -1
+        self.query_one("#entry", Input).set_class(on, "-typing")
+
+    def _pasted(self, text: str) -> None:
+        """A paste on the table or in the field: each whole line is a value for the next
+        row, from the highlighted one on (the field's text before the first); a last
+        line without a line break stays in the field. Stops at the first value refused,
+        which stays in the field with the reason shown."""
+        entry = self.query_one("#entry", Input)
+        parts = re.split(r"\r\n|\r|\n", text)
+        lines, rest = parts[:-1], parts[-1]
+        if lines:
+            lines[0] = entry.value + lines[0]
+        else:
+            rest = entry.value + rest
+        taken = 0
+        for k, line in enumerate(lines):
+            if not line.strip():
+                continue
+            if not self._submit(line):
+                if not isinstance(self.focused, Input):
+                    self._set_typing(True)
+                entry.value = line.strip()
+                entry.cursor_position = len(entry.value)
+                left = len([x for x in lines[k + 1:] if x.strip()]) + bool(rest.strip())
+                if left:
+                    self._message(f"✗ {self.last_error}  ({taken} pasted value"
+                                  f"{'' if taken == 1 else 's'} taken, {left} after it "
+                                  f"not entered)", error=True)
+                return
+            taken += 1
+        if rest:
+            if not isinstance(self.focused, Input):
+                self._set_typing(True)
+            entry.value = rest
+            entry.cursor_position = len(rest)
+
+    def _step(self, step: int) -> None:
+        """Up or down in the entry field: the highlighted row moves, the field empties."""
+        table = self.query_one("#points", PointsTable)
+        table.move_cursor(row=max(0, min(table.row_count - 1, table.cursor_row + step)),
+                          animate=False)
+        self.query_one("#entry", Input).value = ""
 
     def on_descendant_focus(self, event) -> None:
         if isinstance(self.focused, PointsTable):
-            self._typing = False
+            self._set_typing(False)
 
-    @on(Input.Submitted, "#entry")
-    def _entry_submitted(self, event: Input.Submitted) -> None:
-        self._submit(event.value)
-
-    def _submit(self, text: str) -> None:
+    def _submit(self, text: str) -> bool:
+        """Record `text` as the reading at the highlighted row, at once (not by message:
+        keys typed behind the enter must find the next row): True when it was taken. A
+        refused value stays in the field with the reason under it."""
         o = self.query_one("#points", PointsTable).observable_at_cursor()
         if o is None:
-            return
+            return False
         text = text.strip()
         if not text:
             self.action_leave_entry()
-            return
+            return False
         try:
             value = self.engine.check_value(o.point, o.kind, text)
         except DiagError as exc:
+            self._refused(o.point, o.kind, str(exc))
             self.post_message(ReadingRejected(o.point, o.kind, text, str(exc)))
-            return
-        self.post_message(ReadingEntered(Reading(o.point, o.kind, value)))
+            return False
+        reading = Reading(o.point, o.kind, value)
+        self._record(reading)
+        self.post_message(ReadingEntered(reading))
+        return True
 
-    def on_reading_rejected(self, msg: ReadingRejected) -> None:
-        self.last_error = msg.why
-        why = msg.why
-        for head in (f"{msg.point} {msg.kind}: ", f"{msg.point}: "):  # said once is enough
-            why = why[len(head):] if why.startswith(head) else why
-        self._message(f"✗ {msg.point} {msg.kind}: {why}  (other readings kept)", error=True)
-
-    def on_reading_entered(self, msg: ReadingEntered) -> None:
-        self.session.set_reading(msg.reading)
-        self.last_error = ""
-        self._after_change(f"{msg.reading.point} {msg.reading.kind} recorded")
+    def _refused(self, point: str, kind: str, why: str) -> None:
+        self.last_error = why
+        self._refused_text = True
         entry = self.query_one("#entry", Input)
-        entry.value = ""
+        if entry.has_focus:  # in the field too, the next key typed replaces it
+            entry.select_all()
+        for head in (f"{point} {kind}: ", f"{point}: "):  # said once is enough
+            why = why[len(head):] if why.startswith(head) else why
+        self._message(f"✗ {point} {kind}: {why}  (other readings kept)", error=True)
+
+    def _record(self, reading: Reading) -> None:
+        self.session.set_reading(reading)
+        self.last_error = ""
+        self._after_change(f"{reading.point} {reading.kind} recorded")
+        self.query_one("#entry", Input).value = ""
+        self._set_typing(False)
         table = self.query_one("#points", PointsTable)
         if table.cursor_row < table.row_count - 1:
             table.move_cursor(row=table.cursor_row + 1, animate=False)
-        table.focus()
 
     # ------------------------------------------------------------------ actions
 
@@ -331,6 +411,7 @@ class SessionScreen(Screen[None]):
 
     def action_leave_entry(self) -> None:
         self.query_one("#entry", Input).value = ""
+        self._set_typing(False)
         self.query_one("#points", PointsTable).focus()
 
     def action_clear_reading(self) -> None:
