@@ -86,7 +86,7 @@ def _bipolar_size(part: Part) -> str:
 def _draw_bipolar(part: Part, rng: np.random.Generator) -> dict[str, float]:
     b = bench()["bipolar"]
     m = {k: float(v) for k, v in (part.model or {}).items() if k != "name" and _isnum(v)}
-    card = {k: v for k, v in m.items() if k not in ("BVEBO", "BVCBO")}  # not ngspice's
+    card = {k: v for k, v in m.items() if k not in ("BVEBO", "BVCBO", "RBV")}  # not ngspice's
     hfe = part.fields.get("hfe") or _catalogue_hfe(part)
     bf = float(m.get("BF", 100.0))
     card["BF"] = uni(rng, hfe) if hfe else bf * uni(rng, b["bf_spread"])

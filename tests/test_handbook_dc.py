@@ -87,24 +87,29 @@ def test_reversed_emitter_base_junction_holds_near_bvebo():
     # A transistor's emitter-base junction driven in reverse acts as a zener of about
     # 6 to 9 V (common practice, no source). diag places it as the SPICE diode breakdown
     # law (ngspice manual, as in the zener check above) with BV = the card's BVEBO at
-    # IBV = 10 µA and N = BD_N, so with the base grounded and the emitter fed through R:
-    # |V| = BVEBO + N vt ln(I / IBV) (no series resistance), I = (Vs - V) / R, solved
-    # here by fixed point. A lifted emitter lead takes the junction with it: the emitter
-    # then sits at the divider R, 1 MΩ.
+    # IBV = 10 µA, N = BD_N and the series resistance RS = the card's RBV, so with the
+    # base grounded and the emitter fed through R:
+    # |V| = BVEBO + N vt ln(I / IBV) + I RBV, I = (Vs - V) / R, solved here by fixed
+    # point (a contraction while RBV < R). At 10 kΩ the series resistance adds tens of
+    # millivolts; at 100 Ω, tens of milliamperes through it, volts. A lifted emitter lead
+    # takes the junction with it: the emitter then sits at the divider R, 1 MΩ.
     from diag.core.parts.bjt import BD_N, BD_TEST_AMPS
 
     c = compiled(part("V1", "supply", ["vs", "gnd"], 12.0, r_source=0.0),
                  part("R1", "resistor", ["vs", "e"], 10e3),
                  part("R2", "resistor", ["e", "gnd"], 1e6),
                  part("Q1", "npn", ["gnd", "gnd", "e"], model="npn-small"))
-    bv = np.array([6.0, 7.5, 9.0])
-    dc = solver.solve_dc(c, {"Q1.bvebo": bv})
+    bv = np.array([6.0, 7.5, 9.0, 7.5, 7.5])
+    feed = np.array([10e3, 10e3, 10e3, 100.0, 100.0])
+    rbv = np.array([39.0, 39.0, 39.0, 39.0, 10.0])
+    dc = solver.solve_dc(c, {"Q1.bvebo": bv, "R1.r": feed, "Q1.rbv": rbv})
     v = bv.copy()
-    for _ in range(100):
-        i = (12.0 - v) / 10e3 - v / 1e6
-        v = bv + BD_N * VT * np.log(i / BD_TEST_AMPS)
+    for _ in range(400):
+        i = (12.0 - v) / feed - v / 1e6
+        v = bv + BD_N * VT * np.log(i / BD_TEST_AMPS) + i * rbv
     assert_allclose(dc.v[:, c.node_index["e"]], v, atol=1e-6)
-    assert np.all((v > bv) & (v < bv + 0.3))                # a few tenths above BVEBO
+    assert np.all((v[:3] > bv[:3]) & (v[:3] < bv[:3] + 0.3))   # a few tenths above BVEBO
+    assert v[3] - v[4] > 0.5                                   # the resistance, at 25 mA
     lifted = solver.solve_dc(c, {"Q1.k_be": 0.0})
     assert_allclose(lifted.v[0, c.node_index["e"]], 12.0 * 1e6 / (1e6 + 10e3), rtol=1e-6)
 

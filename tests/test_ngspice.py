@@ -513,7 +513,9 @@ def test_emitter_base_breakdown_matches_ngspice(ngspice):
     """The breakdown-only junctions (parts/bjt.py `Breakdown`) against ngspice, the
     reference simulator, solving the netlist diag.core.spice writes (the same diodes):
     an NPN and a PNP whose emitter is pulled past BVEBO from a 12 V rail, at three
-    feed resistances and two BVEBO values, and with the emitter lead lifted."""
+    feed resistances and two BVEBO values, with the emitter lead lifted, and with
+    milliamperes through the junction, where its series resistance RBV (ngspice's RS of
+    the same diode) counts for tenths of a volt."""
     from test_parts import compiled, part
 
     circuit = compiled(part("V1", "supply", ["vs", "gnd"], 12.0, r_source=0.2),
@@ -524,16 +526,23 @@ def test_emitter_base_breakdown_matches_ngspice(ngspice):
                        part("Q2", "pnp", ["bp", "bp", "ep"], model="pnp-power"),
                        part("R4", "resistor", ["ep", "gnd"], 4.7e3),
                        part("R5", "resistor", ["en", "gnd"], 1e6))
-    labels = ["10k", "2k2", "47k", "BVEBO 9 V", "leads lifted"]
-    params = {"R1.r": np.array([10e3, 2.2e3, 47e3, 10e3, 10e3]),
-              "Q1.bvebo": np.array([7.5, 7.5, 7.5, 9.0, 7.5]),
-              "Q1.k_be": np.array([1.0, 1.0, 1.0, 1.0, 0.0]),
-              "Q2.k_be": np.array([1.0, 1.0, 1.0, 1.0, 0.0])}
+    labels = ["10k", "2k2", "47k", "BVEBO 9 V", "leads lifted", "150R, RBV 100",
+              "150R, RBV 3"]
+    params = {"R1.r": np.array([10e3, 2.2e3, 47e3, 10e3, 10e3, 150.0, 150.0]),
+              "Q1.bvebo": np.array([7.5, 7.5, 7.5, 9.0, 7.5, 7.5, 7.5]),
+              "Q1.rbv": np.array([39.0, 39.0, 39.0, 39.0, 39.0, 100.0, 3.0]),
+              "Q2.rbv": np.array([17.0, 17.0, 17.0, 17.0, 17.0, 100.0, 3.0]),
+              "Q1.k_be": np.array([1.0, 1.0, 1.0, 1.0, 0.0, 1.0, 1.0]),
+              "Q2.k_be": np.array([1.0, 1.0, 1.0, 1.0, 0.0, 1.0, 1.0])}
     dc = _solves_as_ngspice(ngspice, circuit, labels, params)
     # and the breakdown is what sets the emitter: about BVEBO above the base
     en, b = circuit.node_index["en"], circuit.node_index["b"]
     assert 7.5 < dc.v[0, en] - dc.v[0, b] < 8.0
     assert dc.v[4, en] > 11.0                                # lifted: no junction left
+    # RBV 100 Ω against 3 Ω at about 3.4 mA (150 Ω feed, 1 kΩ from the base): about
+    # 0.3 V more across the junction
+    vj = dc.v[:, en] - dc.v[:, b]
+    assert vj[5] - vj[6] > 0.25
 
 
 def _physically_swapped(text: str, ref: str, unit: dict[str, float]) -> str:

@@ -293,6 +293,53 @@ def test_bjt_jacobian_matches_finite_differences(kind):
         assert_allclose(J[:, u, 0], fd[:, 0], rtol=1e-4, atol=1e-12)
 
 
+def test_wright_omega_matches_scipy():
+    # reference: scipy.special.wrightomega (diag's core does not import scipy)
+    from scipy.special import wrightomega
+
+    z = np.concatenate([np.linspace(-740.0, -1.0, 500), np.linspace(-5.0, 5.0, 501),
+                        np.geomspace(1.0, 1e5, 500)])
+    assert_allclose(base.wright_omega(z), wrightomega(z), rtol=1e-13, atol=1e-300)
+
+
+def test_breakdown_with_series_resistance_solves_the_series_circuit():
+    # A junction in breakdown with RBV in series (ngspice's diode RS): the terminal
+    # voltage vd splits into the junction's own vj and RBV i, vd = vj + RBV i(vj), with
+    # i the SPICE diode law (parts/diode.py diode_iv, ngspice manual). Reference: that
+    # equation solved by a root-finder (scipy.optimize.brentq) for each vd; the device's
+    # conductance against central differences of its current.
+    from scipy.optimize import brentq
+
+    from diag.core.parts.bjt import Breakdown
+    from diag.core.parts.diode import diode_iv
+
+    dev = Breakdown((0, 1), "bvebo", "k_be")
+    vd = -np.array([7.45, 7.5, 7.6, 8.0, 9.0, 12.0, 20.0])
+    B = len(vd)
+    p = {"bvebo": np.full(B, 7.5), "k_be": np.ones(B),
+         "rbv": np.array([39.0, 39.0, 39.0, 39.0, 10.0, 100.0, 3.0])}
+    q = dev.prepare(p)
+
+    def cur(v):
+        J, ieq, _, _ = dev.eval(q, np.array([v, np.zeros(B)]), None, limit=False)
+        return ieq[0] + J[0][0] * v, J[0][0]
+
+    i, g = cur(vd)
+    for k in range(B):
+        r, xbv, vte = p["rbv"][k], q["_xbv"][k], float(q["_vte"])
+
+        def f(vj, k=k, r=r, xbv=xbv, vte=vte):
+            return vj + r * float(diode_iv(np.array([vj]), q["is"], vte, xbv)[0][0]) - vd[k]
+
+        vj = brentq(f, vd[k], 0.0, xtol=1e-14, rtol=1e-15)
+        ref = float(diode_iv(np.array([vj]), q["is"], vte, xbv)[0][0])
+        assert_allclose(i[k], ref, rtol=1e-7, atol=1e-15)
+    h = 1e-6
+    fd = (cur(vd + h)[0] - cur(vd - h)[0]) / (2 * h)
+    assert_allclose(g, fd, rtol=1e-5, atol=1e-12)
+    assert i[-1] < -1.0                      # 20 V reverse through 3 Ω: amperes, not 1e30
+
+
 def test_bjt_open_hooks_lift_the_leads_and_leave_the_junctions():
     # fault hooks (DEVELOPERS.md): k_be / k_bc scale the emitter / collector lead
     # conductance, as a lifted lead; the junction equations are untouched (worked by

@@ -381,3 +381,26 @@ def test_a_supply_limit_leaves_every_other_draw_as_it_was(tmp_path):
     va = solver.solve_dc(a, da).v
     vb = solver.solve_dc(b, db).v
     assert_allclose(vb, va, atol=1e-9)
+
+
+def test_breakdown_resistance_leaves_every_other_draw_as_it_was():
+    """The transistors' breakdown series resistance (`.rbv`) draws from a side stream of
+    its own: without those spreads, mic-preamp's other healthy draws are the same
+    numbers and the main stream goes on alike; and as no healthy unit breaks a junction
+    down, the solved units agree to 1e-9 V (a rule of the engine's own)."""
+    import dataclasses
+
+    from diag.core.paths import cases_dir
+
+    a = netlist.compile_case(load_case(str(cases_dir() / "mic-preamp.yaml")))
+    b = dataclasses.replace(a, spreads=tuple(s for s in a.spreads
+                                             if not s.keys[0].endswith(".rbv")))
+    assert len(b.spreads) < len(a.spreads)
+    ra, rb = np.random.default_rng(5), np.random.default_rng(5)
+    da = ensemble.draw_healthy(a, 64, ra)
+    db = ensemble.draw_healthy(b, 64, rb)
+    assert ra.random() == rb.random()
+    assert set(da) - set(db) == {"Q1.rbv", "Q2.rbv"}
+    for k in db:
+        assert_allclose(da[k], db[k], rtol=0)
+    assert_allclose(solver.solve_dc(a, da).v, solver.solve_dc(b, db).v, atol=1e-9)

@@ -215,7 +215,7 @@ def ids_index(specs, fault_id: str) -> int | None:
 
 
 # Bumped when the cached arrays change meaning (the cache key also holds both hashes).
-CACHE_VERSION = "e29"
+CACHE_VERSION = "e30"
 # Most on-demand hypotheses (pairs) kept in the extra cache file (14 kB each at K=128).
 EXTRA_KEEP = 2000
 # Most goodness-of-fit references kept in memory (Engine._fit; about R + K*d floats each).

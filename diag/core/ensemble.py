@@ -24,23 +24,25 @@ def draw_healthy(circuit: Circuit, K: int, rng: np.random.Generator) -> dict[str
     between the leakage-limit value and 100 times it) and scales the other keys with it;
     "lognormal" multiplies by exp(N(0, a)) (saturation currents). Keys without a spread
     are left out (nominal). Draws follow circuit.spreads order, so a seed gives the same
-    units for the same circuit. A supply's current limit (`.ilim`) draws from a stream
-    of its own, seeded from `rng` without advancing it, so that giving a supply a limit
+    units for the same circuit. A spread with a `stream` number (a supply's current limit
+    `.ilim`, 1; a transistor's breakdown series resistance `.rbv`, 2) draws from a side
+    stream of that number, seeded from `rng` without advancing it, so that such a spread
     leaves every other draw, here and after (the faults' values), as it was: a limit no
-    unit reaches changes nothing.
+    unit reaches changes nothing, nor does a breakdown no unit meets.
     """
     out: dict[str, np.ndarray] = {}
-    side = np.random.default_rng([int(rng.bit_generator.state["state"]["state"]), 1])
+    state = int(rng.bit_generator.state["state"]["state"])
+    sides: dict[int, np.random.Generator] = {}
     for s in circuit.spreads:
         nom0 = circuit.nominal[s.keys[0]]
-        if s.keys[0].endswith(".ilim"):
-            f = 1.0 + side.uniform(s.a, s.b, K)
-        elif s.dist == "uniform":
-            f = 1.0 + rng.uniform(s.a, s.b, K)
+        g = rng if s.stream == 0 else sides.setdefault(
+            s.stream, np.random.default_rng([state, s.stream]))
+        if s.dist == "uniform":
+            f = 1.0 + g.uniform(s.a, s.b, K)
         elif s.dist == "loguniform":
-            f = np.exp(rng.uniform(np.log(s.a), np.log(s.b), K)) / nom0
+            f = np.exp(g.uniform(np.log(s.a), np.log(s.b), K)) / nom0
         elif s.dist == "lognormal":
-            f = np.exp(rng.normal(0.0, s.a, K))
+            f = np.exp(g.normal(0.0, s.a, K))
         else:
             raise ValueError(f"unknown spread {s.dist!r} for {s.keys}")
         for k in s.keys:

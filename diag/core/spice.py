@@ -68,7 +68,7 @@ OPEN_LEAD_OHMS = 1e12  # a lifted diode lead (k = 0)
 SPEAKER_L_HENRIES = 1e6  # shunts the AC-only part of a speaker at DC
 SPEAKER_C_FARADS = 1e6   # passes the AC-only branch of a speaker whose z is below its r
 
-_BJT_PARAMS = tuple(k.lower() for k in bjt.MODEL_NAMES if k not in ("BVEBO", "BVCBO"))
+_BJT_PARAMS = tuple(k.lower() for k in bjt.MODEL_NAMES if k not in ("BVEBO", "BVCBO", "RBV"))
 _DIODE_PARAMS = tuple(k.lower() for k in diode.SPICE_DEFAULTS)
 _INFINITE_WHEN_ZERO = {"bv", *bjt.INFINITE_WHEN_ZERO}
 
@@ -327,8 +327,10 @@ def _part_lines(case, part, val, var) -> list[str]:
             an, ca = (b, other) if k == "npn" else (other, b)
             dm = f"dbd_{tag}_{name[2:4]}{sfx}"
             bv = val(f"{ref}.{name}", math.inf)
+            rs = val(f"{ref}.rbv", 0.0)
             fields = f"IS={_fmt(BD_IS)} N={_fmt(BD_N)}" + (
-                f" BV={_fmt(bv)} IBV={_fmt(BD_TEST_AMPS)}" if math.isfinite(bv) else "")
+                f" BV={_fmt(bv)} IBV={_fmt(BD_TEST_AMPS)}" if math.isfinite(bv) else "") + (
+                f" RS={_fmt(rs)}" if rs > 0 else "")
             out += [f"{el('D', name[2:4] + 'bd')} {an} {ca} {dm}", f".model {dm} D({fields})"]
     else:
         raise ValueError(f"{ref}: kind {k!r} has no ngspice mapping in diag.core.spice")

@@ -37,12 +37,17 @@ class Spread:
     dist "uniform":    factor = 1 + U(a, b)                 (a = -tol, b = +tol)
     dist "loguniform": first key's value = exp(U(ln a, ln b)); the others scale with it
     dist "lognormal":  factor = exp(N(0, a))                (a = natural-log sigma)
+
+    `stream` 0 draws from the ensemble's main random stream; another number from a side
+    stream of that number (ensemble.draw_healthy), so that a spread added to the model
+    later leaves every draw that was there before as it was.
     """
 
     keys: tuple[str, ...]
     dist: str
     a: float
     b: float = 0.0
+    stream: int = 0
 
 
 @dataclass(frozen=True)
@@ -52,6 +57,20 @@ class Context:
 
     models: Mapping[str, Any]
     supply_v: float
+
+
+def wright_omega(z):
+    """The Wright omega function of real z: the y > 0 with y + ln y = z (that is
+    W(exp z), W the Lambert function), without overflow for large z. Newton's method on
+    t = ln y, where e^t + t - z is convex and increasing, from t = z (z < 1, where y is
+    below 1) or ln(z - ln z) (its asymptote): six steps give full precision."""
+    z = np.asarray(z, dtype=float)
+    t = np.where(z < 1.0, z, np.log(np.maximum(z - np.log(np.maximum(z, 1.0)), 1e-300)))
+    t = np.minimum(t, z)                 # y <= e^z, so t <= z
+    for _ in range(6):
+        e = np.exp(np.minimum(t, 700.0))
+        t = t - (e + t - z) / (e + 1.0)
+    return np.exp(t)
 
 
 def safe_exp(x):

@@ -49,7 +49,7 @@ from typing import Any
 
 import numpy as np
 
-from diag.core.parts.base import GMIN, VT, PartKind, Spread, pnjlim, safe_exp
+from diag.core.parts.base import GMIN, VT, PartKind, Spread, pnjlim, safe_exp, wright_omega
 from diag.core.parts.diode import DiodeDevice, model_of, model_spread
 
 DEFAULT_MODEL = {"npn": "npn-small", "pnp": "pnp-small"}
@@ -58,7 +58,8 @@ SPICE_DEFAULTS = {"IS": 1e-16, "BF": 100.0, "BR": 1.0, "NF": 1.0, "NR": 1.0,
                   "RB": 0.0, "RC": 0.0, "RE": 0.0,
                   "VAR": math.inf, "IKR": math.inf, "ISC": 0.0, "NC": 2.0, "NKF": 0.5,
                   "IRB": math.inf, "RBM": 0.0,     # RBM: when not given, RB (below)
-                  "BVEBO": math.inf, "BVCBO": math.inf}   # junction breakdown (volts)
+                  "BVEBO": math.inf, "BVCBO": math.inf,   # junction breakdown (volts)
+                  "RBV": 0.0}   # ohms in series with a breakdown junction (0: none)
 MODEL_NAMES = tuple(SPICE_DEFAULTS)
 # SPICE bipolar card names accepted and not used (see the module docstring): junction and
 # substrate capacitance, transit time, noise, and temperature (XTB is read by
@@ -136,6 +137,7 @@ class BJT(PartKind):
                 mid = math.sqrt(lo * hi)
                 s["hfe"] = (nominal["bf"] * lo / mid, nominal["bf"] * hi / mid)
             s.pop("bvebo", None)
+            s.pop("rbv", None)
         hfe = part.fields.get("hfe") or s.get("hfe")
         out = []
         if hfe:
@@ -147,6 +149,9 @@ class BJT(PartKind):
         if s.get("bvebo") and math.isfinite(nominal["bvebo"]):
             lo, hi = (float(x) for x in s["bvebo"])
             out.append(Spread((f"{part.ref}.bvebo",), "loguniform", lo, hi))
+        if s.get("rbv") and nominal["rbv"] > 0:
+            lo, hi = (float(x) for x in s["rbv"])
+            out.append(Spread((f"{part.ref}.rbv",), "loguniform", lo, hi, stream=2))
         return out
 
     def dc_stamps(self, part, p, t):
@@ -175,16 +180,20 @@ class BJT(PartKind):
 class Breakdown(DiodeDevice):
     """A transistor junction's reverse breakdown between two external leads (anode side,
     cathode side: base and emitter or collector of an NPN, the other way round for a PNP):
-    an ngspice diode with IS = BD_IS, N = BD_N, BV = the part's `bv` parameter and
-    IBV = BD_TEST_AMPS, its current scaled by the lead's hook `k` (0: lifted)."""
+    an ngspice diode with IS = BD_IS, N = BD_N, BV = the part's `bv` parameter,
+    IBV = BD_TEST_AMPS and RS = the part's `rbv` (the resistance in series with the
+    junction, which at tens of milliamperes adds volts to BVEBO), its current scaled by
+    the lead's hook `k` (0: lifted). Past the knee the series resistance is solved in
+    closed form (`_past_knee`), so the device keeps two terminals and no inner node."""
 
     def __init__(self, nodes, bv: str, k: str):
         super().__init__(nodes)
         self.bv, self.k = bv, k
-        self.keys = (bv, k)   # the part parameters it reads (solver._prepared)
+        self.keys = (bv, k, "rbv")   # the part parameters it reads (solver._prepared)
 
     def prepare(self, p):
-        q = {"is": BD_IS, "n": BD_N, "bv": p[self.bv], "ibv": BD_TEST_AMPS, "k": p[self.k]}
+        q = {"is": BD_IS, "n": BD_N, "bv": p[self.bv], "ibv": BD_TEST_AMPS, "k": p[self.k],
+             "rbv": p["rbv"]}
         q.update(DiodeDevice.prepare(q))
         q["_quiet"] = -q["_xbv"] + 20.0 * q["_vte"]   # volts: above this, short of the knee
         q["_quiet_max"] = float(np.max(q["_quiet"]))  # the same for every variant at once
@@ -221,7 +230,52 @@ class Breakdown(DiodeDevice):
         gd, cur, vn, lm = np.zeros(B), np.zeros(B), np.array(vd, dtype=float), np.zeros(B, bool)
         gd[live] = J[0][0] - ps["k"] * GMIN   # ieq carries no GMIN
         cur[live], vn[live], lm[live] = ieq[0], new[0], lim
+        r = np.broadcast_to(np.asarray(ps["rbv"], dtype=float), live.shape)
+        if np.any(r > 0):
+            self._past_knee(ps, vd[live], None if st is None else st[0], limit, init,
+                            live, r, gd, cur, vn, lm)
         return ((gd, -gd), (-gd, gd)), (cur, -cur), (vn,), lm
+
+    @staticmethod
+    def _past_knee(ps, vd, vold, limit, init, live, r, gd, cur, vn, lm) -> None:
+        """The junction with its series resistance r (ohms) for the live variants past
+        the breakdown knee (or coming from past it), written into gd, cur, vn, lm (B,)
+        at `live`. With u = -(vd + XBV) the terminal voltage beyond the knee and w the
+        junction's own, u = w + r IS exp(w / (N vt)) and the current is -IS exp(w / (N vt))
+        (ngspice's breakdown branch); so y = r IS exp(w / (N vt)) / (N vt) solves
+        y + ln y = ln(r IS / (N vt)) + u / (N vt): the Wright omega function (the
+        diode-resistor series circuit in closed form, by the Lambert W function; checked
+        against a root-finder in tests/test_parts.py). SPICE's junction limiting acts on w,
+        where the exponential is, not on u; di/dvd = y / (r (1 + y))."""
+        xbv, vte = np.broadcast_to(ps["_xbv"], vd.shape), np.broadcast_to(ps["_vte"], vd.shape)
+        u = -(vd + xbv)
+        uo = u if (init or vold is None) else -(np.broadcast_to(vold, vd.shape) + xbv)
+        on = (r > 0) & np.isfinite(xbv) & ((u > 0) | (limit & (uo > 0)))
+        if not on.any():
+            return
+        i = np.flatnonzero(on)
+        r, xbv, vte, u, uo = r[i], xbv[i], vte[i], u[i], uo[i]
+        is_ = np.broadcast_to(ps["is"], vd.shape)[i]
+        la = np.log(r * is_ / vte)
+
+        def w_of(x):
+            return x - vte * wright_omega(la + x / vte)
+
+        w = w_of(u)
+        limited = np.zeros(len(i), dtype=bool)
+        if limit and not init:
+            vcrit = np.broadcast_to(ps["_vcrit"], vd.shape)[i]
+            w, limited = pnjlim(w, w_of(uo), vte, vcrit)
+        e, _ = safe_exp(w / vte)
+        y = r * is_ * e / vte
+        k = np.broadcast_to(ps["k"], vd.shape)[i]
+        v_at = -(w + vte * y + xbv)                 # the terminal voltage evaluated
+        g = k * y / (r * (1.0 + y))
+        j = live[i]
+        gd[j] = g
+        cur[j] = k * (-is_ * e) - g * v_at
+        vn[j] = v_at
+        lm[j] = limited & (k > 0)
 
 
 def modulated(part) -> bool:

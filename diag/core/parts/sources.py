@@ -41,7 +41,8 @@ class Supply(PartKind):
         t = tol_or(part, SUPPLY_TOL)
         out = [Spread((f"{part.ref}.v",), "uniform", -t, t)]
         if np.isfinite(nominal["ilim"]):
-            out.append(Spread((f"{part.ref}.ilim",), "uniform", -LIMIT_TOL, LIMIT_TOL))
+            out.append(Spread((f"{part.ref}.ilim",), "uniform", -LIMIT_TOL, LIMIT_TOL,
+                              stream=1))
         return out
 
     def dc_stamps(self, part, p, t):
