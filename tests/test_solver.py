@@ -404,3 +404,32 @@ def test_breakdown_resistance_leaves_every_other_draw_as_it_was():
     for k in db:
         assert_allclose(da[k], db[k], rtol=0)
     assert_allclose(solver.solve_dc(a, da).v, solver.solve_dc(b, db).v, atol=1e-9)
+
+
+@pytest.mark.parametrize("name", ["latch.yaml", "thyristor.yaml", "lamp-switch.yaml"])
+def test_saddle_screen_settles_what_the_full_check_settles(name, monkeypatch):
+    """solver._settle checks for saddles only the variants whose determinant sign, as
+    Newton accepted them, differs from the network's sign past every growth rate (a rule
+    of the engine's own, for speed): on the two latch fixtures (about a third of their
+    units start on the balance point) and a bundled case, with every hypothesis of the
+    engine drawn, the solutions and the variants moved are the same as when every
+    variant gets the full check."""
+    from pathlib import Path
+
+    from diag.core.engine import Engine
+    from diag.core.paths import cases_dir
+
+    data = Path(__file__).parent / "data"
+    path = data / name if (data / name).exists() else cases_dir() / name
+    eng = Engine(load_case(str(path)), RULES, K=16)
+    params = ensemble.draw_hypotheses(eng.circuit, eng.specs, 16, 0, eng.inf.get("ambient"))
+    with np.errstate(all="ignore"):
+        screened = solver.solve_dc(eng.circuit, params)
+        full_settle = solver._settle
+        monkeypatch.setattr(solver, "_settle",
+                            lambda *a, dsign=None: full_settle(*a[:9]))
+        full = solver.solve_dc(eng.circuit, params)
+    np.testing.assert_array_equal(screened.ok, full.ok)
+    np.testing.assert_array_equal(screened.settled, full.settled)
+    np.testing.assert_array_equal(screened.x, full.x)
+    assert screened.settled.any() == (name != "lamp-switch.yaml")
