@@ -559,7 +559,8 @@ async def test_help_explains_the_marks_of_the_session_screen(diag_home):
         await pilot.press("question_mark")
         await settle(pilot)
         words = str(app.screen.query_one("#help-words").content)
-        for term in ("healthy", "off healthy", "→", "posterior", "grp, ≡", "bits"):
+        for term in ("healthy", "off healthy", "→", "posterior", "grp, ≡", "bits",
+                     "typing a reading"):
             assert term in words
 
 

@@ -75,6 +75,11 @@ class SessionScreen(Screen[None]):
                    "(d) or another kind of reading can split"),
         ("bits", "what the next reading is expected to tell: 1 bit halves the doubt "
                  "between suspects, under 0.01 bits tells almost nothing"),
+        ("typing a reading", "a digit on a row starts its value (e opens the field with "
+                             "the value taken); enter records it and moves to the next "
+                             "row, so values typed one after another land row by row; a "
+                             "column pasted from a sheet goes in the same way; in the "
+                             "field, up and down move, esc goes back to the table"),
     )
 
     BINDINGS = [
