@@ -332,8 +332,11 @@ class SessionScreen(Screen[None]):
         self.query_one("#entry", Input).value = ""
 
     def on_descendant_focus(self, event) -> None:
-        if isinstance(self.focused, PointsTable):
+        if isinstance(self.focused, PointsTable) and self._typing:
+            # back on the table from elsewhere (tab, the suspects): a value left typed
+            # in place is dropped, as moving off its row drops it
             self._set_typing(False)
+            self.query_one("#entry", Input).value = ""
 
     def _submit(self, text: str) -> bool:
         """Record `text` as the reading at the highlighted row, at once (not by message:
