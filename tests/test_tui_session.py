@@ -373,6 +373,7 @@ async def test_burst_of_readings_lands_row_by_row(diag_home):
 async def test_burst_in_the_entry_field_lands_row_by_row(diag_home):
     # the same burst once the entry field has the focus (e typed on the table): each
     # enter records the value on its own row and the next value goes to the next row
+    # (our own interface rule)
     app = DiagApp(case_path=CASE)
     async with app.run_test(size=(120, 40)) as pilot:
         screen = await _open(pilot)
@@ -597,7 +598,8 @@ async def test_pasted_column_lands_row_by_row(diag_home):
 @sync
 async def test_refused_value_is_replaced_by_the_next_key(diag_home):
     # a refused value stays in view with the reason; the next value typed starts afresh,
-    # backspace edits the refused one instead; up drops it and moves the cursor
+    # backspace edits the refused one instead; up drops it and moves the cursor (our own
+    # interface rule)
     app = DiagApp(case_path=CASE)
     async with app.run_test(size=(120, 40)) as pilot:
         screen = await _open(pilot)
