@@ -43,7 +43,8 @@ How each part and fault hook maps (element names are <letter>_<ref>[_<role>]):
   Each junction's breakdown (bvebo across b and e, bvcbo across b and c, as
   parts/bjt.py `Breakdown`) is a diode `D_<ref>_ebbd` / `D_<ref>_cbbd` between the
   external leads with IS = BD_IS, N = BD_N and BV, IBV = BD_TEST_AMPS (no BV when
-  infinite), left out when that lead is lifted (k = 0).
+  infinite) and RS = the part's `rbv` (none when 0), left out when that lead is lifted
+  (k = 0).
 
 diag's solver also holds every node to ground with solver.GSHUNT siemens; the netlist adds
 that as a resistor at every case node (node_shunts=True), so both solve the same network.
