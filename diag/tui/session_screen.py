@@ -117,6 +117,7 @@ class SessionScreen(Screen[None]):
         self._typing = False  # a value is being typed in place on the points table
         self._typing_row = -1
         self._refused_text = False  # the field shows a value just refused
+        self._refusal = ""  # what the message line said of it
         self._binding_state: tuple = ()
 
     # ------------------------------------------------------------------ layout
@@ -313,7 +314,7 @@ class SessionScreen(Screen[None]):
                 entry.cursor_position = len(entry.value)
                 left = len([x for x in lines[k + 1:] if x.strip()]) + bool(rest.strip())
                 if left:
-                    self._message(f"✗ {self.last_error}  ({taken} pasted value"
+                    self._message(f"{self._refusal}  ({taken} pasted value"
                                   f"{'' if taken == 1 else 's'} taken, {left} after it "
                                   f"not entered)", error=True)
                 return
@@ -368,7 +369,8 @@ class SessionScreen(Screen[None]):
             entry.select_all()
         for head in (f"{point} {kind}: ", f"{point}: "):  # said once is enough
             why = why[len(head):] if why.startswith(head) else why
-        self._message(f"✗ {point} {kind}: {why}  (other readings kept)", error=True)
+        self._refusal = f"✗ {point} {kind}: {why}"
+        self._message(f"{self._refusal}  (other readings kept)", error=True)
 
     def _record(self, reading: Reading) -> None:
         self.session.set_reading(reading)
