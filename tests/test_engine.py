@@ -398,10 +398,12 @@ def test_kept_fit_references_and_extended_groups_give_the_direct_answer(monkeypa
     units.append(units[0][:2])
     got = [fast.diagnose(u) for u in units + units]  # the second round from the caches
 
+    class Forgetful(dict):  # keeps no reference: each is computed afresh
+        def __setitem__(self, key, value):
+            pass
+
     slow = Engine(load_case(RELAY), K=K, seed=0)
-    plain_fit = Engine._fit
-    monkeypatch.setattr(Engine, "_fit", lambda self, U, sc, idx, u, ref=None, specs=None:
-                        plain_fit(self, U, sc, idx, u, ref, None))
+    slow._fit_refs = Forgetful()
     monkeypatch.setattr(infer, "apart_extend", lambda U, ap, lo, hi, q, sig, share:
                         infer.apart(U, q, sig, share))
     want = [slow.diagnose(u) for u in units + units]
@@ -584,3 +586,78 @@ def test_a_voltage_from_two_readings_shows_the_meter_error_of_both():
     eng = Engine(load_case(cases_dir() / "sounder-driver.yaml"), K=16)
     d = eng.diagnose([Reading("TP3", "dc", 1.600), Reading("TP4", "dc", 0.950)])
     assert "Q1: base-emitter reads 0.65 V (± 17 mV, from two readings)" in " ".join(d.notes)
+
+
+def test_leading_suspects_are_scored_on_their_further_units(eng):
+    """Engine._refine (our own rule, rules/faults.yaml `refine_top`): each leading
+    suspect's likelihood is the kernel mixture over its K units and its further ones
+    (at the K units' kernel width), the others' over their K; the posterior is Bayes'
+    rule on those."""
+    from diag.core import infer
+
+    unit = eng.simulate("R1:open", np.random.default_rng(3))
+    d = eng.diagnose(unit)
+    idx, vals, _ = eng._match(unit)
+    u = eng._noise_obj.u(vals, idx)
+    specs = list(eng.specs)
+    lp = np.log(eng._priors(float(eng.inf["healthy_prior"]), specs))
+    W = eng._blunder[1]
+    eps = float(eng.inf["blunder"])
+    base = infer.score(eng._U, idx, u, lp, eps, W, eng._spread)
+    top = int(eng.inf["refine_top"])
+    lead = np.argsort(-(lp + base.loglik), kind="stable")[:top]
+    ll = base.loglik.copy()
+    s = np.sqrt(1.0 + infer.bandwidth(eng._U, len(idx), eng._spread)[:, idx] ** 2)
+    for h in lead:
+        Uh = np.concatenate([eng._U[h], eng._noise_obj.u(eng._stores["-more"].mem[
+            specs[h].id][1])])
+        assert len(Uh) == K * (1 + int(eng.inf["refine_draws"]))
+        ll[h] = infer.loglik_units(Uh, idx, u[None], s[h], eps, W)[0][0]
+    want = infer.posterior(lp + ll)
+    got = {s.fault: s.p for s in d.suspects}
+    np.testing.assert_allclose([got[s.id] for s in specs], want, rtol=1e-9, atol=1e-15)
+    assert not np.allclose(want, base.posterior)  # the further units do count
+
+
+def test_a_ranking_does_not_depend_on_what_was_diagnosed_before(tmp_path, monkeypatch):
+    # our own rule: every hypothesis draws its further units from a stream of its own,
+    # so which units were diagnosed first (which suspects were refined) changes nothing
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
+    first = Engine(load_case(RELAY), K=16, seed=0)
+    units = [first.simulate(f, np.random.default_rng(s))
+             for f, s in (("R2:open", 1), ("Q1:be-short", 2), ("healthy", 3))]
+    a = [first.diagnose(x).to_json("c") for x in units]
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "other"))
+    second = Engine(load_case(RELAY), K=16, seed=0)
+    b = [second.diagnose(x).to_json("c") for x in reversed(units)][::-1]
+    assert a == b
+
+
+def test_further_units_are_cached_on_disk(tmp_path, monkeypatch):
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
+    e1 = Engine(load_case(RELAY), K=16)
+    unit = e1.simulate("R1:open", np.random.default_rng(5))
+    want = e1.diagnose(unit).to_json("c")
+    e2 = Engine(load_case(RELAY), K=16)
+    e2.build()
+
+    def no_solve(*a, **k):
+        raise AssertionError("solved again instead of reading the cache")
+
+    monkeypatch.setattr(e2, "_solve", no_solve)
+    assert e2.diagnose(unit).to_json("c") == want
+
+
+def test_without_refinement_the_ranking_is_the_ensemble_s_own(eng, monkeypatch):
+    # refine_top 0 turns it off: the posterior is infer.score's on the K units
+    from diag.core import infer
+
+    monkeypatch.setitem(eng.inf, "refine_top", 0)
+    unit = eng.simulate("R2:open", np.random.default_rng(8))
+    d = eng.diagnose(unit)
+    idx, vals, _ = eng._match(unit)
+    lp = np.log(eng._priors(float(eng.inf["healthy_prior"]), eng.specs))
+    base = infer.score(eng._U, idx, eng._noise_obj.u(vals, idx), lp,
+                       float(eng.inf["blunder"]), eng._blunder[1], eng._spread)
+    got = {s.fault: s.p for s in d.suspects}
+    np.testing.assert_allclose([got[s.id] for s in eng.specs], base.posterior, rtol=1e-12)

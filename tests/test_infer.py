@@ -283,8 +283,57 @@ def test_fit_test_sees_one_reading_the_others_contradict():
         alarms.append(infer.fit_pvalue_from(fr, u) < 0.05)
         u[trial % d] += 4.0
         flagged.append(infer.fit_pvalue_from(fr, u) < 0.05)
-        terms = infer._log_kernel_terms(fr.U, u[None], fr.s, fr.eps, fr.W_S)
-        L, _ = infer._fit_statistics(terms, np.array(K))
+        v = infer._kernel_values(fr.U, u[None].astype(infer.FIT_DTYPE), fr.s, fr.eps,
+                                 fr.W_S)
+        L, _ = infer._fit_statistics(v, np.array(K))
         flagged_sum_only.append(infer._rank_p(fr.sorted_ref, L, fr.R)[0] < 0.05)
     assert np.mean(alarms) <= 0.05
     assert np.mean(flagged) >= 0.4 > 0.1 >= np.mean(flagged_sum_only)
+
+
+def test_one_hypothesis_loglik_is_the_score_row():
+    # our own rule (infer.py): loglik_units scores many units' readings under one
+    # hypothesis with score's kernel; each must be score's log-likelihood of that row,
+    # and pooling two halves of the units gives the whole (a mean of means)
+    U = cloud(CENTRES, K=96, seed=4)
+    lo, W = infer.blunder_range(U)
+    taken = np.array([0, 1, 3])
+    rng = np.random.default_rng(9)
+    reads = np.array(CENTRES, float)[[0, 1, 4]][:, taken] + rng.standard_normal((3, 3))
+    s = np.sqrt(1.0 + infer.bandwidth(U, len(taken))[:, taken] ** 2)
+    for h in range(U.shape[0]):
+        got, n = infer.loglik_units(U[h], taken, reads, s[h], EPS, W)
+        want = [infer.score(U, taken, r, np.zeros(U.shape[0]), EPS, W).loglik[h]
+                for r in reads]
+        np.testing.assert_allclose(got, want, rtol=1e-12)
+        assert n == 96
+        a, na = infer.loglik_units(U[h, :30], taken, reads, s[h], EPS, W)
+        b, nb = infer.loglik_units(U[h, 30:], taken, reads, s[h], EPS, W)
+        np.testing.assert_allclose(infer.pooled(a, na, b, nb), want, rtol=1e-12)
+
+
+def test_more_units_estimate_a_tail_likelihood_more_closely():
+    """The kernel mixture is a Monte Carlo estimate of the hypothesis's density at the
+    readings; its expectation over the drawn units, for a normal cloud N(c, sd^2) per
+    axis and a normal kernel of width s, is N(u; c, sd^2 + s^2) per axis, and its
+    spread about that shrinks as the units grow (a kernel estimate's variance falls as
+    1/(K h^d): from memory, Silverman 1986, "Density Estimation", ch. 4). Why diag
+    pools its leading suspects' further units in (Engine._refine): a reading in the
+    edge of a fault's spread, here 2.5 sd out on every axis of four, at one kernel
+    width (the K units' own)."""
+    sd, d, K = 2.0, 4, 128
+    u = np.full(d, 2.5 * sd)
+    W = np.full(d, 1e9)  # no blunder floor: the kernel alone
+    taken = np.arange(d)
+    errs = {128: [], 512: []}
+    for seed in range(40):
+        U = sd * np.random.default_rng(seed).standard_normal((4 * K, d))
+        s2 = 1.0 + infer.bandwidth(U[None, :K], d, np.full((1, d), sd))[0] ** 2
+        exact = float(np.sum(-0.5 * u ** 2 / (sd ** 2 + s2)
+                             - 0.5 * np.log(2 * math.pi * (sd ** 2 + s2))))
+        a, na = infer.loglik_units(U[:K], taken, u[None], np.sqrt(s2), 0.0, W)
+        b, nb = infer.loglik_units(U[K:], taken, u[None], np.sqrt(s2), 0.0, W)
+        errs[128].append(a[0] - exact)
+        errs[512].append(infer.pooled(a, na, b, nb)[0] - exact)
+    rms = {k: float(np.sqrt(np.mean(np.square(v)))) for k, v in errs.items()}
+    assert rms[512] < 0.7 * rms[128]

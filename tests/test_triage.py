@@ -672,3 +672,27 @@ def test_a_batch_with_ac_readings_carries_the_signal_warning(tmp_path):
     assert md.index(text) < md.index("## Units")
     dc_only = triage(eng, {"B": [Reading("TP1", "dc", 5.0)]})
     assert dc_only.summary["signal_warning"] == ""
+
+
+def test_a_large_batch_solves_every_further_unit_first_and_ranks_as_diagnose(
+        tmp_path, monkeypatch):
+    # our own rule (BatchScorer.run): a batch of at least as many units as hypotheses
+    # solves every hypothesis's further units (Engine._refine) in one go before its
+    # blocks; the answers stay those of diagnose one unit at a time
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
+    eng = Engine(load_case(str(CASE)), load_rules(), K=16)
+    eng.build()
+    H = len(eng.specs)
+    rng = np.random.default_rng(3)
+    ids = [s.id for s in eng.specs]
+    units = [list(eng.simulate(ids[i % H] if ids[i % H] != "healthy" else "R2:open", rng))
+             for i in range(H)]
+    calls = []
+    solve = eng._solve
+    monkeypatch.setattr(eng, "_solve", lambda specs, K, *a, **kw: calls.append(
+        (len(specs), kw.get("stream", 0))) or solve(specs, K, *a, **kw))
+    got = BatchScorer(eng).run(units, threads=2)
+    assert calls and calls[0] == (H, 1)  # every hypothesis at once, the further stream
+    assert set(ids) <= set(eng._stores["-more"].mem)  # (and pairs, where tried)
+    for r, d in zip(units[:12], got[:12], strict=True):
+        _same(eng.diagnose(r), d)

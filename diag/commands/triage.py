@@ -80,6 +80,7 @@ def run(args: argparse.Namespace) -> int:
     from diag.core.triage import (
         caution_lines,
         refused_rows,
+        solves_further_first,
         to_csv,
         to_json,
         to_markdown,
@@ -108,6 +109,10 @@ def run(args: argparse.Namespace) -> int:
         pre = _Bar("predictions")
         eng.build(progress=pre)
         pre.done()
+        if solves_further_first(eng, len(units)):
+            more = _Bar("further units of every suspect")
+            eng.build_further(progress=more)
+            more.done()
         bar = _Bar(f"triage {len(units)} units")
     res = triage(eng, units, rejected=rejected, progress=bar,
                  healthy_prior=args.healthy_prior)

@@ -6,6 +6,8 @@ CONTRACT (stable; other modules code against it):
     eng.build(progress=None, cancelled=None) -> Ensemble     # cached on disk; progress(f)
                                                              # gets 0..1, cancelled() -> bool
     eng.ensemble -> Ensemble                                 # builds on first use
+    eng.build_further(progress=None, cancelled=None)         # every hypothesis's further
+                                                             # units now (else on demand)
     eng.diagnose(readings, healthy_prior=None) -> Diagnosis
     eng.bands(fault_id="healthy") -> tuple[Band, ...]        # predicted band per observable
     eng.hypothesis(fault_id) -> Hypothesis
@@ -218,6 +220,24 @@ def ids_index(specs, fault_id: str) -> int | None:
 CACHE_VERSION = "e30"
 # Most on-demand hypotheses (pairs) kept in the extra cache file (14 kB each at K=128).
 EXTRA_KEEP = 2000
+# Most hypotheses' further units (Engine._refine) kept in the -more cache file (about
+# 43 kB each at K=128, 14 readings).
+MORE_KEEP = 600
+
+
+@dataclass
+class _Store:
+    """Units solved on demand (Engine._on_demand): K per hypothesis from random stream
+    `stream`; mem id -> (spec, samples (K, M)); disk what the cache file holds (the
+    `keep` newest); loaded once the file has been read."""
+
+    K: int
+    stream: int
+    keep: int
+    mem: dict = field(default_factory=dict)
+    disk: dict = field(default_factory=dict)
+    loaded: bool = False
+    u: dict = field(default_factory=dict)  # id -> samples in u coordinates (Engine)
 # Most goodness-of-fit references kept in memory (Engine._fit; about R + K*d floats each).
 FIT_REF_KEEP = 4096
 # Reading kinds' model-error keys in faults.yaml `inference.model_error`.
@@ -247,9 +267,11 @@ class Engine:
         self._obs_index = {(o.point, o.kind): j for j, o in enumerate(self.observables)}
         self._ens: Ensemble | None = None
         self._lock = threading.RLock()  # one build at a time (interface worker threads)
-        self._extra: dict[str, tuple[Any, np.ndarray]] = {}  # on-demand hypotheses
-        self._extra_loaded = False
-        self._extra_disk: dict[str, np.ndarray] = {}  # what the extra cache file holds
+        # units solved on demand (_on_demand): hypotheses outside the built set (pairs),
+        # K each; further units of leading suspects (_refine), refine_draws x K each
+        self._stores = {"-extra": _Store(self.K, 0, EXTRA_KEEP),
+                        "-more": _Store(self.K * int(self.inf["refine_draws"]), 1,
+                                        MORE_KEEP)}
         self._limits = None
         self._healthy_bands: tuple[Band, ...] | None = None  # bands()'s, once worked out
         self._signal_warning: str | None = None
@@ -332,9 +354,10 @@ class Engine:
         return a, b
 
     def _solve(self, specs, K: int, progress=None, cancelled=None, chunk: int | None = None,
-               threads: int | None = None, processes: bool | None = None):
+               threads: int | None = None, processes: bool | None = None, stream: int = 0):
         """Meter readings (H, K, M) of K units per spec, and the hidden readings
-        (H, K, X) with their names; progress over chunks of hypotheses. Chunks are
+        (H, K, X) with their names; progress over chunks of hypotheses; `stream` as in
+        ensemble.hypothesis_rng. Chunks are
         solved by `threads` workers (default: the CPU count, at most 2), forked processes
         where that is safe, else threads (diag.core.workers; `processes` forces one or the
         other). Every hypothesis draws from its own random stream and the solver keeps
@@ -355,7 +378,7 @@ class Engine:
         def one(i):
             block = blocks[i]
             params = ensemble.draw_hypotheses(circ, block, K, self.seed,
-                                              self.inf.get("ambient"))
+                                              self.inf.get("ambient"), stream)
             with np.errstate(all="ignore"):  # a failed variant is data (NaN), not an error
                 dc = solver.solve_dc(circ, params)
                 ac = solver.solve_ac(circ, params, dc) if need_ac else None
@@ -492,8 +515,9 @@ class Engine:
         for s in self.specs:
             if s.id == fault_id:
                 return s
-        if fault_id in self._extra:
-            return self._extra[fault_id][0]
+        got = self._stores["-extra"].mem.get(fault_id)
+        if got is not None:
+            return got[0]
         return faults.parse_fault_id(self.case, self.rules, fault_id)
 
     def hypothesis(self, fault_id: str) -> Hypothesis:
@@ -505,47 +529,64 @@ class Engine:
         s = self._spec(fault_id)
         return Hypothesis(s.id, 0.0, s.text, s.confirm, s.parts, s.origin)
 
-    def _extra_file(self):
+    def _store_file(self, name: str):
         from diag import __version__
         from diag.core import ensemble
 
         base = ensemble.cache_file(self.case.hash, self.rules.hash, self.K, self.seed,
                                    f"{CACHE_VERSION}-{__version__}")
-        return base.with_name(base.stem + "-extra.npz")
+        return base.with_name(base.stem + f"{name}.npz")
 
     def _samples_of(self, specs) -> np.ndarray:
         """Samples (n, K, M) of specs outside the built set (pairs, other multiple
         faults): solved once, kept in memory and in a disk cache beside the ensemble's."""
+        return self._on_demand("-extra", specs)
+
+    def build_further(self, progress: Callable[[float], None] | None = None,
+                      cancelled: Callable[[], bool] | None = None) -> None:
+        """Solve (or read from the cache) the further units of every built hypothesis
+        (`_refine`), so that no later reading waits for them: the interface does this
+        once the ensemble is built (the command line solves them as suspects lead)."""
+        self.build()
+        self._on_demand("-more", list(self.specs), progress, cancelled)
+        if progress:
+            progress(1.0)
+
+    def _on_demand(self, name: str, specs, progress=None, cancelled=None) -> np.ndarray:
+        """Samples (n, store K, M) of specs from store `name` (see __init__): each spec
+        solved once (its own random stream), kept in memory and in the store's cache file
+        beside the ensemble's (ensemble.COMPANIONS), the `keep` newest; `progress` and
+        `cancelled` as in `build`."""
         from diag.core import ensemble
 
+        st = self._stores[name]
+        M = len(self.observables)
         with self._lock:
-            todo = [s for s in specs if s.id not in self._extra]
-            if todo and not self._extra_loaded:
-                self._extra_loaded = True
-                data = ensemble.load_cache(self._extra_file())
-                if data is not None and data["samples"].shape[1:] == (
-                        self.K, len(self.observables)):
-                    byid = {s.id: s for s in todo}
-                    for fid, xs in zip(data["ids"], data["samples"], strict=True):
-                        if str(fid) in byid:
-                            self._extra[str(fid)] = (byid[str(fid)], xs)
-                    todo = [s for s in todo if s.id not in self._extra]
-                    self._extra_disk = {str(f): x for f, x in
-                                        zip(data["ids"], data["samples"], strict=True)}
+            todo = [s for s in specs if s.id not in st.mem]
+            if todo and not st.loaded:
+                st.loaded = True
+                data = ensemble.load_cache(self._store_file(name))
+                if data is not None and data["samples"].shape[1:] == (st.K, M):
+                    st.disk = {str(f): x for f, x in
+                               zip(data["ids"], data["samples"], strict=True)}
+                    for s in todo:
+                        if s.id in st.disk:
+                            st.mem[s.id] = (s, st.disk[s.id])
+                    todo = [s for s in todo if s.id not in st.mem]
             if todo:
-                x, _, _ = self._solve(todo, self.K)
+                x, _, _ = self._solve(todo, st.K, progress, cancelled, stream=st.stream)
                 for s, xs in zip(todo, x, strict=True):
-                    self._extra[s.id] = (s, xs)
-                    self._extra_disk[s.id] = xs
-                keep = list(self._extra_disk.items())[-EXTRA_KEEP:]
+                    st.mem[s.id] = (s, xs)
+                    st.disk[s.id] = xs
+                keep = list(st.disk.items())[-st.keep:]
                 try:
-                    ensemble.save_cache(self._extra_file(), {
+                    ensemble.save_cache(self._store_file(name), {
                         "ids": np.array([k for k, _ in keep]),
                         "samples": np.stack([v for _, v in keep])})
                 except OSError:
                     pass  # a read-only cache folder only costs speed
-        return np.stack([self._extra[s.id][1] for s in specs]) if specs else \
-            np.empty((0, self.K, len(self.observables)))
+        return np.stack([st.mem[s.id][1] for s in specs]) if specs else \
+            np.empty((0, st.K, M))
 
     def signal_warning(self) -> str:
         """bands.CheckResult.signal_text of the nominal circuit: "" unless the case's
@@ -660,7 +701,59 @@ class Engine:
             lp = np.log(pri)
         lo, W = self._blunder
         sp = self._spread_for(U)
-        return infer.score(U, idx, u_read, lp, float(self.inf["blunder"]), W, sp), pri
+        sc = infer.score(U, idx, u_read, lp, float(self.inf["blunder"]), W, sp)
+        if len(idx) and int(self.inf["refine_top"]) > 0:
+            ll = self._refine(U, specs, idx, u_read[None], lp, sc.loglik[None])[0]
+            sc = infer.Scored(ll, sc.loglik_k, infer.posterior(lp + ll))
+        return sc, pri
+
+    def _units(self, U, specs, h: int) -> np.ndarray:
+        """Every drawn unit (K + refine_draws x K, M) of hypothesis h of U's rows
+        (hypotheses `specs`), u coordinates: U's and the store's further ones."""
+        return np.concatenate([U[h], self._further_u([specs[h]])[0]])
+
+    def _further_u(self, specs) -> np.ndarray:
+        """The further units (n, refine_draws x K, M) of specs in u coordinates (the
+        "-more" store's, converted once per hypothesis and kept)."""
+        st = self._stores["-more"]
+        todo = [s for s in specs if s.id not in st.u]
+        if todo:
+            for s, x in zip(todo, self._on_demand("-more", todo), strict=True):
+                st.u[s.id] = self._noise_obj.u(x)
+        return np.stack([st.u[s.id] for s in specs])
+
+    def _refine(self, U, specs, idx, u_reads: np.ndarray, lp: np.ndarray,
+                ll: np.ndarray) -> np.ndarray:
+        """Log-likelihoods (n, H) of n units' readings u_reads (n, d) at observables
+        idx, from U's (ll (n, H), log prior lp (H,)), with each unit's `refine_top`
+        leading hypotheses' kernel mixtures taken over their further units too (the
+        store's refine_draws x K, at U's kernel widths: infer.pooled). K units in
+        several dimensions cover a fault's spread thinly at its edges, where a unit of
+        one fault often reads like another's: there the kernel density rests on the few
+        units that happen to lie near, and a leading suspect's weight on chance. The
+        further units are drawn once per hypothesis (their own random stream), so a
+        unit's ranking does not depend on what was scored before it."""
+        from diag.core import infer
+
+        top = int(self.inf["refine_top"])
+        key = lp[None] + ll
+        lead = np.argsort(-key, axis=1, kind="stable")[:, :top]          # (n, top)
+        ok = np.isfinite(np.take_along_axis(key, lead, axis=1))
+        need = np.unique(lead[ok])
+        if not len(need):
+            return ll
+        more = self._further_u([specs[h] for h in need])
+        eps = float(self.inf["blunder"])
+        W = self._blunder[1]
+        s = np.sqrt(1.0 + infer.bandwidth(U[need], len(idx),
+                                          self._spread_for(U)[need])[:, idx] ** 2)
+        n_base = np.all(np.isfinite(U[need]), axis=2).sum(axis=1)
+        out = ll.copy()
+        for i, h in enumerate(need):
+            rows = np.flatnonzero(((lead == h) & ok).any(axis=1))
+            llm, n = infer.loglik_units(more[i], idx, u_reads[rows], s[i], eps, W)
+            out[rows, h] = infer.pooled(ll[rows, h], n_base[i], llm, n)
+        return out
 
     def _fit(self, U, sc, idx, u_read, ref: dict | None = None, specs=None) -> float:
         """Goodness of fit of the leading hypotheses against `ref` (default the
@@ -701,7 +794,9 @@ class Engine:
             specs[h].id, taken, which, sp is None)
         fr = self._fit_refs.get(key, False) if key is not None else False
         if fr is False:
-            fr = infer.fit_reference(U[h], np.asarray(idx, dtype=int),
+            Uh = U[h] if specs is None or int(self.inf["refine_top"]) <= 0 else \
+                self._units(U, specs, h)
+            fr = infer.fit_reference(Uh, np.asarray(idx, dtype=int),
                                      float(self.inf["blunder"]), lo, W, ref["ref_k"],
                                      ref["ref_z"], ref["ref_b"], ref["ref_w"],
                                      None if sp is None else sp[h])
@@ -764,7 +859,7 @@ class Engine:
         for h in order:
             g = renum.setdefault(int(group[h]), len(renum))
             suspects.append(Suspect(specs[h].id, float(post[h]), g, specs[h].text))
-        nxt = self._advise(U, specs, sc, idx, order, group) if advise else []
+        nxt = self._advise(U, specs, sc, idx, order, group, u_read) if advise else []
         acc = self._accuracy_fn()
         nts = tuple(notes.bench_notes(self.case, self.rules, [
             Reading(self.observables[j].point, self.observables[j].kind, v)
@@ -914,20 +1009,21 @@ class Engine:
                 "looks odd, and inspect the board around the parts the closest suspect "
                 f"names ({', '.join(best.parts) or 'none'}).")
 
-    def _advise(self, U, specs, sc, idx, order, group) -> list[NextReading]:
-        from diag.core import advise
+    def _advise(self, U, specs, sc, idx, order, group, u_read) -> list[NextReading]:
+        """Next readings by expected gain per cost (advise.gains) over every drawn unit
+        of the hypotheses, weighted by the posterior and the readings u_read (at idx)."""
+        from diag.core import advise, infer
 
-        w = advise.unit_weights(sc.loglik_k, sc.posterior)
         untaken = np.array([j for j in range(len(self.observables)) if j not in set(idx)],
                            dtype=int)
         if len(untaken) == 0:
             return []
-        from diag.core import infer
-
         sp = self._spread_for(U)
         width = np.sqrt(1.0 + infer.bandwidth(U, len(idx) + 1, sp) ** 2)  # once taken
-        bits = advise.gains(U, w, untaken, labels=group, width=width,
-                            eps=float(self.inf["blunder"]), W=self._blunder[1])
+        Ua, llk = self._with_further(U, specs, sc.loglik_k, idx, u_read, order)
+        bits = advise.gains(Ua, advise.unit_weights(llk, sc.posterior), untaken,
+                            labels=group, width=width, eps=float(self.inf["blunder"]),
+                            W=self._blunder[1])
         out = []
         samples = [self.ensemble.samples]
         if U.shape[0] > self.ensemble.samples.shape[0]:
@@ -959,6 +1055,35 @@ class Engine:
             out.append((b / o.cost, NextReading(o.point, o.kind, float(b), "; ".join(parts))))
         out.sort(key=lambda t: -t[0])
         return [n for _, n in out]
+
+    def _with_further(self, U, specs, llk, idx, u_read, order):
+        """U (H, K, M) and its per-unit log-likelihoods llk (H, K) with the further units
+        of the `refine_top` leading hypotheses in `order` joined on (H, K + Kx, M) and
+        (H, K + Kx); NaN and -inf in the other rows. Their kernel is the K units' (as
+        in `_refine`), so the advice weighs each leading suspect's units as its
+        likelihood does."""
+        from diag.core import infer
+
+        top = int(self.inf["refine_top"])
+        if top <= 0 or len(idx) == 0:
+            return U, llk
+        rows = np.asarray(order[:top], dtype=int)
+        more = self._further_u([specs[h] for h in rows])                 # (r, Kx, M)
+        H, K, M = U.shape
+        s = np.sqrt(1.0 + infer.bandwidth(U[rows], len(idx),
+                                          self._spread_for(U)[rows])[:, idx] ** 2)
+        eps = float(self.inf["blunder"])
+        scale = s * math.sqrt(2.0)                                        # (r, d)
+        Ut = np.ascontiguousarray(np.moveaxis(more[:, :, idx] / scale[:, None, :], 2, 0))
+        with np.errstate(divide="ignore"):
+            logpeak = np.log((1.0 - eps) / (scale * math.sqrt(math.pi)))
+        L = infer.kernel_loglik((u_read[None, :] / scale)[None], Ut, logpeak,
+                                eps / self._blunder[1][idx])[0]           # (r, Kx)
+        L = np.where(np.all(np.isfinite(more), axis=2), L, -np.inf)
+        X = np.full((H, more.shape[1], M), np.nan)
+        Lx = np.full((H, more.shape[1]), -np.inf)
+        X[rows], Lx[rows] = more, L
+        return np.concatenate([U, X], axis=1), np.concatenate([llk, Lx], axis=1)
 
     # -- groups ----------------------------------------------------------------------------
 

@@ -62,10 +62,12 @@ from pathlib import Path  # noqa: E402
 from diag.core.errors import DiagError  # noqa: E402
 
 
-def hypothesis_rng(seed: int, fault_id: str) -> np.random.Generator:
+def hypothesis_rng(seed: int, fault_id: str, stream: int = 0) -> np.random.Generator:
     """The Generator for one hypothesis's draws: seeded by (seed, crc32 of its id), so a
-    hypothesis draws the same units whatever else is built with it."""
-    return np.random.default_rng([int(seed), zlib.crc32(fault_id.encode("utf-8"))])
+    hypothesis draws the same units whatever else is built with it; `stream` > 0 gives
+    further units of the same hypothesis, independent of stream 0's."""
+    key = [int(seed), zlib.crc32(fault_id.encode("utf-8"))]
+    return np.random.default_rng(key + [int(stream)] if stream else key)
 
 
 def _draw_range(lo: float, hi: float, log: bool, n: int, rng: np.random.Generator):
@@ -168,12 +170,13 @@ def draw_unit(circuit, spec, n: int, rng: np.random.Generator,
     return params
 
 
-def draw_hypotheses(circuit, specs, K: int, seed: int, ambient: dict | None = None
-                    ) -> dict:
+def draw_hypotheses(circuit, specs, K: int, seed: int, ambient: dict | None = None,
+                    stream: int = 0) -> dict:
     """K units of every hypothesis, stacked hypothesis-major (B = len(specs) * K); every
     key present for every hypothesis (nominal where one leaves it alone); `ambient` as
-    in `draw_unit`."""
-    blocks = [draw_unit(circuit, s, K, hypothesis_rng(seed, s.id), ambient) for s in specs]
+    in `draw_unit`; `stream` as in `hypothesis_rng`."""
+    blocks = [draw_unit(circuit, s, K, hypothesis_rng(seed, s.id, stream), ambient)
+              for s in specs]
     keys = sorted({k for b in blocks for k in b})
     out = {}
     for k in keys:
@@ -241,11 +244,14 @@ def _atomic(path: Path, write) -> None:
 # Ensemble cache files kept (the newest by modification time); every edit of a case or
 # of rules/ makes a new one, so older ones are removed when a new one is written.
 CACHE_KEEP = 24
+# Companions of an ensemble file (ens-....npz beside it, Engine._on_demand): units of
+# hypotheses outside the built set (pairs), and further units of leading suspects.
+COMPANIONS = ("-extra", "-more")
 
 
 def prune_cache(folder: Path, keep: int = CACHE_KEEP) -> list[Path]:
     """Remove all but the `keep` newest ensemble files (ens-*.npz) in `folder`, each with
-    its -extra.npz companion (pair ensembles), and all but the `keep` newest
+    its COMPANIONS, and all but the `keep` newest
     stress files (stress-*.json); return what was removed. Files that vanish or
     resist removal meanwhile (another process) are left alone."""
     def mtime(p: Path) -> float:
@@ -254,10 +260,12 @@ def prune_cache(folder: Path, keep: int = CACHE_KEEP) -> list[Path]:
         except OSError:
             return 0.0
 
-    main = [p for p in folder.glob("ens-*.npz") if not p.name.endswith("-extra.npz")]
+    main = [p for p in folder.glob("ens-*.npz")
+            if not p.name.endswith(tuple(f"{c}.npz" for c in COMPANIONS))]
     main.sort(key=mtime, reverse=True)
     stress = sorted(folder.glob("stress-*.json"), key=mtime, reverse=True)
-    old = [q for p in main[keep:] for q in (p, p.with_name(p.stem + "-extra.npz"))]
+    old = [q for p in main[keep:]
+           for q in (p, *(p.with_name(p.stem + f"{c}.npz") for c in COMPANIONS))]
     gone = []
     for q in old + stress[keep:]:
         try:

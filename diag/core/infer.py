@@ -170,14 +170,28 @@ def kernel_spread(U: np.ndarray, z: np.ndarray, W: np.ndarray, eps: float,
     return sp * fac[:, None]
 
 
+def _kernel_values(U_S: np.ndarray, u_S: np.ndarray, s: np.ndarray, eps: float,
+                   W_S: np.ndarray) -> np.ndarray:
+    """Per-unit, per-reading kernel (..., K, d), (1 - eps) N(u; U, s^2) + eps / W, of
+    readings u_S (..., d) under units U_S (..., K, d) with kernel widths s (..., d); NaN
+    where a unit failed. In the dtype of the arguments."""
+    with np.errstate(invalid="ignore", over="ignore", under="ignore"):
+        v = u_S[..., None, :] - U_S
+        v /= s[..., None, :]
+        np.square(v, out=v)
+        v *= -0.5
+        np.exp(v, out=v)
+        v *= (1.0 - eps) / (s[..., None, :] * math.sqrt(2.0 * math.pi))
+        v += eps / W_S
+    return v
+
+
 def _log_kernel_terms(U_S: np.ndarray, u_S: np.ndarray, s: np.ndarray, eps: float,
                       W_S: np.ndarray) -> np.ndarray:
-    """Per-unit, per-reading log kernel (..., K, d) of readings u_S (..., d) under units
-    U_S (..., K, d) with kernel widths s (..., d); NaN where a unit failed."""
-    with np.errstate(invalid="ignore", over="ignore", under="ignore"):
-        z = (u_S[..., None, :] - U_S) / s[..., None, :]
-        peak = (1.0 - eps) / (s * math.sqrt(2.0 * math.pi))
-        return np.log(peak[..., None, :] * np.exp(-0.5 * z * z) + eps / W_S)
+    """The logarithm of `_kernel_values` (..., K, d); NaN where a unit failed."""
+    v = _kernel_values(U_S, u_S, s, eps, W_S)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.log(v, out=v)
 
 
 def _log_kernel(U_S: np.ndarray, u_S: np.ndarray, s: np.ndarray, eps: float,
@@ -188,28 +202,34 @@ def _log_kernel(U_S: np.ndarray, u_S: np.ndarray, s: np.ndarray, eps: float,
     return np.where(np.isnan(out), -np.inf, out)
 
 
-def _fit_statistics(terms: np.ndarray, n: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The two goodness-of-fit statistics from per-reading kernel terms (..., K, d)
-    (-inf or NaN for units left out), n units counted: the log-likelihood of all the
-    readings, L = log mean_k prod_j, and the least conditional log-likelihood of one
-    reading given the others, min_j [L - log mean_k prod_{i != j}] (d >= 2; L itself
-    for one reading). The first sees an overall misfit, the second one reading that
-    the others' best explanation misses."""
-    t = np.where(np.isnan(terms), -np.inf, terms)
-    with np.errstate(invalid="ignore"):
-        full = np.sum(t, axis=-1)                                      # (..., K)
+def _fit_statistics(v: np.ndarray, n: np.ndarray, left_out: np.ndarray | None = None
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """The two goodness-of-fit statistics from per-reading kernel values v (..., K, d)
+    (`_kernel_values`; NaN for a failed unit), units `left_out` (..., K) not counted,
+    n units counted: the log-likelihood of all the readings, L = log mean_k prod_j, and
+    the least conditional log-likelihood of one reading given the others,
+    min_j [L - log mean_k prod_{i != j}] (d >= 2; L itself for one reading). The first
+    sees an overall misfit, the second one reading that the others' best explanation
+    misses."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        full = np.sum(np.log(v), axis=-1)                              # (..., K)
+        if left_out is not None:
+            full[left_out] = -np.inf
+        full[np.isnan(full)] = -np.inf
         L = _logmeanexp(full, n)
-        if t.shape[-1] < 2:
+        if v.shape[-1] < 2:
             return L, L
-        # L - log mean_k exp(full_k - t_kj) = -log sum_k w_k exp(-t_kj), w the units'
-        # weights softmax(full); exp(-t) stays finite: the blunder term bounds t below
+        # L - log mean_k exp(full_k - t_kj) = -log sum_k w_k / v_kj, w the units'
+        # weights softmax(full); 1 / v stays finite: the blunder term bounds v below
         ok = np.isfinite(full)
         m = np.max(np.where(ok, full, -np.inf), axis=-1, keepdims=True)
         w = np.where(ok, np.exp(full - np.where(np.isfinite(m), m, 0.0)), 0.0)
         w /= np.where(w.sum(axis=-1, keepdims=True) > 0, w.sum(axis=-1, keepdims=True), 1.0)
-        with np.errstate(over="ignore", divide="ignore"):
-            E = np.exp(-np.where(ok[..., None], t, 0.0))
-            cond = -np.log(np.einsum("...k,...kd->...d", w, E))      # (..., d)
+        E = np.reciprocal(v)
+        if not ok.all():
+            E[~ok] = 0.0  # weight 0 already; keeps a failed unit's NaN out of the sum
+        with np.errstate(over="ignore"):
+            cond = -np.log(np.einsum("...k,...kd->...d", w.astype(E.dtype), E))
         cond = np.where(np.isfinite(L)[..., None], cond, np.nan)
     return L, np.min(np.where(np.isnan(cond), np.inf, cond), axis=-1)
 
@@ -238,13 +258,104 @@ def score(U: np.ndarray, taken: np.ndarray, u_read: np.ndarray, log_prior: np.nd
         llk = _log_kernel(U_S, u_read, s, eps, W[taken])
         llk = np.where(valid, llk, -np.inf)
     ll = _logmeanexp(llk, n)
-    lp = log_prior + ll
+    return Scored(ll, llk, posterior(log_prior + ll))
+
+
+def posterior(lp: np.ndarray) -> np.ndarray:
+    """Posterior (H,) from log prior plus log-likelihood lp (H,); uniform when no
+    hypothesis has a finite one."""
     m = np.max(lp[np.isfinite(lp)]) if np.isfinite(lp).any() else 0.0
     post = np.exp(lp - m)
     post = np.where(np.isfinite(post), post, 0.0)
     tot = post.sum()
-    post = post / tot if tot > 0 else np.full(H, 1.0 / H)
-    return Scored(ll, llk, post)
+    return post / tot if tot > 0 else np.full(len(lp), 1.0 / len(lp))
+
+
+# The kernel product is taken to a logarithm every this many readings, so that it stays
+# far inside the float64 range (each factor lies between eps/W and 0.4).
+_LOG_EVERY = 16
+# Working-array size of the kernel, in float64 elements (about 0.5 MB: inside a typical
+# per-core L2 cache, where the passes run several times faster than from main memory).
+_TILE_ELEMENTS = 1 << 16
+
+
+def _exp_floor(c: np.ndarray) -> np.ndarray:
+    """Lower bound (d,) for the exponent of the kernel factor exp(x) + c_j: below
+    log(c_j) - 40, exp(x) < c_j e^-40 is under half a unit in the last place of c_j, so
+    the factor is c_j exactly with or without it. Raising such x to the bound keeps every
+    factor bit for bit and keeps exp away from results near and below the smallest
+    normal float (e^-708), where it runs tens of times slower."""
+    with np.errstate(divide="ignore"):
+        return np.log(np.asarray(c, dtype=float)) - 40.0
+
+
+def kernel_loglik(ut: np.ndarray, Ut: np.ndarray, logpeak: np.ndarray, c: np.ndarray
+                  ) -> np.ndarray:
+    """log prod_j [ exp(logpeak_hj - (ut_ihj - Ut_jhk)^2) + c_j ], shape (n, H, K).
+
+    The per-unit kernel mixture of `score`, log of (1-eps) N(u; U, s^2) + eps/W, with
+    the readings and units pre-divided by s*sqrt(2) (ut (n, H, d), Ut (d, H, K)),
+    logpeak = log((1-eps) / (s sqrt(2 pi))) (H, d) and c = eps / W (d,). NaN units give
+    -inf. Units are taken a few at a time so that the working arrays stay in the CPU
+    cache; one pass over them per reading, one logarithm per _LOG_EVERY readings; the
+    exponent is bounded below (`_exp_floor`, the same factors).
+    """
+    n, H, d = ut.shape
+    K = Ut.shape[2]
+    floor = _exp_floor(c)
+    out = np.zeros((n, H, K))
+    tile = max(1, _TILE_ELEMENTS // (H * K))
+    prod = np.empty((tile, H, K))
+    w = np.empty((tile, H, K))
+    with np.errstate(invalid="ignore", over="ignore", under="ignore", divide="ignore"):
+        for a in range(0, n, tile):
+            m = min(tile, n - a)
+            p_, w_, o_ = prod[:m], w[:m], out[a:a + m]
+            p_.fill(1.0)
+            for j in range(d):
+                np.subtract(ut[a:a + m, :, j, None], Ut[j][None], out=w_)
+                np.square(w_, out=w_)
+                np.subtract(logpeak[None, :, j, None], w_, out=w_)
+                np.maximum(w_, floor[j], out=w_)
+                np.exp(w_, out=w_)
+                w_ += c[j]
+                p_ *= w_
+                if (j + 1) % _LOG_EVERY == 0 or j == d - 1:
+                    o_ += np.log(p_)
+                    p_.fill(1.0)
+    out[np.isnan(out)] = -np.inf
+    return out
+
+
+def unit_logliks(U_h: np.ndarray, taken: np.ndarray, u_reads: np.ndarray, s: np.ndarray,
+                 eps: float, W: np.ndarray) -> np.ndarray:
+    """Per-unit log-likelihood (n, K) of n units' readings u_reads (n, d) at observables
+    `taken` under drawn units U_h (K, M) of one hypothesis, with the kernel of `score`
+    of widths s (d,) (`kernel_loglik`); -inf for a unit that failed."""
+    scale = np.asarray(s, float) * math.sqrt(2.0)
+    Ut = np.ascontiguousarray((U_h[:, taken] / scale).T[:, None, :])        # (d, 1, K)
+    with np.errstate(divide="ignore"):
+        logpeak = np.log((1.0 - eps) / (scale * math.sqrt(math.pi)))[None]  # (1, d)
+    ut = (np.asarray(u_reads, float) / scale)[:, None, :]                   # (n, 1, d)
+    llk = kernel_loglik(ut, Ut, logpeak, eps / W[taken])[:, 0]              # (n, K)
+    return np.where(np.all(np.isfinite(U_h), axis=1)[None], llk, -np.inf)
+
+
+def loglik_units(U_h: np.ndarray, taken: np.ndarray, u_reads: np.ndarray, s: np.ndarray,
+                 eps: float, W: np.ndarray) -> tuple[np.ndarray, int]:
+    """Log-likelihood (n,) of n units' readings (`unit_logliks`' arguments) under one
+    hypothesis's drawn units: the mean over its valid units, and their number."""
+    n = int(np.all(np.isfinite(U_h), axis=1).sum())
+    return _logmeanexp(unit_logliks(U_h, taken, u_reads, s, eps, W), np.array(n)), n
+
+
+def pooled(ll_a: np.ndarray, n_a, ll_b: np.ndarray, n_b) -> np.ndarray:
+    """Log of the mean kernel likelihood over two sets of units, from each set's (ll_a
+    over n_a units, ll_b over n_b): log((n_a e^ll_a + n_b e^ll_b) / (n_a + n_b))."""
+    n_a = np.asarray(n_a, float)
+    n_b = np.asarray(n_b, float)
+    with np.errstate(divide="ignore"):
+        return np.logaddexp(ll_a + np.log(n_a), ll_b + np.log(n_b)) - np.log(n_a + n_b)
 
 
 def per_reading(U: np.ndarray, taken: np.ndarray, u_read: np.ndarray, eps: float,
@@ -278,6 +389,13 @@ def fit_pvalue(U_h: np.ndarray, taken: np.ndarray, u_read: np.ndarray, eps: floa
         return 1.0
     return fit_pvalue_from(fit_reference(U_h, taken, eps, W_lo, W, ref_k, ref_z, ref_b,
                                          ref_w, spread_h), u_read)
+
+
+# The fit test's kernel terms are single precision: its p-value resolves 1/(R + 1) at
+# best (R reference readings, a few hundred), far coarser than float32's 1e-7 relative
+# rounding of log-likelihoods, and single-precision exp and log run about three times
+# faster (the reference is R x K x d terms per hypothesis and set of readings taken).
+FIT_DTYPE = np.float32
 
 
 @dataclass(frozen=True)
@@ -317,10 +435,12 @@ def fit_reference(U_h: np.ndarray, taken: np.ndarray, eps: float, W_lo: np.ndarr
     k = ref_k % K
     sim = U[k] + ref_z[:, taken]
     blunder = W_lo[taken] + ref_w[:, taken] * W_S
-    sim = np.where(ref_b[:, taken] < eps, blunder, sim)
-    terms = _log_kernel_terms(U[None, :, :], sim, s[None, :], eps, W_S)  # (R, K, d)
-    terms[np.arange(len(k)), k] = -np.inf  # leave the simulating unit out
-    ref, cond = _fit_statistics(terms, np.array(K - 1))
+    sim = np.where(ref_b[:, taken] < eps, blunder, sim).astype(FIT_DTYPE)
+    U, s, W_S = U.astype(FIT_DTYPE), s.astype(FIT_DTYPE), W_S.astype(FIT_DTYPE)
+    v = _kernel_values(U[None, :, :], sim, s[None, :], eps, W_S)       # (R, K, d)
+    left_out = np.zeros(v.shape[:2], dtype=bool)
+    left_out[np.arange(len(k)), k] = True  # leave the simulating unit out
+    ref, cond = _fit_statistics(v, np.array(K - 1), left_out)
     sref = np.sort(ref[~np.isnan(ref)])
     scond = np.sort(cond[~np.isnan(cond)])
     R = len(ref)
@@ -362,8 +482,9 @@ def fit_pvalues_from(fr: FitReference | None, u_reads: np.ndarray,
     out = np.empty(n)
     K = np.array(fr.U.shape[0])
     for a in range(0, n, block):
-        terms = _log_kernel_terms(fr.U, u_reads[a:a + block], fr.s, fr.eps, fr.W_S)
-        L, cond = _fit_statistics(terms, K)
+        v = _kernel_values(fr.U, u_reads[a:a + block].astype(FIT_DTYPE), fr.s, fr.eps,
+                           fr.W_S)
+        L, cond = _fit_statistics(v, K)
         m = _combined(fr.sorted_ref, fr.sorted_cond, fr.R, L, cond)
         below = np.searchsorted(fr.sorted_min, m, side="right")
         out[a:a + block] = np.where(np.isnan(L), 1.0, (below + 1) / (fr.R + 1))

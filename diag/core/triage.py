@@ -41,6 +41,7 @@ import numpy as np
 from diag.core.case import Case
 from diag.core.engine import Diagnosis, Engine, Reading, ids_index
 from diag.core.errors import DiagError
+from diag.core.infer import _LOG_EVERY, _exp_floor, kernel_loglik
 
 STATUSES = ("fault", "healthy", "no-fit")
 LOOKALIKES = 5  # look-alike faults named under "No fault found" in the Markdown report
@@ -179,62 +180,6 @@ def rank_batch(engine: Engine, units: Sequence[Sequence[Reading]],
                                                       threads)
 
 
-# The kernel product is taken to a logarithm every this many readings, so that it stays
-# far inside the float64 range (each factor lies between eps/W and 0.4).
-_LOG_EVERY = 16
-# Working-array size of the kernel, in float64 elements (about 0.5 MB: inside a typical
-# per-core L2 cache, where the passes run several times faster than from main memory).
-_TILE_ELEMENTS = 1 << 16
-
-
-def _exp_floor(c: np.ndarray) -> np.ndarray:
-    """Lower bound (d,) for the exponent of the kernel factor exp(x) + c_j: below
-    log(c_j) - 40, exp(x) < c_j e^-40 is under half a unit in the last place of c_j, so
-    the factor is c_j exactly with or without it. Raising such x to the bound keeps every
-    factor bit for bit and keeps exp away from results near and below the smallest
-    normal float (e^-708), where it runs tens of times slower."""
-    with np.errstate(divide="ignore"):
-        return np.log(np.asarray(c, dtype=float)) - 40.0
-
-
-def kernel_loglik(ut: np.ndarray, Ut: np.ndarray, logpeak: np.ndarray, c: np.ndarray
-                  ) -> np.ndarray:
-    """log prod_j [ exp(logpeak_hj - (ut_ihj - Ut_jhk)^2) + c_j ], shape (n, H, K).
-
-    This is infer's per-unit kernel mixture, log of (1-eps) N(u; U, s^2) + eps/W, with
-    the readings and units pre-divided by s*sqrt(2) (ut (n, H, d), Ut (d, H, K)),
-    logpeak = log((1-eps) / (s sqrt(2 pi))) (H, d) and c = eps / W (d,). NaN units give
-    -inf. Units are taken a few at a time so that the working arrays stay in the CPU
-    cache; one pass over them per reading, one logarithm per _LOG_EVERY readings; the
-    exponent is bounded below (`_exp_floor`, the same factors).
-    """
-    n, H, d = ut.shape
-    K = Ut.shape[2]
-    floor = _exp_floor(c)
-    out = np.zeros((n, H, K))
-    tile = max(1, _TILE_ELEMENTS // (H * K))
-    prod = np.empty((tile, H, K))
-    w = np.empty((tile, H, K))
-    with np.errstate(invalid="ignore", over="ignore", under="ignore", divide="ignore"):
-        for a in range(0, n, tile):
-            m = min(tile, n - a)
-            p_, w_, o_ = prod[:m], w[:m], out[a:a + m]
-            p_.fill(1.0)
-            for j in range(d):
-                np.subtract(ut[a:a + m, :, j, None], Ut[j][None], out=w_)
-                np.square(w_, out=w_)
-                np.subtract(logpeak[None, :, j, None], w_, out=w_)
-                np.maximum(w_, floor[j], out=w_)
-                np.exp(w_, out=w_)
-                w_ += c[j]
-                p_ *= w_
-                if (j + 1) % _LOG_EVERY == 0 or j == d - 1:
-                    o_ += np.log(p_)
-                    p_.fill(1.0)
-    out[np.isnan(out)] = -np.inf
-    return out
-
-
 # Largest kernel tables of one `table_loglik` call (one hypothesis at a time), bytes:
 # a group whose distinct readings need more is split into that many row blocks.
 _TABLE_BYTES = 32 << 20
@@ -359,6 +304,14 @@ def groups_batch(ap: np.ndarray, orders: np.ndarray) -> np.ndarray:
     return g
 
 
+def solves_further_first(engine: Engine, n_units: int) -> bool:
+    """Whether a batch of n_units solves every hypothesis's further units
+    (Engine._refine) before it starts: a batch of at least as many units as hypotheses
+    leads with nearly every hypothesis somewhere, and solving them at once, on every
+    core, beats solving them block by block while the other blocks wait."""
+    return int(engine.inf["refine_top"]) > 0 and n_units >= len(engine.specs)
+
+
 class BatchScorer:
     """Engine.diagnose vectorised across units (see infer.py for the likelihood).
 
@@ -424,13 +377,12 @@ class BatchScorer:
                 "c": self.eps / self.W[idx]}
 
     def _score(self, g: dict, u_read: np.ndarray):
-        """Per-unit log-likelihood (n, H, K), log-likelihood (n, H), posterior (n, H) of
-        readings u_read (n, d) in u coordinates."""
+        """Per-unit log-likelihood (n, H, K) and log-likelihood (n, H) of readings
+        u_read (n, d) in u coordinates, on the ensemble's K units."""
         llk = kernel_loglik(u_read[:, None, :] / g["scale"][None], g["Ut"], g["logpeak"],
                             g["c"])
         llk = np.where(self.valid[None], llk, -np.inf)
-        ll = self.infer._logmeanexp(llk, self.n)
-        return llk, ll, self._posterior(ll)
+        return llk, self.infer._logmeanexp(llk, self.n)
 
     def _posterior(self, ll: np.ndarray) -> np.ndarray:
         """Posterior (n, H) from the log-likelihood (n, H), as infer.score."""
@@ -485,7 +437,7 @@ class BatchScorer:
         return [Reading(obs[j].point, obs[j].kind, v) for j, v in zip(idx, vals, strict=True)]
 
     def _finish(self, idx, rejected, llk, ll, post, pval, order, group, odd, nts,
-                healthy_fits: bool = False) -> Diagnosis:
+                healthy_fits: bool, u_read: np.ndarray) -> Diagnosis:
         from diag.core.engine import Suspect
 
         eng = self.engine
@@ -499,7 +451,7 @@ class BatchScorer:
                              gs.tolist(), self._texts[order].tolist()))
         if d < len(eng.observables):
             nxt = eng._advise(self.U, specs, self.infer.Scored(ll, llk, post), idx, order,
-                              group)
+                              group, u_read)
         else:
             nxt = []
         fit_text = eng._fit_text(fits, pval, d, specs[order[0]], False)
@@ -527,10 +479,14 @@ class BatchScorer:
         if rows is None:
             vals = np.stack([matched[i][1] for i in items])
             u_read = self.engine._noise_obj.u(vals, g["idx"])
-            llk, ll, post = self._score(g, u_read)
+            llk, ll = self._score(g, u_read)
         else:
             u_read, ll = g["u_all"][rows], g["ll_all"][rows]
-            llk, post = None, self._posterior(ll)
+            llk = None
+        if int(self.engine.inf["refine_top"]) > 0:  # leading suspects on all their units
+            ll = self.engine._refine(self.U, self.specs, g["idx"], u_read, self.log_prior,
+                                     ll)
+        post = self._posterior(ll)
         pval = self._pvalues(g, post, u_read)
         # Engine.diagnose tries pairs of faults when no single one fits, not even with
         # one slip of the probe (the reference with blunders at the modelled rate)
@@ -555,7 +511,7 @@ class BatchScorer:
             idx, _, rej = matched[i]
             out[i] = self._finish(idx, rej, None if llk is None else llk[r], ll[r], post[r],
                                   pval[r], orders[r], groups[r], odd[r], nts[r],
-                                  bool(healthy_fits[r]))
+                                  bool(healthy_fits[r]), u_read[r])
 
     def _healthy_fits(self, g: dict, u_read: np.ndarray, pval: list, orders: np.ndarray,
                       groups: np.ndarray) -> np.ndarray:
@@ -590,6 +546,8 @@ class BatchScorer:
         from concurrent.futures import ThreadPoolExecutor
 
         matched = [self.engine._match(rs) for rs in units]
+        if solves_further_first(self.engine, len(units)):
+            self.engine.build_further()
         by_key: dict[tuple[int, ...], list[int]] = {}
         for i, (idx, _, _) in enumerate(matched):
             by_key.setdefault(tuple(int(j) for j in idx), []).append(i)

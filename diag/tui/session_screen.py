@@ -162,8 +162,13 @@ class SessionScreen(Screen[None]):
         """Build (or load from the cache) the predictions; posts progress and the end."""
         worker = get_current_worker()
         try:
-            self.engine.build(progress=lambda f: self.post_message(EnsembleProgressed(f)),
+            # the ensemble, then its further units (Engine._refine), so that no reading
+            # typed later waits for a solve: a quarter and three quarters of the bar
+            self.engine.build(progress=lambda f: self.post_message(EnsembleProgressed(f / 4)),
                               cancelled=lambda: worker.is_cancelled)
+            self.engine.build_further(
+                progress=lambda f: self.post_message(EnsembleProgressed(0.25 + 0.75 * f)),
+                cancelled=lambda: worker.is_cancelled)
             healthy = tuple(self.engine.bands("healthy"))
         except Exception as exc:  # shown on screen; the interface stays usable
             self.post_message(EnsembleFailed(str(exc) or type(exc).__name__))
