@@ -634,6 +634,8 @@ def test_a_ranking_does_not_depend_on_what_was_diagnosed_before(tmp_path, monkey
 
 
 def test_further_units_are_cached_on_disk(tmp_path, monkeypatch):
+    # our own rule: a suspect's further units are solved once per case and rules, then
+    # read from the cache file beside the ensemble's (the same answer, no solve)
     monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
     e1 = Engine(load_case(RELAY), K=16)
     unit = e1.simulate("R1:open", np.random.default_rng(5))
@@ -649,7 +651,8 @@ def test_further_units_are_cached_on_disk(tmp_path, monkeypatch):
 
 
 def test_without_refinement_the_ranking_is_the_ensemble_s_own(eng, monkeypatch):
-    # refine_top 0 turns it off: the posterior is infer.score's on the K units
+    # our own rule: refine_top 0 turns it off, the posterior is infer.score's on the K
+    # units
     from diag.core import infer
 
     monkeypatch.setitem(eng.inf, "refine_top", 0)

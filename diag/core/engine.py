@@ -722,6 +722,14 @@ class Engine:
                 st.u[s.id] = self._noise_obj.u(x)
         return np.stack([st.u[s.id] for s in specs])
 
+    def _widths(self, U, rows, idx) -> np.ndarray:
+        """Kernel widths (len(rows), d) of `score` for hypotheses `rows` of U with the
+        readings at idx taken, noise widths (unit noise and the K units' bandwidth)."""
+        from diag.core import infer
+
+        bw = infer.bandwidth(U[rows], len(idx), self._spread_for(U)[rows])
+        return np.sqrt(1.0 + bw[:, idx] ** 2)
+
     def _refine(self, U, specs, idx, u_reads: np.ndarray, lp: np.ndarray,
                 ll: np.ndarray) -> np.ndarray:
         """Log-likelihoods (n, H) of n units' readings u_reads (n, d) at observables
@@ -745,8 +753,7 @@ class Engine:
         more = self._further_u([specs[h] for h in need])
         eps = float(self.inf["blunder"])
         W = self._blunder[1]
-        s = np.sqrt(1.0 + infer.bandwidth(U[need], len(idx),
-                                          self._spread_for(U)[need])[:, idx] ** 2)
+        s = self._widths(U, need, idx)
         n_base = np.all(np.isfinite(U[need]), axis=2).sum(axis=1)
         out = ll.copy()
         for i, h in enumerate(need):
@@ -1070,16 +1077,9 @@ class Engine:
         rows = np.asarray(order[:top], dtype=int)
         more = self._further_u([specs[h] for h in rows])                 # (r, Kx, M)
         H, K, M = U.shape
-        s = np.sqrt(1.0 + infer.bandwidth(U[rows], len(idx),
-                                          self._spread_for(U)[rows])[:, idx] ** 2)
-        eps = float(self.inf["blunder"])
-        scale = s * math.sqrt(2.0)                                        # (r, d)
-        Ut = np.ascontiguousarray(np.moveaxis(more[:, :, idx] / scale[:, None, :], 2, 0))
-        with np.errstate(divide="ignore"):
-            logpeak = np.log((1.0 - eps) / (scale * math.sqrt(math.pi)))
-        L = infer.kernel_loglik((u_read[None, :] / scale)[None], Ut, logpeak,
-                                eps / self._blunder[1][idx])[0]           # (r, Kx)
-        L = np.where(np.all(np.isfinite(more), axis=2), L, -np.inf)
+        s = self._widths(U, rows, idx)
+        L = infer.unit_logliks(more, idx, u_read[None], s, float(self.inf["blunder"]),
+                               self._blunder[1])[0]                       # (r, Kx)
         X = np.full((H, more.shape[1], M), np.nan)
         Lx = np.full((H, more.shape[1]), -np.inf)
         X[rows], Lx[rows] = more, L

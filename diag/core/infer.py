@@ -327,26 +327,29 @@ def kernel_loglik(ut: np.ndarray, Ut: np.ndarray, logpeak: np.ndarray, c: np.nda
     return out
 
 
-def unit_logliks(U_h: np.ndarray, taken: np.ndarray, u_reads: np.ndarray, s: np.ndarray,
+def unit_logliks(U: np.ndarray, taken: np.ndarray, u_reads: np.ndarray, s: np.ndarray,
                  eps: float, W: np.ndarray) -> np.ndarray:
-    """Per-unit log-likelihood (n, K) of n units' readings u_reads (n, d) at observables
-    `taken` under drawn units U_h (K, M) of one hypothesis, with the kernel of `score`
-    of widths s (d,) (`kernel_loglik`); -inf for a unit that failed."""
-    scale = np.asarray(s, float) * math.sqrt(2.0)
-    Ut = np.ascontiguousarray((U_h[:, taken] / scale).T[:, None, :])        # (d, 1, K)
+    """Per-unit log-likelihood (n, r, K) of n units' readings u_reads (n, d) at
+    observables `taken` under the drawn units U (r, K, M) of r hypotheses, with the
+    kernel of `score` of widths s (r, d) (`kernel_loglik`); -inf for a unit that
+    failed."""
+    scale = np.asarray(s, float) * math.sqrt(2.0)                           # (r, d)
+    Ut = np.ascontiguousarray(np.moveaxis(U[:, :, taken] / scale[:, None, :], 2, 0))
     with np.errstate(divide="ignore"):
-        logpeak = np.log((1.0 - eps) / (scale * math.sqrt(math.pi)))[None]  # (1, d)
-    ut = (np.asarray(u_reads, float) / scale)[:, None, :]                   # (n, 1, d)
-    llk = kernel_loglik(ut, Ut, logpeak, eps / W[taken])[:, 0]              # (n, K)
-    return np.where(np.all(np.isfinite(U_h), axis=1)[None], llk, -np.inf)
+        logpeak = np.log((1.0 - eps) / (scale * math.sqrt(math.pi)))        # (r, d)
+    ut = np.asarray(u_reads, float)[:, None, :] / scale[None]               # (n, r, d)
+    llk = kernel_loglik(ut, Ut, logpeak, eps / W[taken])                    # (n, r, K)
+    return np.where(np.all(np.isfinite(U), axis=2)[None], llk, -np.inf)
 
 
 def loglik_units(U_h: np.ndarray, taken: np.ndarray, u_reads: np.ndarray, s: np.ndarray,
                  eps: float, W: np.ndarray) -> tuple[np.ndarray, int]:
-    """Log-likelihood (n,) of n units' readings (`unit_logliks`' arguments) under one
-    hypothesis's drawn units: the mean over its valid units, and their number."""
+    """Log-likelihood (n,) of n units' readings u_reads (n, d) under one hypothesis's
+    drawn units U_h (K, M) with kernel widths s (d,) (`unit_logliks`): the mean over its
+    valid units, and their number."""
     n = int(np.all(np.isfinite(U_h), axis=1).sum())
-    return _logmeanexp(unit_logliks(U_h, taken, u_reads, s, eps, W), np.array(n)), n
+    llk = unit_logliks(U_h[None], taken, u_reads, np.asarray(s)[None], eps, W)[:, 0]
+    return _logmeanexp(llk, np.array(n)), n
 
 
 def pooled(ll_a: np.ndarray, n_a, ll_b: np.ndarray, n_b) -> np.ndarray:
