@@ -262,13 +262,16 @@ def score(U: np.ndarray, taken: np.ndarray, u_read: np.ndarray, log_prior: np.nd
 
 
 def posterior(lp: np.ndarray) -> np.ndarray:
-    """Posterior (H,) from log prior plus log-likelihood lp (H,); uniform when no
-    hypothesis has a finite one."""
-    m = np.max(lp[np.isfinite(lp)]) if np.isfinite(lp).any() else 0.0
-    post = np.exp(lp - m)
+    """Posterior (..., H) from log prior plus log-likelihood lp (..., H), over the last
+    axis (one unit's row, or many units' at once); uniform where no hypothesis has a
+    finite one."""
+    fin = np.isfinite(lp)
+    m = np.where(fin.any(axis=-1), np.max(np.where(fin, lp, -np.inf), axis=-1), 0.0)
+    with np.errstate(over="ignore", invalid="ignore"):
+        post = np.exp(lp - m[..., None])
     post = np.where(np.isfinite(post), post, 0.0)
-    tot = post.sum()
-    return post / tot if tot > 0 else np.full(len(lp), 1.0 / len(lp))
+    tot = post.sum(axis=-1, keepdims=True)
+    return np.where(tot > 0, post / np.where(tot > 0, tot, 1.0), 1.0 / lp.shape[-1])
 
 
 # The kernel product is taken to a logarithm every this many readings, so that it stays

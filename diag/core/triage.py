@@ -384,17 +384,6 @@ class BatchScorer:
         llk = np.where(self.valid[None], llk, -np.inf)
         return llk, self.infer._logmeanexp(llk, self.n)
 
-    def _posterior(self, ll: np.ndarray) -> np.ndarray:
-        """Posterior (n, H) from the log-likelihood (n, H), as infer.score."""
-        lp = self.log_prior[None] + ll
-        fin = np.isfinite(lp)
-        m = np.where(fin.any(axis=1), np.max(np.where(fin, lp, -np.inf), axis=1), 0.0)
-        with np.errstate(over="ignore", invalid="ignore"):
-            post = np.exp(lp - m[:, None])
-        post = np.where(np.isfinite(post), post, 0.0)
-        tot = post.sum(axis=1, keepdims=True)
-        return np.where(tot > 0, post / np.where(tot > 0, tot, 1.0), 1.0 / post.shape[1])
-
     def _pvalues(self, g: dict, post: np.ndarray, u_read: np.ndarray,
                  which: str = "main") -> np.ndarray:
         """Goodness of fit (n,) of a block: for each unit the largest predictive p-value
@@ -486,7 +475,7 @@ class BatchScorer:
         if int(self.engine.inf["refine_top"]) > 0:  # leading suspects on all their units
             ll = self.engine._refine(self.U, self.specs, g["idx"], u_read, self.log_prior,
                                      ll)
-        post = self._posterior(ll)
+        post = self.infer.posterior(self.log_prior[None] + ll)
         pval = self._pvalues(g, post, u_read)
         # Engine.diagnose tries pairs of faults when no single one fits, not even with
         # one slip of the probe (the reference with blunders at the modelled rate)
