@@ -650,6 +650,75 @@ def test_further_units_are_cached_on_disk(tmp_path, monkeypatch):
     assert e2.diagnose(unit).to_json("c") == want
 
 
+def test_further_units_built_in_steps_are_the_same_and_saved(tmp_path, monkeypatch):
+    # our own rule: the interface's background build (Engine.build_further with a chunk)
+    # solves the same units as one solve, the most likely hypotheses first, and writes
+    # the cache file after each step (a session closed halfway keeps what was solved);
+    # a later engine then has nothing pending
+    from diag.core import ensemble
+
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "whole"))
+    whole = Engine(load_case(RELAY), K=16)
+    whole.build_further()
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "steps"))
+    steps = Engine(load_case(RELAY), K=16)
+    assert steps.further_pending() == len(steps.specs)
+    solved, saved, seen = [], [], []
+    solve, save = steps._solve, ensemble.save_cache
+
+    def spy_solve(specs, *a, **k):
+        solved.append([s.id for s in specs])
+        return solve(specs, *a, **k)
+
+    monkeypatch.setattr(steps, "_solve", spy_solve)
+    monkeypatch.setattr(ensemble, "save_cache", lambda *a: (saved.append(a[0]), save(*a)))
+    steps.build_further(progress=seen.append, chunk=3)
+    assert all(len(ids) <= 3 for ids in solved) and len(solved) == -(-len(steps.specs) // 3)
+    pri = dict(zip([s.id for s in steps.specs],
+                   steps._priors(float(steps.inf["healthy_prior"]), steps.specs), strict=True))
+    order = [pri[i] for ids in solved for i in ids]
+    assert order == sorted(order, reverse=True)
+    assert len(saved) == len(solved) and seen == sorted(seen) and seen[-1] == 1.0
+    for s in steps.specs:
+        np.testing.assert_array_equal(steps._stores["-more"].mem[s.id][1],
+                                      whole._stores["-more"].mem[s.id][1])
+    assert Engine(load_case(RELAY), K=16).further_pending() == 0
+
+
+def test_a_ranking_during_the_background_build_is_the_same(tmp_path, monkeypatch):
+    # our own rule: a diagnosis asked for while another thread solves further units in
+    # steps waits for one step at most and solves its own leading suspects, and no step
+    # starts while it runs: the answer is what it is with everything solved beforehand
+    import threading
+
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "bg"))
+    bg = Engine(load_case(RELAY), K=16)
+    unit = bg.simulate("R2:open", np.random.default_rng(4))
+    steps, during = [], []
+    on_demand = bg._on_demand
+
+    def spy(name, specs, *a, **k):
+        if name == "-more" and len(specs) == 2 and threading.current_thread() is t:
+            steps.append(bg._active)
+        return on_demand(name, specs, *a, **k)
+
+    def diagnose_at_once():
+        during.append(bg._active)
+        return bg._diagnose(unit, None, True)
+
+    monkeypatch.setattr(bg, "_on_demand", spy)
+    t = threading.Thread(target=bg.build_further, kwargs={"chunk": 2})
+    t.start()
+    with bg._foreground():
+        got = diagnose_at_once().to_json("c")
+    t.join()
+    assert during == [1] and steps and sum(steps) <= 1  # at most the step in flight
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "fg"))
+    fg = Engine(load_case(RELAY), K=16)
+    fg.build_further()
+    assert got == fg.diagnose(unit).to_json("c")
+
+
 def test_without_refinement_the_ranking_is_the_ensemble_s_own(eng, monkeypatch):
     # our own rule: refine_top 0 turns it off, the posterior is infer.score's on the K
     # units

@@ -389,9 +389,16 @@ async def test_burst_in_the_entry_field_lands_row_by_row(diag_home):
 @sync
 async def test_cold_build_reports_progress(tmp_path, monkeypatch):
     # a private, empty cache: the predictions are built in the worker, with progress
+    # (our own interface rule); the ranking shows as soon as the ensemble is built, the
+    # further units of every hypothesis follow in the background with a bar of their own
     from diag.core import paths
     from diag.tui.app import mark_started
-    from diag.tui.messages import EnsembleBuilt, EnsembleProgressed
+    from diag.tui.messages import (
+        EnsembleBuilt,
+        EnsembleProgressed,
+        PredictionsRefined,
+        RankingUpdated,
+    )
 
     monkeypatch.setenv("DIAG_HOME", str(tmp_path / "cold"))
     mark_started()
@@ -400,11 +407,29 @@ async def test_cold_build_reports_progress(tmp_path, monkeypatch):
     app = DiagApp(case_path=CASE)
     async with app.run_test(size=(120, 40), message_hook=seen.append) as pilot:
         screen = await _open(pilot)
-        fractions = [m.fraction for m in seen if isinstance(m, EnsembleProgressed)]
-        assert fractions and all(0.0 <= f <= 1.0 for f in fractions)
-        assert any(isinstance(m, EnsembleBuilt) for m in seen)
+        kinds = [type(m) for m in seen]
+        built = kinds.index(EnsembleBuilt)
+        assert seen[built].refining
+        for phase in (False, True):
+            fractions = [m.fraction for m in seen
+                         if isinstance(m, EnsembleProgressed) and m.refining is phase]
+            assert fractions and all(0.0 <= f <= 1.0 for f in fractions)
+        assert not any(isinstance(m, EnsembleProgressed) and m.refining
+                       for m in seen[:built])
+        assert kinds.index(PredictionsRefined) > built
+        assert RankingUpdated in kinds[built:]
         assert screen.query_one("#build-row").display is False
+        assert screen.engine.further_pending() == 0
     assert any(paths.cache_dir().iterdir())               # and left in the cache
+    # a second open has nothing to refine: no background step, no bar
+    seen.clear()
+    app = DiagApp(case_path=CASE)
+    async with app.run_test(size=(120, 40), message_hook=seen.append) as pilot:
+        screen = await _open(pilot)
+        assert not next(m for m in seen if isinstance(m, EnsembleBuilt)).refining
+        assert not any(isinstance(m, (PredictionsRefined, EnsembleProgressed)) and
+                       getattr(m, "refining", True) for m in seen)
+        assert screen.query_one("#build-row").display is False
 
 
 @sync

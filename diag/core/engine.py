@@ -32,9 +32,11 @@ the leading suspect (same pairwise rule, infer.apart).
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import threading
+import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any, NamedTuple
@@ -267,6 +269,8 @@ class Engine:
         self._obs_index = {(o.point, o.kind): j for j, o in enumerate(self.observables)}
         self._ens: Ensemble | None = None
         self._lock = threading.RLock()  # one build at a time (interface worker threads)
+        self._active = 0  # diagnoses in progress (build_further's steps give way to them)
+        self._active_lock = threading.Lock()
         # units solved on demand (_on_demand): hypotheses outside the built set (pairs),
         # K each; further units of leading suspects (_refine), refine_draws x K each
         self._stores = {"-extra": _Store(self.K, 0, EXTRA_KEEP),
@@ -543,38 +547,91 @@ class Engine:
         return self._on_demand("-extra", specs)
 
     def build_further(self, progress: Callable[[float], None] | None = None,
-                      cancelled: Callable[[], bool] | None = None) -> None:
+                      cancelled: Callable[[], bool] | None = None,
+                      chunk: int | None = None) -> None:
         """Solve (or read from the cache) the further units of every built hypothesis
         (`_refine`), so that no later reading waits for them: the interface does this
-        once the ensemble is built (the command line solves them as suspects lead)."""
+        once the ensemble is built, in the background (the command line solves them as
+        suspects lead, triage all at once for a large batch). With `chunk`, `chunk`
+        hypotheses at a time, the most likely first, on one thread (a few hypotheses
+        solve faster on one than on two threads taking the interpreter lock in turn:
+        bench/tui_bench.py), each step saved to the cache: a diagnosis asked for
+        meanwhile (another thread) waits for one step at most and solves what it still
+        lacks itself, and no step starts while it runs."""
         self.build()
-        self._on_demand("-more", list(self.specs), progress, cancelled)
+        specs = list(self.specs)
+        if chunk is None:
+            self._on_demand("-more", specs, progress, cancelled)
+        else:
+            pri = self._priors(self.inf["healthy_prior"], specs)
+            specs = [specs[i] for i in np.argsort(-pri, kind="stable")]
+            n = len(specs)
+            for a in range(0, n, chunk):
+                b = min(n, a + chunk)
+                while self._active and not (cancelled and cancelled()):
+                    time.sleep(0.002)  # a diagnosis in progress goes first
+                self._on_demand(
+                    "-more", specs[a:b],
+                    None if progress is None
+                    else (lambda f, a=a, b=b: progress((a + f * (b - a)) / n)),
+                    cancelled, threads=1)
         if progress:
             progress(1.0)
 
-    def _on_demand(self, name: str, specs, progress=None, cancelled=None) -> np.ndarray:
+    def further_pending(self) -> int:
+        """Built hypotheses whose further units are neither in memory nor in the cache
+        file (0 once `build_further` has run, or when a past session left them all)."""
+        self.build()
+        st = self._stores["-more"]
+        with self._lock:
+            self._load_store(st, "-more")
+            return sum(s.id not in st.mem and s.id not in st.disk for s in self.specs)
+
+    def _load_store(self, st: _Store, name: str) -> None:
+        """Read store `name`'s cache file into st.disk, once."""
+        from diag.core import ensemble
+
+        if st.loaded:
+            return
+        st.loaded = True
+        data = ensemble.load_cache(self._store_file(name))
+        if data is not None and data["samples"].shape[1:] == (st.K, len(self.observables)):
+            st.disk = {str(f): x for f, x in zip(data["ids"], data["samples"], strict=True)}
+
+    @contextlib.contextmanager
+    def _foreground(self):
+        """Counts a diagnosis in progress (`_active`): build_further's steps wait while
+        one runs, so that it has the CPU and, once it needs the lock, the next turn at
+        it (a lock gives no turn to whoever waited longest)."""
+        with self._active_lock:
+            self._active += 1
+        try:
+            yield
+        finally:
+            with self._active_lock:
+                self._active -= 1
+
+    def _on_demand(self, name: str, specs, progress=None, cancelled=None,
+                   threads: int | None = None) -> np.ndarray:
         """Samples (n, store K, M) of specs from store `name` (see __init__): each spec
-        solved once (its own random stream), kept in memory and in the store's cache file
-        beside the ensemble's (ensemble.COMPANIONS), the `keep` newest; `progress` and
-        `cancelled` as in `build`."""
+        solved once (its own random stream), kept in memory and in the store's cache
+        file beside the ensemble's (ensemble.COMPANIONS), the `keep` newest; `progress`
+        and `cancelled` as in `build`, `threads` as in `_solve`."""
         from diag.core import ensemble
 
         st = self._stores[name]
         M = len(self.observables)
         with self._lock:
             todo = [s for s in specs if s.id not in st.mem]
-            if todo and not st.loaded:
-                st.loaded = True
-                data = ensemble.load_cache(self._store_file(name))
-                if data is not None and data["samples"].shape[1:] == (st.K, M):
-                    st.disk = {str(f): x for f, x in
-                               zip(data["ids"], data["samples"], strict=True)}
-                    for s in todo:
-                        if s.id in st.disk:
-                            st.mem[s.id] = (s, st.disk[s.id])
-                    todo = [s for s in todo if s.id not in st.mem]
             if todo:
-                x, _, _ = self._solve(todo, st.K, progress, cancelled, stream=st.stream)
+                self._load_store(st, name)
+                for s in todo:
+                    if s.id in st.disk:
+                        st.mem[s.id] = (s, st.disk[s.id])
+                todo = [s for s in todo if s.id not in st.mem]
+            if todo:
+                x, _, _ = self._solve(todo, st.K, progress, cancelled, threads=threads,
+                                      stream=st.stream)
                 for s, xs in zip(todo, x, strict=True):
                     st.mem[s.id] = (s, xs)
                     st.disk[s.id] = xs
@@ -828,6 +885,10 @@ class Engine:
         """Rank every hypothesis for these readings, test the fit, advise the next.
         With `advise` False the next readings are left out (empty `next`): the ranking
         alone, for an interface that shows it before the advice is worked out."""
+        with self._foreground():
+            return self._diagnose(readings, healthy_prior, advise)
+
+    def _diagnose(self, readings, healthy_prior, advise) -> Diagnosis:
         from diag.core import notes
 
         self.build()

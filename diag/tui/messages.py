@@ -29,24 +29,35 @@ class ReadingRejected(Message):
 
 @dataclass
 class EnsembleProgressed(Message):
-    """The prediction build advanced; `fraction` is 0..1."""
+    """The prediction build advanced; `fraction` is 0..1 (of the background step
+    after the ensemble when `refining`)."""
 
     fraction: float
+    refining: bool = False
 
 
 @dataclass
 class EnsembleBuilt(Message):
     """The predictions for every hypothesis are ready; `healthy` is the healthy band at
-    every observable, in case order."""
+    every observable, in case order; `refining` when the further units of some
+    hypotheses (Engine._refine) are still to be solved in the background."""
 
     healthy: tuple[Band, ...]
+    refining: bool = False
+
+
+@dataclass
+class PredictionsRefined(Message):
+    """Every hypothesis's further units are solved (the background step is done)."""
 
 
 @dataclass
 class EnsembleFailed(Message):
-    """The prediction build stopped with an error a user can read."""
+    """The prediction build stopped with an error a user can read (`refining`: in the
+    background step, which the ranking does without)."""
 
     why: str
+    refining: bool = False
 
 
 @dataclass

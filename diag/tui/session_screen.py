@@ -7,7 +7,9 @@ CONSTRUCTOR (stable; diag.tui.batch_screen and the app use it):
 
     engine    a diag.core.engine.Engine for the case (`engine.case` is the loaded Case).
               Its predictions are built here in a thread worker if not built yet; the
-              screen stays responsive and shows the progress.
+              screen stays responsive and shows the progress. The ranking starts once
+              the ensemble is built; the further units of the leading suspects follow in
+              the background ("refining predictions").
     readings  Reading objects to start from (for example one unit of a triage batch);
               ignored when `session` is given.
     session   a diag.core.session.Session to resume (readings, undo history, notes).
@@ -48,6 +50,7 @@ from diag.tui.messages import (
     EnsembleBuilt,
     EnsembleFailed,
     EnsembleProgressed,
+    PredictionsRefined,
     RankingUpdated,
     ReadingEntered,
     ReadingRejected,
@@ -56,6 +59,9 @@ from diag.tui.points_table import PointsTable, row_key
 from diag.tui.suspects_table import SuspectsTable
 
 _TYPING = set("0123456789.-+O")  # "O": a meter's over-range "OL", typed as shown
+# Hypotheses whose further units one background step solves (Engine.build_further): a
+# reading typed meanwhile waits for one step at most (measured in bench/tui_bench.py)
+REFINE_STEP = 4
 
 
 class SessionScreen(Screen[None]):
@@ -159,22 +165,36 @@ class SessionScreen(Screen[None]):
 
     @work(thread=True, exclusive=True, group="ensemble", exit_on_error=False)
     def build_ensemble(self) -> None:
-        """Build (or load from the cache) the predictions; posts progress and the end."""
+        """Build (or load from the cache) the predictions; posts progress and the end.
+        Then, the ranking already shown, the further units of every hypothesis
+        (Engine._refine) in the background, a few hypotheses at a time, so that no
+        reading typed later waits for a solve (a reading typed meanwhile waits for one
+        step at most, then solves its own leading suspects first)."""
         worker = get_current_worker()
         try:
-            # the ensemble, then its further units (Engine._refine), so that no reading
-            # typed later waits for a solve: a quarter and three quarters of the bar
-            self.engine.build(progress=lambda f: self.post_message(EnsembleProgressed(f / 4)),
+            self.engine.build(progress=lambda f: self.post_message(EnsembleProgressed(f)),
                               cancelled=lambda: worker.is_cancelled)
-            self.engine.build_further(
-                progress=lambda f: self.post_message(EnsembleProgressed(0.25 + 0.75 * f)),
-                cancelled=lambda: worker.is_cancelled)
             healthy = tuple(self.engine.bands("healthy"))
+            refining = self.engine.further_pending() > 0
         except Exception as exc:  # shown on screen; the interface stays usable
             self.post_message(EnsembleFailed(str(exc) or type(exc).__name__))
             return
+        if worker.is_cancelled:
+            return
+        self.post_message(EnsembleBuilt(healthy, refining))
+        if not refining:
+            return
+        try:
+            self.engine.build_further(
+                progress=lambda f: self.post_message(EnsembleProgressed(f, refining=True)),
+                cancelled=lambda: worker.is_cancelled, chunk=REFINE_STEP)
+        except Exception as exc:  # diagnose solves each leading suspect's units itself
+            if not worker.is_cancelled:
+                self.post_message(EnsembleFailed(str(exc) or type(exc).__name__,
+                                                 refining=True))
+            return
         if not worker.is_cancelled:
-            self.post_message(EnsembleBuilt(healthy))
+            self.post_message(PredictionsRefined())
 
     @work(thread=True, exclusive=True, group="ranking", exit_on_error=False)
     def rank(self, serial: int, readings: tuple[Reading, ...]) -> None:
@@ -206,12 +226,24 @@ class SessionScreen(Screen[None]):
     def on_ensemble_built(self, msg: EnsembleBuilt) -> None:
         self.bands = {(b.observable.point, b.observable.kind): b for b in msg.healthy}
         self.ready = True
-        self.query_one("#build-row").display = False
+        if msg.refining:  # the bar goes on, for the background step
+            self.query_one("#build-label", Label).update("refining predictions")
+            self.query_one("#build-progress", ProgressBar).update(progress=0.0)
+        else:
+            self.query_one("#build-row").display = False
         self._show_readings()
         self.request_ranking()
         self._sync_bindings()
 
+    def on_predictions_refined(self, msg: PredictionsRefined) -> None:
+        self.query_one("#build-row").display = False
+
     def on_ensemble_failed(self, msg: EnsembleFailed) -> None:
+        if msg.refining:  # the ranking works on: each suspect is refined as it leads
+            self.query_one("#build-row").display = False
+            self._message(f"refining predictions stopped: {msg.why}; each suspect is "
+                          "refined as it leads instead")
+            return
         self.query_one("#build-label", Label).update("predictions failed")
         self._message(f"predictions failed: {msg.why}")
         self.notify(msg.why, title="predictions failed", severity="error", timeout=10)
