@@ -733,3 +733,7 @@ def test_without_refinement_the_ranking_is_the_ensemble_s_own(eng, monkeypatch):
                        float(eng.inf["blunder"]), eng._blunder[1], eng._spread)
     got = {s.fault: s.p for s in d.suspects}
     np.testing.assert_allclose([got[s.id] for s in eng.specs], base.posterior, rtol=1e-12)
+    # and there is nothing to solve in the background for it
+    assert eng.further_pending() == 0
+    monkeypatch.setattr(eng, "_on_demand", lambda *a, **k: pytest.fail("solved units"))
+    eng.build_further(chunk=4)

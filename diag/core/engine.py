@@ -559,8 +559,10 @@ class Engine:
         meanwhile (another thread) waits for one step at most and solves what it still
         lacks itself, and no step starts while it runs."""
         self.build()
-        specs = list(self.specs)
-        if chunk is None:
+        specs = list(self.specs) if self.further_pending() else []
+        if not specs:
+            pass  # all solved or cached already, or no refinement (refine_top 0)
+        elif chunk is None:
             self._on_demand("-more", specs, progress, cancelled)
         else:
             pri = self._priors(self.inf["healthy_prior"], specs)
@@ -580,7 +582,10 @@ class Engine:
 
     def further_pending(self) -> int:
         """Built hypotheses whose further units are neither in memory nor in the cache
-        file (0 once `build_further` has run, or when a past session left them all)."""
+        file (0 once `build_further` has run, when a past session left them all, or
+        when the rules refine nothing: `refine_top` 0)."""
+        if int(self.inf["refine_top"]) <= 0:
+            return 0
         self.build()
         st = self._stores["-more"]
         with self._lock:
