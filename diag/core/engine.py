@@ -240,6 +240,12 @@ class _Store:
     disk: dict = field(default_factory=dict)
     loaded: bool = False
     u: dict = field(default_factory=dict)  # id -> samples in u coordinates (Engine)
+# Most units one block of a multi-worker solve holds (Engine._solve): beyond this the
+# solver's arrays outgrow the CPU caches. Measured on two forked workers (2026-12-05):
+# 384 units per hypothesis, 21 hypotheses a block against 42, mic-preamp 1.65 s against
+# 1.80 s, pushpull-output 4.0 against 4.9 s; ensembles of 128 (blocks under the bound)
+# are as before, and halving the bound made mic-preamp's slower (0.80 against 0.68 s).
+BLOCK_UNITS = 8192
 # Most goodness-of-fit references kept in memory (Engine._fit; about R + K*d floats each).
 FIT_REF_KEEP = 4096
 # Reading kinds' model-error keys in faults.yaml `inference.model_error`.
@@ -367,7 +373,8 @@ class Engine:
         other). Every hypothesis draws from its own random stream and the solver keeps
         its work buffers per thread, so the result depends on none of these. Default
         chunk: 16 hypotheses on one worker; with more, one chunk per worker (large
-        chunks spend their time in numpy rather than in Python)."""
+        chunks spend their time in numpy rather than in Python), or as many per worker
+        as keep each under BLOCK_UNITS units."""
         from diag.core import ensemble, meter, solver, workers
 
         circ = self.circuit
@@ -375,8 +382,9 @@ class Engine:
 
         if threads is None:
             threads = max(1, min(2, os.cpu_count() or 1))
-        if chunk is None:
-            chunk = 16 if threads <= 1 else max(1, -(-len(specs) // threads))
+        if chunk is None:  # blocks a multiple of the workers, none over BLOCK_UNITS units
+            per = max(1, -(-len(specs) * K // (threads * BLOCK_UNITS)))
+            chunk = 16 if threads <= 1 else max(1, -(-len(specs) // (threads * per)))
         blocks = [specs[i:i + chunk] for i in range(0, len(specs), chunk)]
 
         def one(i):
