@@ -29,6 +29,7 @@ from diag.core.triage import (
     kernel_loglik,
     refused_rows,
     table_loglik,
+    table_loglik_units,
     to_csv,
     to_json,
     to_markdown,
@@ -131,6 +132,28 @@ def test_table_kernel_equals_the_direct_kernel(d, c_scale):
     assert_allclose(got[fin], direct[fin], rtol=1e-12)
     sub = table_loglik(u, scale, Ut, logpeak, c, valid, n_valid, [4, 1])
     assert_allclose(sub, got[:, [4, 1]], rtol=1e-15)
+
+
+def test_table_units_loglik_equals_the_engine_s(engine):
+    # Independent path: a leading suspect's mixture over its further units through the
+    # shared tables (triage.table_loglik_units, the batch's refinement) against
+    # infer.loglik_units (diagnose's), on the case's own further units with readings
+    # that repeat and a drawn unit that did not solve
+    from diag.core import infer
+
+    more = engine._further_u(list(engine.specs[:3]))
+    more[1, 5] = np.nan
+    taken = np.array([0, 2, 3])
+    rng = np.random.default_rng(3)
+    u = np.round(more[0, rng.integers(0, more.shape[1], 400)][:, taken]
+                 + rng.normal(size=(400, 3)), 1)
+    s = rng.uniform(1.0, 2.0, size=3)
+    W = engine._blunder[1]
+    for h in range(3):
+        want, n_want = infer.loglik_units(more[h], taken, u, s, 0.02, W)
+        got, n_got = table_loglik_units(more[h], taken, u, s, 0.02, W)
+        assert n_got == n_want == more.shape[1] - (h == 1)
+        assert_allclose(got, want, rtol=1e-12)
 
 
 def test_groups_batch_equals_the_greedy_grouping(engine):

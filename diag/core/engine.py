@@ -801,7 +801,7 @@ class Engine:
         return np.sqrt(1.0 + bw[:, idx] ** 2)
 
     def _refine(self, U, specs, idx, u_reads: np.ndarray, lp: np.ndarray,
-                ll: np.ndarray) -> np.ndarray:
+                ll: np.ndarray, units_loglik=None) -> np.ndarray:
         """Log-likelihoods (n, H) of n units' readings u_reads (n, d) at observables
         idx, from U's (ll (n, H), log prior lp (H,)), with each unit's `refine_top`
         leading hypotheses' kernel mixtures taken over their further units too (the
@@ -810,9 +810,12 @@ class Engine:
         one fault often reads like another's: there the kernel density rests on the few
         units that happen to lie near, and a leading suspect's weight on chance. The
         further units are drawn once per hypothesis (their own random stream), so a
-        unit's ranking does not depend on what was scored before it."""
+        unit's ranking does not depend on what was scored before it. `units_loglik`
+        (default infer.loglik_units, the same arguments and result) computes each
+        suspect's mixture over its further units (triage passes its table form)."""
         from diag.core import infer
 
+        units_loglik = units_loglik or infer.loglik_units
         top = int(self.inf["refine_top"])
         key = lp[None] + ll
         lead = np.argsort(-key, axis=1, kind="stable")[:, :top]          # (n, top)
@@ -828,7 +831,7 @@ class Engine:
         out = ll.copy()
         for i, h in enumerate(need):
             rows = np.flatnonzero(((lead == h) & ok).any(axis=1))
-            llm, n = infer.loglik_units(more[i], idx, u_reads[rows], s[i], eps, W)
+            llm, n = units_loglik(more[i], idx, u_reads[rows], s[i], eps, W)
             out[rows, h] = infer.pooled(ll[rows, h], n_base[i], llm, n)
         return out
 

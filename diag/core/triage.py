@@ -275,6 +275,22 @@ def table_loglik(u_read: np.ndarray, scale: np.ndarray, Ut: np.ndarray,
     return back
 
 
+def table_loglik_units(U_h: np.ndarray, taken: np.ndarray, u_reads: np.ndarray,
+                       s: np.ndarray, eps: float, W: np.ndarray) -> tuple[np.ndarray, int]:
+    """infer.loglik_units through `table_loglik`: the log-likelihood (n,) of n units'
+    readings u_reads (n, d) at observables `taken` under one hypothesis's drawn units
+    U_h (K, M) with kernel widths s (d,), and the number of its valid units (the same
+    value to rounding; for many units whose readings repeat)."""
+    scale = np.asarray(s, float)[None] * math.sqrt(2.0)                      # (1, d)
+    Ut = np.ascontiguousarray(np.moveaxis(U_h[None][:, :, taken] / scale[:, None, :], 2, 0))
+    with np.errstate(divide="ignore"):
+        logpeak = np.log((1.0 - eps) / (scale * math.sqrt(math.pi)))
+    valid = np.all(np.isfinite(U_h), axis=1)[None]
+    n = np.array([int(valid.sum())])
+    return table_loglik(u_reads, scale, Ut, logpeak, eps / W[taken], valid, n, [0])[:, 0], \
+        int(n[0])
+
+
 def _logmeanexp(x: np.ndarray, n) -> np.ndarray:
     from diag.core.infer import _logmeanexp as f
 
@@ -469,10 +485,11 @@ class BatchScorer:
             vals = np.stack([matched[i][1] for i in items])
             u_read = self.engine._noise_obj.u(vals, g["idx"])
             llk, ll = self._score(g, u_read)
-        else:
+        else:  # refined already (_refine_part)
             u_read, ll = g["u_all"][rows], g["ll_all"][rows]
             llk = None
-        if int(self.engine.inf["refine_top"]) > 0:  # leading suspects on all their units
+        if rows is None and int(self.engine.inf["refine_top"]) > 0:
+            # leading suspects on all their units
             ll = self.engine._refine(self.U, self.specs, g["idx"], u_read, self.log_prior,
                                      ll)
         post = self.infer.posterior(self.log_prior[None] + ll)
@@ -526,6 +543,13 @@ class BatchScorer:
             g["u_all"][rows], g["scale"], g["Ut"], g["logpeak"], g["c"], self.valid,
             self.n, hyps)
 
+    def _refine_part(self, g: dict, rows: slice) -> None:
+        """The group's units `rows` with their leading suspects scored on their further
+        units too (Engine._refine, through `table_loglik_units`), in g["ll_all"]."""
+        g["ll_all"][rows] = self.engine._refine(
+            self.U, self.specs, g["idx"], g["u_all"][rows], self.log_prior,
+            g["ll_all"][rows], units_loglik=table_loglik_units)
+
     def run(self, units: Sequence[Sequence[Reading]], progress=None, cancelled=None,
             chunk: int = 64, threads: int | None = None, table_min: int = 256
             ) -> list[Diagnosis]:
@@ -545,7 +569,7 @@ class BatchScorer:
         H = self.U.shape[0]
         M = len(self.engine.observables)
         out: list = [None] * len(units)
-        tables, blocks = [], []  # (weight in units, function, arguments)
+        tables, refines, blocks = [], [], []  # (weight in units, function, arguments)
         for key, members in by_key.items():
             g = self._prepare(key)
             use = len(key) == M and len(members) >= max(table_min, 1)
@@ -565,6 +589,11 @@ class BatchScorer:
                     for hs in np.array_split(np.arange(H), parts):
                         tables.append((n_rows * len(hs) / H, self._table_part,
                                        (g, rows, hs.tolist())))
+                if int(self.engine.inf["refine_top"]) > 0:  # once the tables are done
+                    for rs in np.array_split(np.arange(len(members)), threads):
+                        if len(rs):
+                            refines.append((len(rs) / 4, self._refine_part,
+                                            (g, slice(int(rs[0]), int(rs[-1]) + 1))))
                 big = 4 * chunk  # no per-unit kernel to hold: larger blocks
                 for b in range(0, len(members), big):
                     blocks.append((len(members[b:b + big]), self._block,
@@ -574,7 +603,8 @@ class BatchScorer:
                 for b in range(0, len(members), chunk):
                     blocks.append((len(members[b:b + chunk]), self._block,
                                    (members[b:b + chunk], matched, units, g, out)))
-        total = max(sum(w for w, _, _ in tables) + sum(w for w, _, _ in blocks), 1)
+        phases = (tables, refines, blocks)  # each complete before the next starts
+        total = max(sum(w for ph in phases for w, _, _ in ph), 1)
         state = {"done": 0.0}
 
         def step(w: float) -> None:
@@ -587,14 +617,14 @@ class BatchScorer:
                 raise InterruptedError("triage cancelled")
 
         if threads <= 1:  # in the calling thread
-            for phase in (tables, blocks):
+            for phase in phases:
                 for w, f, args in phase:
                     check()
                     f(*args)
                     step(w)
             return out
         with ThreadPoolExecutor(max_workers=threads) as pool:
-            for phase in (tables, blocks):  # every table is complete before the blocks
+            for phase in phases:
                 futures = [(w, pool.submit(f, *args)) for w, f, args in phase]
                 for w, fut in futures:
                     try:
