@@ -586,7 +586,7 @@ async def test_help_explains_the_marks_of_the_session_screen(diag_home):
         await settle(pilot)
         words = str(app.screen.query_one("#help-words").content)
         for term in ("healthy", "off healthy", "→", "posterior", "grp, ≡", "bits",
-                     "typing a reading"):
+                     "typing a reading", "refining predictions"):
             assert term in words
 
 

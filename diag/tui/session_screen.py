@@ -86,6 +86,10 @@ class SessionScreen(Screen[None]):
                              "row, so values typed one after another land row by row; a "
                              "column pasted from a sheet goes in the same way; in the "
                              "field, up and down move, esc goes back to the table"),
+        ("refining predictions", "the first time a case is opened, more drawn units of "
+                                 "every suspect are solved after the ranking shows and "
+                                 "kept for next time; a reading typed meanwhile goes "
+                                 "first, and the ranking is the same either way"),
     )
 
     BINDINGS = [
