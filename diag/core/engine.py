@@ -567,8 +567,8 @@ class Engine:
         meanwhile (another thread) waits for one step at most and solves what it still
         lacks itself, and no step starts while it runs."""
         self.build()
-        specs = list(self.specs) if self.further_pending() else []
-        if not specs:
+        specs = list(self.specs)
+        if not self.further_pending():
             pass  # all solved or cached already, or no refinement (refine_top 0)
         elif chunk is None:
             self._on_demand("-more", specs, progress, cancelled)

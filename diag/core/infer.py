@@ -330,16 +330,25 @@ def kernel_loglik(ut: np.ndarray, Ut: np.ndarray, logpeak: np.ndarray, c: np.nda
     return out
 
 
+def kernel_setup(U: np.ndarray, taken: np.ndarray, s: np.ndarray, eps: float
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The arguments of `kernel_loglik` for the drawn units U (r, K, M) of r hypotheses
+    at observables `taken` with kernel widths s (r, d): scale s*sqrt(2) (r, d), the
+    units divided by it Ut (d, r, K), and logpeak (r, d)."""
+    scale = np.asarray(s, float) * math.sqrt(2.0)
+    Ut = np.ascontiguousarray(np.moveaxis(U[:, :, taken] / scale[:, None, :], 2, 0))
+    with np.errstate(divide="ignore"):
+        logpeak = np.log((1.0 - eps) / (scale * math.sqrt(math.pi)))
+    return scale, Ut, logpeak
+
+
 def unit_logliks(U: np.ndarray, taken: np.ndarray, u_reads: np.ndarray, s: np.ndarray,
                  eps: float, W: np.ndarray) -> np.ndarray:
     """Per-unit log-likelihood (n, r, K) of n units' readings u_reads (n, d) at
     observables `taken` under the drawn units U (r, K, M) of r hypotheses, with the
     kernel of `score` of widths s (r, d) (`kernel_loglik`); -inf for a unit that
     failed."""
-    scale = np.asarray(s, float) * math.sqrt(2.0)                           # (r, d)
-    Ut = np.ascontiguousarray(np.moveaxis(U[:, :, taken] / scale[:, None, :], 2, 0))
-    with np.errstate(divide="ignore"):
-        logpeak = np.log((1.0 - eps) / (scale * math.sqrt(math.pi)))        # (r, d)
+    scale, Ut, logpeak = kernel_setup(U, taken, s, eps)
     ut = np.asarray(u_reads, float)[:, None, :] / scale[None]               # (n, r, d)
     llk = kernel_loglik(ut, Ut, logpeak, eps / W[taken])                    # (n, r, K)
     return np.where(np.all(np.isfinite(U), axis=2)[None], llk, -np.inf)

@@ -281,10 +281,9 @@ def table_loglik_units(U_h: np.ndarray, taken: np.ndarray, u_reads: np.ndarray,
     readings u_reads (n, d) at observables `taken` under one hypothesis's drawn units
     U_h (K, M) with kernel widths s (d,), and the number of its valid units (the same
     value to rounding; for many units whose readings repeat)."""
-    scale = np.asarray(s, float)[None] * math.sqrt(2.0)                      # (1, d)
-    Ut = np.ascontiguousarray(np.moveaxis(U_h[None][:, :, taken] / scale[:, None, :], 2, 0))
-    with np.errstate(divide="ignore"):
-        logpeak = np.log((1.0 - eps) / (scale * math.sqrt(math.pi)))
+    from diag.core.infer import kernel_setup
+
+    scale, Ut, logpeak = kernel_setup(U_h[None], taken, np.asarray(s)[None], eps)
     valid = np.all(np.isfinite(U_h), axis=1)[None]
     n = np.array([int(valid.sum())])
     return table_loglik(u_reads, scale, Ut, logpeak, eps / W[taken], valid, n, [0])[:, 0], \
@@ -592,7 +591,7 @@ class BatchScorer:
                 if int(self.engine.inf["refine_top"]) > 0:  # once the tables are done
                     for rs in np.array_split(np.arange(len(members)), threads):
                         if len(rs):
-                            refines.append((len(rs) / 4, self._refine_part,
+                            refines.append((len(rs), self._refine_part,
                                             (g, slice(int(rs[0]), int(rs[-1]) + 1))))
                 big = 4 * chunk  # no per-unit kernel to hold: larger blocks
                 for b in range(0, len(members), big):
