@@ -246,6 +246,14 @@ class _Store:
 # 1.80 s, pushpull-output 4.0 against 4.9 s; ensembles of 128 (blocks under the bound)
 # are as before, and halving the bound made mic-preamp's slower (0.80 against 0.68 s).
 BLOCK_UNITS = 8192
+# Most units a solve on threads (where no worker process may be forked: the interface)
+# gives one thread: two take the interpreter lock in turn, and below about this size
+# the handing over costs more than the second core gives. Measured (2026-12-05, 384
+# units each for 12 hypotheses, one thread against two): pushpull-output 0.84 against
+# 0.95 s, line-driver 0.15 against 0.20 s, sounder-driver 0.12 against 0.15 s,
+# mic-preamp 0.16 both; whole ensembles of 128 (5 000 to 10 600 units) are faster on
+# two, down to sounder-driver's 5 120 units at 0.20 s both.
+THREAD_MIN_UNITS = 5120
 # Most goodness-of-fit references kept in memory (Engine._fit; about R + K*d floats each).
 FIT_REF_KEEP = 4096
 # Reading kinds' model-error keys in faults.yaml `inference.model_error`.
@@ -368,7 +376,8 @@ class Engine:
         """Meter readings (H, K, M) of K units per spec, and the hidden readings
         (H, K, X) with their names; progress over chunks of hypotheses; `stream` as in
         ensemble.hypothesis_rng. Chunks are
-        solved by `threads` workers (default: the CPU count, at most 2), forked processes
+        solved by `threads` workers (default: the CPU count, at most 2; one for a small
+        solve on threads, THREAD_MIN_UNITS), forked processes
         where that is safe, else threads (diag.core.workers; `processes` forces one or the
         other). Every hypothesis draws from its own random stream and the solver keeps
         its work buffers per thread, so the result depends on none of these. Default
@@ -382,6 +391,9 @@ class Engine:
 
         if threads is None:
             threads = max(1, min(2, os.cpu_count() or 1))
+            if len(specs) * K <= THREAD_MIN_UNITS and not (
+                    workers.forkable() if processes is None else processes):
+                threads = 1  # see THREAD_MIN_UNITS
         if chunk is None:  # blocks a multiple of the workers, none over BLOCK_UNITS units
             per = max(1, -(-len(specs) * K // (threads * BLOCK_UNITS)))
             chunk = 16 if threads <= 1 else max(1, -(-len(specs) // (threads * per)))
