@@ -80,12 +80,24 @@ def _open_runs(tmux, sock, diag, case, home, runs) -> list[float]:
     return out
 
 
+async def _ranked_after(screen, r) -> float:
+    """Seconds from reading r recorded on `screen` (as a typed value is) to the screen
+    showing the ranking of the readings with it."""
+    from diag.core.engine import Reading
+
+    before = screen.shown_serial
+    t0 = time.perf_counter()
+    screen._record(Reading(r.point, r.kind, r.value))
+    while screen.shown_serial <= before or screen.shown_serial != screen.serial:
+        await asyncio.sleep(0.0005)
+    return time.perf_counter() - t0
+
+
 async def reading_seconds(case: Path, runs: int):
     """(screen update times, engine.diagnose times, in-process seconds from App() to the
     ranked screen) for `runs` readings entered in turn (warm cache)."""
     import numpy as np
 
-    from diag.core.engine import Reading
     from diag.tui.app import DiagApp
     from diag.tui.session_screen import SessionScreen
 
@@ -102,13 +114,7 @@ async def reading_seconds(case: Path, runs: int):
         unit = [r for r in eng.simulate(fault, np.random.default_rng(1))
                 if np.isfinite(r.value) and r.value >= 0]
         for k in range(runs):
-            r = unit[k % len(unit)]
-            before = screen.shown_serial
-            t0 = time.perf_counter()
-            screen._record(Reading(r.point, r.kind, r.value))  # as a typed value is
-            while screen.shown_serial <= before or screen.shown_serial != screen.serial:
-                await asyncio.sleep(0.0005)
-            ui.append(time.perf_counter() - t0)
+            ui.append(await _ranked_after(screen, unit[k % len(unit)]))
             t0 = time.perf_counter()
             eng.diagnose(tuple(screen.session.readings))
             core.append(time.perf_counter() - t0)
@@ -122,7 +128,6 @@ async def cold_seconds(case: Path, home: Path) -> tuple[float, float, float]:
     background step."""
     import numpy as np
 
-    from diag.core.engine import Reading
     from diag.tui.app import DiagApp
     from diag.tui.messages import PredictionsRefined
     from diag.tui.session_screen import SessionScreen
@@ -140,12 +145,7 @@ async def cold_seconds(case: Path, home: Path) -> tuple[float, float, float]:
         fault = screen.diagnosis.suspects[1].fault
         r = next(r for r in screen.engine.simulate(fault, np.random.default_rng(1))
                  if np.isfinite(r.value) and r.value >= 0)
-        before = screen.shown_serial
-        t0 = time.perf_counter()
-        screen._record(Reading(r.point, r.kind, r.value))
-        while screen.shown_serial <= before or screen.shown_serial != screen.serial:
-            await asyncio.sleep(0.0005)
-        reading = time.perf_counter() - t0
+        reading = await _ranked_after(screen, r)
         while not refined:
             await asyncio.sleep(0.005)
     return ranked, reading, refined[0] - t_start

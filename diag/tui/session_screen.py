@@ -8,8 +8,8 @@ CONSTRUCTOR (stable; diag.tui.batch_screen and the app use it):
     engine    a diag.core.engine.Engine for the case (`engine.case` is the loaded Case).
               Its predictions are built here in a thread worker if not built yet; the
               screen stays responsive and shows the progress. The ranking starts once
-              the ensemble is built; the further units of the leading suspects follow in
-              the background ("refining predictions").
+              the ensemble is built; the further units of every hypothesis follow in the
+              background ("refining predictions").
     readings  Reading objects to start from (for example one unit of a triage batch);
               ignored when `session` is given.
     session   a diag.core.session.Session to resume (readings, undo history, notes).
