@@ -135,10 +135,10 @@ def test_table_kernel_equals_the_direct_kernel(d, c_scale):
 
 
 def test_table_units_loglik_equals_the_engine_s(engine):
-    # Independent path: a leading suspect's mixture over its further units through the
-    # shared tables (triage.table_loglik_units, the batch's refinement) against
-    # infer.loglik_units (diagnose's), on the case's own further units with readings
-    # that repeat and a drawn unit that did not solve
+    # Independent path (our own rule): a leading suspect's mixture over its further
+    # units through the shared tables (triage.table_loglik_units, the batch's
+    # refinement) against infer.loglik_units (diagnose's), on the case's own further
+    # units with readings that repeat and a drawn unit that did not solve
     from diag.core import infer
 
     more = engine._further_u(list(engine.specs[:3]))

@@ -484,7 +484,7 @@ class BatchScorer:
             vals = np.stack([matched[i][1] for i in items])
             u_read = self.engine._noise_obj.u(vals, g["idx"])
             llk, ll = self._score(g, u_read)
-        else:  # refined already (_refine_part)
+        else:  # a table group's rows: refined already by _refine_part (if at all)
             u_read, ll = g["u_all"][rows], g["ll_all"][rows]
             llk = None
         if rows is None and int(self.engine.inf["refine_top"]) > 0:
