@@ -113,6 +113,21 @@ def test_points_parsed(rules):
     assert obs[-1].unit == "A" and obs[0].unit == "V"
 
 
+def test_a_point_without_where_reads_its_nodes(tmp_path, rules):
+    """Our own rule: `where:` is what the screen shows; left out, the node names (or the
+    supply's name) stand in for it rather than refusing the case."""
+    text = (BASE.replace('TP3: {node: base, where: "Q1 base"}', "TP3: {node: base}")
+            .replace('TP6: {supply: V1, where: "bench supply\'s ammeter"}', "TP6: {supply: V1}"))
+    assert text.count("where:") == BASE.count("where:") - 2
+    text = text.replace('TP4: {node: emit, where: "Q1 emitter, top of R4"}',
+                        "TP4: {node: emit, minus: base}")
+    case = load_case(write(tmp_path, text), rules)
+    assert case.point("TP3").where == "node base"
+    assert case.point("TP4").where == "node emit against base"
+    assert case.point("TP6").where == "supply V1's current"
+    assert case.point("TP1").where == "supply pin on the input header"
+
+
 def test_parts_at(rules):
     case = load_case(SPEC_EXAMPLE, rules)
     at = {(p.ref, t) for p, t in case.parts_at("base")}
@@ -299,8 +314,8 @@ ERRORS = [
     ("inline model as a models.yaml entry", "model: npn-small",
      "model: {kind: npn, params: {IS: 1e-14}}", "the card's parameters themselves", 12,
      "Q1"),
-    ("point without where", 'TP3: {node: base, where: "Q1 base"}', "TP3: {node: base}",
-     "where: is missing", 21, "TP3"),
+    ("point where not text", 'TP3: {node: base, where: "Q1 base"}', "TP3: {node: base, where: 3}",
+     "where: must be text", 21, "TP3"),
     ("point cost zero", "cost: 2", "cost: 0", "more than zero", 23, "TP5"),
     ("point unknown field", 'where: "Q1 base"', 'where: "Q1 base", probe: red',
      "unknown field 'probe'", 21, "TP3"),

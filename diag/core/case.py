@@ -601,10 +601,14 @@ class _Loader:
                 self.err(f"supply: {supply} is a {parts[supply]}, not a supply", sl, pid,
                          hint=f"name a supply part: {_names(supplies)}")
                 ok = False
+        # where: is what the screen and the report say the probe touches; a case
+        # written in a hurry may leave it out, and the node names stand in for it
         text = body.get("where")
-        if not isinstance(text, str) or not text.strip():
-            self.err("where: is missing" if "where" not in body else "where: must be text",
-                     _line(body, "where", line), pid,
+        if "where" not in body:
+            text = (f"supply {supply}'s current" if supply is not None
+                    else f"node {node}" + (f" against {minus}" if minus else ""))
+        elif not isinstance(text, str) or not text.strip():
+            self.err("where: must be text", _line(body, "where", line), pid,
                      hint='say where the probe goes, e.g. where: "Q1 collector, middle leg"')
             ok = False
         reads = self.reads(body.get("reads", ["dc"]), _line(body, "reads", line), pid,
