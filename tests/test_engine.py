@@ -468,6 +468,25 @@ def test_build_does_not_depend_on_threads_processes_or_chunks(processes):
     assert one[2] == two[2]
 
 
+def test_kernel_widths_worked_out_by_chunk_equal_the_whole_array_s(tmp_path, monkeypatch):
+    """Our own rule: the build works out each chunk's cross-validation scores where the
+    chunk is solved and chooses the widths once every unit is in; the widths are those
+    of infer.kernel_spread over the whole array, bit for bit."""
+    from diag.core import infer
+
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path))
+    e = Engine(load_case(RELAY), K=K, seed=0)
+    monkeypatch.setattr(e, "_solve", lambda *a, **k: Engine._solve(
+        e, *a, **{**k, "chunk": 5, "threads": 2, "processes": False}))
+    e.build()
+    whole = infer.kernel_spread(e._U, e.ensemble.ref["ref_z"], infer.blunder_range(e._U)[1],
+                                float(e.inf["blunder"]), e._kernel_grid())
+    np.testing.assert_array_equal(e._spread, whole)
+    sp = infer.spread(e._U)
+    factors = np.unique(np.round(whole[sp > 0] / sp[sp > 0], 9))
+    assert factors.size > 1  # the widths were chosen, not all left at one factor
+
+
 def test_a_speaker_lead_reading_zero_is_inside_the_healthy_band():
     """The speaker side of an output capacitor sits at microvolts (the capacitor's
     leakage into 8 Ω): the meter shows 0.0 mV there, and the healthy band as the meter

@@ -372,10 +372,12 @@ class Engine:
         return a, b
 
     def _solve(self, specs, K: int, progress=None, cancelled=None, chunk: int | None = None,
-               threads: int | None = None, processes: bool | None = None, stream: int = 0):
+               threads: int | None = None, processes: bool | None = None, stream: int = 0,
+               scores: tuple | None = None):
         """Meter readings (H, K, M) of K units per spec, and the hidden readings
         (H, K, X) with their names; progress over chunks of hypotheses; `stream` as in
-        ensemble.hypothesis_rng. Chunks are
+        ensemble.hypothesis_rng. `scores` (noise, z, grid): the units' infer.kernel_scores
+        too, worked out beside each chunk's solve (H, C, S), as a fourth result. Chunks are
         solved by `threads` workers (default: the CPU count, at most 2; one for a small
         solve on threads, THREAD_MIN_UNITS), forked processes
         where that is safe, else threads (diag.core.workers; `processes` forces one or the
@@ -414,20 +416,26 @@ class Engine:
             cols.append(np.asarray(dc.i_supply, float).reshape(len(ok), -1))
             h = np.concatenate(cols, axis=1)
             h[~ok] = np.nan
-            return x.reshape(len(block), K, -1), h.reshape(len(block), K, -1)
+            x = x.reshape(len(block), K, -1)
+            if scores is None:
+                return x, h.reshape(len(block), K, -1), None
+            from diag.core import infer
+
+            noise, z, grid = scores
+            return x, h.reshape(len(block), K, -1), infer.kernel_scores(noise.u(x), z, grid)
 
         ends = np.cumsum([len(b) for b in blocks])
         got = workers.run(one, len(blocks), threads,
                           None if progress is None
                           else (lambda i: progress(min(1.0, ends[i] / len(specs)))),
                           cancelled, processes)
-        outs = [x for x, _ in got]
-        hid = [h for _, h in got]
         names = [f"dc {n}" for n in circ.nodes]
         if need_ac:
             names += [f"ac {n}" for n in circ.nodes]
         names += [f"current {s}" for s in circ.supplies]
-        return np.concatenate(outs), np.concatenate(hid), tuple(names)
+        out = (np.concatenate([g[0] for g in got]), np.concatenate([g[1] for g in got]),
+               tuple(names))
+        return out if scores is None else (*out, np.concatenate([g[2] for g in got]))
 
     def build(self, progress: Callable[[float], None] | None = None,
               cancelled: Callable[[], bool] | None = None) -> Ensemble:
@@ -460,14 +468,17 @@ class Engine:
         if not from_cache:
             from concurrent.futures import ThreadPoolExecutor
 
-            samples, hidden, names = self._solve(self.specs, self.K, progress, cancelled)
+            grid = self._kernel_grid()
+            samples, hidden, names, scores = self._solve(
+                self.specs, self.K, progress, cancelled, scores=(noise, ref["ref_z"], grid))
             U = noise.u(samples)
             q = float(self.inf["group_quantile"])
             with ThreadPoolExecutor(max_workers=1) as pool:  # two numpy jobs side by side
                 ap = pool.submit(infer.apart, U, q, float(self.inf["group_sigmas"]),
                                  float(self.inf["group_share"]))
                 band = np.moveaxis(infer.nan_quantile(hidden, [q, 1 - q], axis=1), 0, 1)
-                ks = self._kernel_spread(U, ref["ref_z"], infer.blunder_range(U)[1])
+                ks = infer.kernel_choice(scores, U, infer.blunder_range(U)[1],
+                                         float(self.inf["blunder"]), grid)
                 data = {"ids": ids, "samples": samples, "hidden_band": band,
                         "hidden_names": np.array(names), "apart": ap.result(),
                         "failed": np.sum(~np.all(np.isfinite(samples), axis=2), axis=1),
@@ -497,16 +508,17 @@ class Engine:
         self._spread = data["kernel_spread"]
         return self._ens
 
-    def _kernel_spread(self, U: np.ndarray, z: np.ndarray | None = None,
-                       W: np.ndarray | None = None) -> np.ndarray:
-        """infer.kernel_spread of hypotheses' units U (n, K, M), u units (n, M); z and
-        W default to the built ensemble's reference noise and blunder widths."""
+    def _kernel_spread(self, U: np.ndarray) -> np.ndarray:
+        """infer.kernel_spread of hypotheses' units U (n, K, M) beyond the built set (pairs),
+        u units (n, M), with the built ensemble's reference noise and blunder widths."""
         from diag.core import infer
 
-        z = self._ens.ref["ref_z"] if z is None else z
-        W = self._blunder[1] if W is None else W
-        return infer.kernel_spread(U, z, W, float(self.inf["blunder"]),
-                                   np.array(self.inf["kernel_factors"], dtype=float))
+        return infer.kernel_spread(U, self._ens.ref["ref_z"], self._blunder[1],
+                                   float(self.inf["blunder"]), self._kernel_grid())
+
+    def _kernel_grid(self) -> np.ndarray:
+        """The kernel factors cross-validation chooses among (rules `kernel_factors`)."""
+        return np.array(self.inf["kernel_factors"], dtype=float)
 
     def _extends_built(self, U: np.ndarray) -> bool:
         """U (H, K, M) is the built hypotheses' units followed by more rows (pairs)."""

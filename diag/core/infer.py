@@ -122,7 +122,10 @@ def bandwidth(U: np.ndarray, d: int, spread_: np.ndarray | None = None) -> np.nd
 
 def kernel_spread(U: np.ndarray, z: np.ndarray, W: np.ndarray, eps: float,
                   grid: np.ndarray, sims: int = 128, chunk: int = 4) -> np.ndarray:
-    """`spread(U)` times a factor per hypothesis (H, M), the factor chosen from `grid` by
+    """`spread(U)` times a factor per hypothesis (H, M): `kernel_choice` of
+    `kernel_scores` (the two halves, so that the second, which needs every hypothesis's
+    units for W, can follow the first worked out block by block where the units were
+    solved). The factor is chosen from `grid` by
     leave-one-out likelihood cross-validation (Habbema, Hermans and van den Broek 1974;
     Duin 1976): a reading simulated from each of a hypothesis's first `sims` units with
     unit noise (z (>= sims, M) standard normal) is scored by the Gaussian kernel of
@@ -135,15 +138,22 @@ def kernel_spread(U: np.ndarray, z: np.ndarray, W: np.ndarray, eps: float,
     widths and the density of a reading on it comes out far too low (the fault then
     loses to any narrow hypothesis nearby); cross-validation finds the width the units
     support."""
+    return kernel_choice(kernel_scores(U, z, grid, sims, chunk), U, W, eps, grid)
+
+
+def kernel_scores(U: np.ndarray, z: np.ndarray, grid: np.ndarray, sims: int = 128,
+                  chunk: int = 4) -> np.ndarray:
+    """The leave-one-out log-likelihoods (H, C, S) of `kernel_spread`, per hypothesis of U
+    (H, K, M), kernel factor of `grid` (C) and simulated reading (S = min(sims, K)), with
+    no blunder floor; -inf where nothing was scored."""
     H, K, M = U.shape
     sp = spread(U)
     grid = np.asarray(grid, dtype=float)
     ok = np.all(np.isfinite(U), axis=2)                               # (H, K)
     n = ok.sum(axis=1)
     bw = sp * np.maximum(n, 1)[:, None] ** (-1.0 / (M + 4))           # (H, M)
-    floor = float(np.sum(np.log(eps / W)))
     S = min(sims, K)
-    fac = np.ones(H)
+    out = np.full((H, len(grid), S), -np.inf)
     diag = np.arange(S)
     for a in range(0, H, chunk):
         b = min(H, a + chunk)
@@ -164,10 +174,23 @@ def kernel_spread(U: np.ndarray, z: np.ndarray, W: np.ndarray, eps: float,
         with np.errstate(divide="ignore"):
             loo = (np.log(np.sum(np.exp(llk - m), axis=3)) + m[..., 0]
                    - np.log(np.maximum(n[a:b] - 1, 1))[:, None, None])  # (h, C, S)
-        loo = np.maximum(loo, floor)
-        cv = np.sum(np.where(ok[a:b, None, :S], loo, 0.0), axis=2)    # (h, C)
-        fac[a:b] = np.where(n[a:b] >= 3, grid[np.argmax(cv, axis=1)], 1.0)
-    return sp * fac[:, None]
+        out[a:b] = np.where(ok[a:b, None, :S], loo, -np.inf)
+    return out
+
+
+def kernel_choice(scores: np.ndarray, U: np.ndarray, W: np.ndarray, eps: float,
+                  grid: np.ndarray) -> np.ndarray:
+    """`kernel_spread` from its `kernel_scores` (H, C, S) of the units U (H, K, M): each
+    score raised to the blunder floor sum_j log(eps / W_j), the factor of `grid` with
+    the highest sum kept (1 for a hypothesis with under three valid units)."""
+    floor = float(np.sum(np.log(eps / W)))
+    grid = np.asarray(grid, dtype=float)
+    n = np.all(np.isfinite(U), axis=2).sum(axis=1)
+    S = scores.shape[2]
+    ok = np.all(np.isfinite(U[:, :S]), axis=2)                        # (H, S)
+    cv = np.sum(np.where(ok[:, None, :], np.maximum(scores, floor), 0.0), axis=2)  # (H, C)
+    fac = np.where(n >= 3, grid[np.argmax(cv, axis=1)], 1.0)
+    return spread(U) * fac[:, None]
 
 
 def _kernel_values(U_S: np.ndarray, u_S: np.ndarray, s: np.ndarray, eps: float,
