@@ -487,6 +487,69 @@ def test_kernel_widths_worked_out_by_chunk_equal_the_whole_array_s(tmp_path, mon
     assert factors.size > 1  # the widths were chosen, not all left at one factor
 
 
+MIC = cases_dir() / "mic-preamp.yaml"  # 83 hypotheses: 83 x 64 units pass THREAD_MIN_UNITS
+
+
+def _in_thread(fn):
+    """fn() run on a second thread, as the interface builds (a process with another
+    thread running may not fork workers itself); its result, or its exception raised."""
+    import threading
+
+    out: dict = {}
+
+    def run():
+        try:
+            out["r"] = fn()
+        except BaseException as exc:  # noqa: BLE001 - handed back to the test
+            out["e"] = exc
+
+    th = threading.Thread(target=run)
+    th.start()
+    th.join()
+    if "e" in out:
+        raise out["e"]
+    return out["r"]
+
+
+@pytest.mark.skipif(not workers.forkable(), reason="worker processes are forked on Linux only")
+def test_a_cold_build_from_a_thread_runs_in_a_child_and_gives_the_same_ensemble(
+        tmp_path, monkeypatch):
+    """Our own rule: from a process running threads, a cold build of a large case runs in
+    a child process (diag.core.buildjob) that forks its own workers; the ensemble read
+    back from the cache is the one built here, and its progress reaches 1."""
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "a"))
+    seen: list[float] = []
+    e = Engine(load_case(MIC), K=64)
+    ens = _in_thread(lambda: e.build(progress=seen.append))
+    assert ens.from_cache  # read back from what the child saved
+    assert seen and seen[-1] == 1.0 and all(0 <= f <= 1 for f in seen)
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "b"))
+    h = Engine(load_case(MIC), K=64)
+    here = h.build(in_child=False)
+    assert not here.from_cache
+    np.testing.assert_array_equal(ens.samples, here.samples)
+    np.testing.assert_array_equal(e._spread, h._spread)
+
+
+@pytest.mark.skipif(not workers.forkable(), reason="worker processes are forked on Linux only")
+def test_a_child_build_that_fails_is_done_here_and_one_cancelled_stops(tmp_path, monkeypatch):
+    """Our own rule: should the child not run (here: no interpreter at sys.executable),
+    the build runs in this process; a build cancelled while the child runs raises the
+    same DiagError as one cancelled here."""
+    import sys
+
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path))
+    monkeypatch.setattr(sys, "executable", "/bin/false")
+    e = Engine(load_case(MIC), K=64)
+    ens = _in_thread(e.build)
+    assert not ens.from_cache and np.isfinite(ens.samples).any()
+    monkeypatch.undo()
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "c"))
+    e = Engine(load_case(MIC), K=64)
+    with pytest.raises(DiagError, match="cancelled"):
+        _in_thread(lambda: e.build(cancelled=lambda: True))
+
+
 def test_a_speaker_lead_reading_zero_is_inside_the_healthy_band():
     """The speaker side of an output capacitor sits at microvolts (the capacitor's
     leakage into 8 Ω): the meter shows 0.0 mV there, and the healthy band as the meter

@@ -438,10 +438,79 @@ class Engine:
         return out if scores is None else (*out, np.concatenate([g[2] for g in got]))
 
     def build(self, progress: Callable[[float], None] | None = None,
-              cancelled: Callable[[], bool] | None = None) -> Ensemble:
-        """Build (or load from the disk cache) the ensemble of every hypothesis."""
+              cancelled: Callable[[], bool] | None = None, in_child: bool = True
+              ) -> Ensemble:
+        """Build (or load from the disk cache) the ensemble of every hypothesis. Where
+        this process may not fork workers but a child could (`workers.fork_in_child`)
+        and the solve is not small (THREAD_MIN_UNITS), a cold build runs in a child
+        process (diag.core.buildjob) and is read from the cache; should the child fail,
+        it runs here (`in_child` False: always here)."""
         with self._lock:
+            if in_child and self._ens is None:
+                self._build_in_child(progress, cancelled)
             return self._build(progress, cancelled)
+
+    def _build_in_child(self, progress, cancelled) -> None:
+        """Run diag.core.buildjob for this case when `build`'s conditions hold and the
+        cache holds no ensemble yet; progress from its lines; DiagError when cancelled
+        (the child is stopped). Any other failure leaves the build to this process."""
+        import queue
+        import signal
+        import subprocess
+        import sys
+
+        import diag
+        from diag import __version__
+        from diag.core import ensemble, workers
+
+        path = ensemble.cache_file(self.case.hash, self.rules.hash, self.K, self.seed,
+                                   f"{CACHE_VERSION}-{__version__}")
+        if (not workers.fork_in_child() or (os.cpu_count() or 1) < 2 or path.exists()
+                or len(self.specs) * self.K <= THREAD_MIN_UNITS
+                or not os.path.isfile(self.case.path)):
+            return
+        cmd = [sys.executable, "-m", "diag.core.buildjob", os.path.abspath(self.case.path),
+               self.rules.folder, str(self.K), str(self.seed)]
+        # the child imports this very copy of diag, whatever else is installed
+        root = os.path.dirname(os.path.dirname(os.path.abspath(diag.__file__)))
+        env = dict(os.environ)
+        env["PYTHONPATH"] = os.pathsep.join(p for p in (root, env.get("PYTHONPATH")) if p)
+        try:
+            # a session of its own, so that stopping it stops the workers it forked too
+            proc = subprocess.Popen(cmd, stdin=subprocess.DEVNULL, stdout=subprocess.PIPE,
+                                    stderr=subprocess.DEVNULL, text=True, env=env,
+                                    start_new_session=True)
+        except OSError:
+            return
+        lines: queue.Queue = queue.Queue()
+
+        def read() -> None:
+            for line in proc.stdout:
+                lines.put(line)
+            lines.put(None)
+
+        threading.Thread(target=read, daemon=True).start()
+        finished = False
+        try:
+            while True:
+                if cancelled is not None and cancelled():
+                    raise DiagError("ensemble build cancelled")
+                try:
+                    line = lines.get(timeout=0.05)
+                except queue.Empty:
+                    continue
+                if line is None:  # the child closed its output: it has ended
+                    finished = True
+                    break
+                word, _, value = line.partition(" ")
+                if word == "progress" and progress is not None:
+                    with contextlib.suppress(ValueError):
+                        progress(min(float(value), 1.0))
+        finally:
+            if not finished:
+                with contextlib.suppress(OSError):
+                    os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait()
 
     def _build(self, progress, cancelled) -> Ensemble:
         from diag import __version__

@@ -37,6 +37,13 @@ def forkable() -> bool:
             and not multiprocessing.current_process().daemon)
 
 
+def fork_in_child() -> bool:
+    """Whether a fresh process started from here could fork worker processes where this
+    one may not (on Linux, from a process that runs other threads)."""
+    return (sys.platform.startswith("linux") and threading.active_count() > 1
+            and not multiprocessing.current_process().daemon)
+
+
 def run(job: Callable[[int], Any], n: int, workers: int,
         progress: Callable[[int], None] | None = None,
         cancelled: Callable[[], bool] | None = None, processes: bool | None = None
