@@ -139,6 +139,28 @@ def test_a_decimal_comma_in_a_file_is_named(case):
 
 
 
+def test_a_semicolon_or_tab_file_with_decimal_commas_reads_as_the_comma_file(case):
+    """A spreadsheet set to a decimal-comma language saves its CSV with semicolons
+    (common practice, no source); such a file, or one split by tabs, reads as the same
+    file with commas and decimal points would, bad rows still named by row."""
+    plain = readings.parse_text(
+        "unit,point,kind,value\nA1,TP7,dc,6.4\nA1,TP3,ac,70.5 mV\nB2,TP1,,27.5m\n", case)
+    semi = readings.parse_text(
+        "\ufeffunit;point;kind;value\r\nA1;TP7;dc;6,4\r\nA1;TP3;ac;70,5 mV\r\n"
+        "B2;TP1;;27,5m\r\nB2;TP2;x;1\r\n", case)
+    tabs = readings.parse_text(
+        "# exported\nunit\tpoint\tkind\tvalue\nA1\tTP7\tdc\t6,4\nA1\tTP3\tac\t70.5 mV\n"
+        "B2\tTP1\t\t27,5m\n", case)
+    for rf in (semi, tabs):
+        assert rf.batch and rf.units.keys() == plain.units.keys()
+        for u in plain.units:
+            assert [(r.point, r.kind, r.value) for r in rf.units[u]] == \
+                [(r.point, r.kind, r.value) for r in plain.units[u]]
+    assert [e.line for e in semi.errors] == [5] and not tabs.errors
+    # a comma-separated file keeps refusing a decimal comma (it splits the row)
+    assert readings.parse_text("point,value\nTP7,6,4\n", case).errors
+
+
 def test_a_point_typed_in_another_letter_case_is_the_case_s_point(case):
     # "tp3" names TP3: the reading is kept under the case's own spelling
     rf = readings.parse_text("point,value\ntp7,6.4\n Tp3 ,0.5\n", case)

@@ -5,6 +5,11 @@ Values are volts (DC, or AC rms), amperes at supply points, with the prefixes an
 case files (`312m`, `0.312 V`, `1.2 mA`). Bad rows (unknown point or kind, unparsable value,
 a value the circuit cannot produce) are reported with their row number (header = row 1) and
 left out; the other rows are kept. `check_value` validates one typed value the same way.
+
+A spreadsheet set to a language that writes a decimal comma saves its CSV with
+semicolons between the fields (common practice, no source); a file whose first line
+splits on semicolons (or tabs) and holds no comma is read that way, and a value there may
+carry a decimal comma (`5,47`).
 """
 
 from __future__ import annotations
@@ -24,6 +29,22 @@ from diag.core.rules import load_rules
 from diag.core.values import format_value, parse_value
 
 HEADER_WORDS = ("unit", "point", "kind", "value")
+_DECIMAL_COMMA = re.compile(r"^\s*[+-]?\d*,\d+(?:[eE][+-]?\d+)?\s*[^\d,.]*$")
+
+
+def _delimiter(text: str) -> str:
+    """The field separator: `;` or a tab where the first line that is not blank or a
+    comment splits on it and holds no comma (module docstring), else `,`."""
+    for line in text.splitlines():
+        s = line.strip()
+        if not s or s.startswith("#"):
+            continue
+        if "," not in s:
+            for d in (";", "\t"):
+                if d in s:
+                    return d
+        return ","
+    return ","
 
 
 @dataclass(frozen=True)
@@ -168,7 +189,9 @@ def check_value(case: Case, point: str, kind: str, text, lim=None, *, file=None,
 def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> ReadingsFile:
     """Parse readings CSV text (see module docstring)."""
     lim = limits(case, rules)
-    rows = list(csv.reader(io.StringIO(text.lstrip("\ufeff"))))
+    text = text.lstrip("\ufeff")
+    delim = _delimiter(text)
+    rows = list(csv.reader(io.StringIO(text), delimiter=delim))
     errors: list[DiagError] = []
     units: dict[str, dict[tuple[str, str], Reading]] = {}
     seen_row: dict[tuple[str, str, str], int] = {}
@@ -190,7 +213,8 @@ def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> R
             else:
                 raise DiagError("no header row", file=file, line=i,
                                 hint="start the file with point,value (or point,kind,value; "
-                                "unit,point,value for a batch)")
+                                "unit,point,value for a batch), fields separated by commas "
+                                "(or semicolons throughout)")
         if batch:
             col = cols.index("unit")
             if col < len(cells) and cells[col] and (col == 0 or len(cells) == len(cols)):
@@ -205,6 +229,8 @@ def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> R
                       f"{cells[-2]}.{cells[-1]}") if comma else None))
             continue
         rec = dict(zip(cols, cells, strict=True))
+        if delim != "," and _DECIMAL_COMMA.match(rec["value"]):
+            rec["value"] = rec["value"].replace(",", ".", 1)
         unit = rec.get("unit", "")
         if batch and not unit:
             errors.append(DiagError("no unit name", file=file, line=i, where=f"row {i}",
