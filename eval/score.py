@@ -223,11 +223,17 @@ def score_case(folder: Path, case_path: str, info: dict, guided_per_fault: int =
 
 
 def score_dir(folder: Path, guided_per_fault: int = 1, draws: int = 128, log=None,
-              jobs: int | None = None, with_hindsight: bool = False) -> list[UnitScore]:
-    """Score every case listed in `folder`/manifest.json, one process per case (at most
-    `jobs` at once, default the CPU count)."""
+              jobs: int | None = None, with_hindsight: bool = False,
+              cases: list[str] | None = None) -> list[UnitScore]:
+    """Score every case listed in `folder`/manifest.json (or those whose file name
+    without .yaml is in `cases`), one process per case (at most `jobs` at once, default
+    the CPU count)."""
     manifest = json.loads((folder / "manifest.json").read_text(encoding="utf-8"))
-    items = list(manifest["cases"].items())
+    items = [(cp, info) for cp, info in manifest["cases"].items()
+             if not cases or Path(cp).stem in cases]
+    if not items:
+        raise SystemExit(f"no case of {folder} is named {', '.join(cases or [])}: the "
+                         f"folder holds {', '.join(Path(c).stem for c in manifest['cases'])}")
     jobs = min(jobs or os.cpu_count() or 1, len(items))
     out: list[UnitScore] = []
     if jobs <= 1:
@@ -510,9 +516,13 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--failures", type=int, default=40, help="misses to list")
     ap.add_argument("--hindsight", action="store_true",
                     help="also find each guided run's fewest readings chosen in hindsight")
+    ap.add_argument("--case", action="append", metavar="NAME",
+                    help="score only this case of the folder (its file name without "
+                         ".yaml); may be given more than once")
     a = ap.parse_args(argv)
     scores = score_dir(Path(a.folder), guided_per_fault=a.guided_per_fault, draws=a.draws,
-                       log=lambda m: print(m, file=sys.stderr), with_hindsight=a.hindsight)
+                       log=lambda m: print(m, file=sys.stderr), with_hindsight=a.hindsight,
+                       cases=a.case)
     print(markdown(scores))
     print(failures(scores, a.failures))
     return 0

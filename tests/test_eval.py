@@ -13,6 +13,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from diag.core.case import load_case  # noqa: E402
+from diag.core.paths import cases_dir  # noqa: E402
 from diag.core.rules import load_rules  # noqa: E402
 from eval import generate, inject, meterlike, score  # noqa: E402
 from eval.unit import bench  # noqa: E402
@@ -371,6 +372,35 @@ def test_summary_splits_group_sizes_and_guided_runs():
     assert "Hindsight bound" in text and "give 0.68 of case order (0.60" in text
     assert "in 1 the truth's group never reaches" in text and "would be 2.00" in text
     assert "as `diag faults` lists it, 2.40 (1.75 on faulty units)" in text
+
+
+def test_the_scorer_scores_only_the_cases_named(tmp_path):
+    """Our own rule: `python -m eval.score DIR --case NAME` scores that case of the folder
+    and no other; a name the folder does not hold stops with the names it does."""
+    import json
+
+    from diag.core.engine import Engine
+
+    relay = cases_dir() / "relay-switch.yaml"
+    eng = Engine(load_case(relay), K=16)
+    rng = np.random.default_rng(4)
+    with open(tmp_path / "r-batch.csv", "w", encoding="utf-8") as b, \
+            open(tmp_path / "r-truth.csv", "w", encoding="utf-8") as t:
+        b.write("unit,point,kind,value\n")
+        t.write("unit,fault,set,detail\n")
+        for i, f in enumerate(("healthy", "R1:open")):
+            for r in eng.simulate(f, rng):
+                b.write(f"U{i},{r.point},{r.kind},{r.value!r}\n")
+            t.write(f"U{i},{f},{'healthy' if f == 'healthy' else 'fault'},drawn\n")
+    other = {"batch": "missing-batch.csv", "truth": "missing-truth.csv"}
+    (tmp_path / "manifest.json").write_text(json.dumps({"cases": {
+        str(relay): {"batch": "r-batch.csv", "truth": "r-truth.csv"},
+        str(cases_dir() / "mic-preamp.yaml"): other}}))
+    got = score.score_dir(tmp_path, guided_per_fault=0, draws=16, jobs=1,
+                          cases=["relay-switch"])
+    assert sorted(s.truth for s in got) == ["R1:open", "healthy"]
+    with pytest.raises(SystemExit, match="holds relay-switch, mic-preamp"):
+        score.score_dir(tmp_path, cases=["line-driver"])
 
 
 def test_listed_group_size_is_the_group_diag_faults_prints(capsys):
