@@ -157,6 +157,9 @@ def test_a_semicolon_or_tab_file_with_decimal_commas_reads_as_the_comma_file(cas
             assert [(r.point, r.kind, r.value) for r in rf.units[u]] == \
                 [(r.point, r.kind, r.value) for r in plain.units[u]]
     assert [e.line for e in semi.errors] == [5] and not tabs.errors
+    bare = readings.parse_text("TP7;dc;6,4\nTP3;ac;70,5 mV\n", case)  # no header row
+    assert [(r.point, r.kind, r.value) for r in bare.single()] == \
+        [("TP7", "dc", 6.4), ("TP3", "ac", pytest.approx(0.0705))] and not bare.errors
     # a comma-separated file keeps refusing a decimal comma (it splits the row)
     assert readings.parse_text("point,value\nTP7,6,4\n", case).errors
 

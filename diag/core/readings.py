@@ -34,12 +34,13 @@ _DECIMAL_COMMA = re.compile(r"^\s*[+-]?\d*,\d+(?:[eE][+-]?\d+)?\s*[^\d,.]*$")
 
 def _delimiter(text: str) -> str:
     """The field separator: `;` or a tab where the first line that is not blank or a
-    comment splits on it and holds no comma (module docstring), else `,`."""
+    comment splits on it and holds no comma but between digits (a decimal comma, in a
+    file with no header row; module docstring), else `,`."""
     for line in text.splitlines():
         s = line.strip()
         if not s or s.startswith("#"):
             continue
-        if "," not in s:
+        if "," not in re.sub(r"(?<=\d),(?=\d)", "", s):
             for d in (";", "\t"):
                 if d in s:
                     return d
