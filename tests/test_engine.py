@@ -544,10 +544,22 @@ def test_a_child_build_that_fails_is_done_here_and_one_cancelled_stops(tmp_path,
     ens = _in_thread(e.build)
     assert not ens.from_cache and np.isfinite(ens.samples).any()
     monkeypatch.undo()
+    import subprocess
+
+    started = []
+    popen = subprocess.Popen
+
+    def spy(*a, **k):
+        started.append(popen(*a, **k))
+        return started[-1]
+
+    monkeypatch.setattr(subprocess, "Popen", spy)
     monkeypatch.setenv("DIAG_HOME", str(tmp_path / "c"))
     e = Engine(load_case(MIC), K=64)
     with pytest.raises(DiagError, match="cancelled"):
         _in_thread(lambda: e.build(cancelled=lambda: True))
+    assert len(started) == 1 and started[0].returncode is not None  # stopped and reaped
+    assert started[0].returncode < 0  # by a signal, not run to its end
 
 
 def test_a_speaker_lead_reading_zero_is_inside_the_healthy_band():
