@@ -31,17 +31,20 @@ def _call(i: int) -> Any:
     return _JOB(i)
 
 
+def _linux_parent() -> bool:
+    """On Linux and not inside a daemonic worker (module docstring)."""
+    return sys.platform.startswith("linux") and not multiprocessing.current_process().daemon
+
+
 def forkable() -> bool:
     """Whether worker processes may be forked from here (module docstring)."""
-    return (sys.platform.startswith("linux") and threading.active_count() == 1
-            and not multiprocessing.current_process().daemon)
+    return _linux_parent() and threading.active_count() == 1
 
 
 def fork_in_child() -> bool:
     """Whether a fresh process started from here could fork worker processes where this
     one may not (on Linux, from a process that runs other threads)."""
-    return (sys.platform.startswith("linux") and threading.active_count() > 1
-            and not multiprocessing.current_process().daemon)
+    return _linux_parent() and threading.active_count() > 1
 
 
 def run(job: Callable[[int], Any], n: int, workers: int,
