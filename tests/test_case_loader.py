@@ -244,8 +244,14 @@ meter: bench-5.5
 
 @pytest.mark.parametrize("path", sorted(cases_dir().glob("*.yaml")), ids=lambda p: p.name)
 def test_bundled_cases_load(path):
+    import yaml
+
     case = load_case(path)
     assert case.parts and case.points
+    # our own rule (DEVELOPERS.md, How to add a case): a bundled case says where every
+    # probe goes, rather than leaving the node names to stand in
+    raw = yaml.safe_load(path.read_text(encoding="utf-8"))
+    assert all("where" in body for body in raw["points"].values())
     for p in case.points:
         assert p.supply or p.node in case.nodes or p.node == case.ground
 
