@@ -467,7 +467,7 @@ class Engine:
                                    f"{CACHE_VERSION}-{__version__}")
         if (not workers.fork_in_child() or (os.cpu_count() or 1) < 2 or path.exists()
                 or len(self.specs) * self.K <= THREAD_MIN_UNITS
-                or not os.path.isfile(self.case.path)):
+                or not os.path.isfile(self.case.path) or not sys.executable):
             return
         cmd = [sys.executable, "-m", "diag.core.buildjob", os.path.abspath(self.case.path),
                self.rules.folder, str(self.K), str(self.seed)]
