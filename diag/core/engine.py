@@ -460,11 +460,9 @@ class Engine:
         import sys
 
         import diag
-        from diag import __version__
-        from diag.core import ensemble, workers
+        from diag.core import workers
 
-        path = ensemble.cache_file(self.case.hash, self.rules.hash, self.K, self.seed,
-                                   f"{CACHE_VERSION}-{__version__}")
+        path = self._ens_path()
         if (not workers.fork_in_child() or (os.cpu_count() or 1) < 2 or path.exists()
                 or len(self.specs) * self.K <= THREAD_MIN_UNITS
                 or not os.path.isfile(self.case.path) or not sys.executable):
@@ -513,15 +511,13 @@ class Engine:
             proc.wait()
 
     def _build(self, progress, cancelled) -> Ensemble:
-        from diag import __version__
         from diag.core import ensemble, infer
 
         if self._ens is not None:
             if progress:
                 progress(1.0)
             return self._ens
-        path = ensemble.cache_file(self.case.hash, self.rules.hash, self.K, self.seed,
-                                   f"{CACHE_VERSION}-{__version__}")
+        path = self._ens_path()
         ids = np.array([s.id for s in self.specs])
         data = ensemble.load_cache(path)
         from_cache = (data is not None and np.array_equal(data.get("ids"), ids)
@@ -634,12 +630,17 @@ class Engine:
         s = self._spec(fault_id)
         return Hypothesis(s.id, 0.0, s.text, s.confirm, s.parts, s.origin)
 
-    def _store_file(self, name: str):
+    def _ens_path(self):
+        """The ensemble's cache file: keyed by the case and rules hashes, K, the seed and
+        the code version (ensemble.cache_file)."""
         from diag import __version__
         from diag.core import ensemble
 
-        base = ensemble.cache_file(self.case.hash, self.rules.hash, self.K, self.seed,
+        return ensemble.cache_file(self.case.hash, self.rules.hash, self.K, self.seed,
                                    f"{CACHE_VERSION}-{__version__}")
+
+    def _store_file(self, name: str):
+        base = self._ens_path()
         return base.with_name(base.stem + f"{name}.npz")
 
     def _samples_of(self, specs) -> np.ndarray:
