@@ -364,6 +364,14 @@ def test_error_names_line_and_place(tmp_path, rules, old, new, words, line, wher
     assert e.hint, "every error says what to do"
 
 
+def test_a_point_cost_error_says_what_cost_means(tmp_path, rules):
+    """A point's cost is the effort of a reading, not a part's value (SPEC section 1):
+    the hint says so and names no part (our own rule)."""
+    exc = errors_of(tmp_path, mutate("cost: 2", "cost: 0"), rules)
+    e = next(e for e in exc.errors if "cost is 0" in e.message)
+    assert "effort" in e.hint and "part" not in e.hint
+
+
 def test_unknown_terminal_lists_valid_terminals(tmp_path, rules):
     exc = errors_of(tmp_path, mutate("c: col, b: base", "collector: col, b: base"), rules)
     assert "terminals c, b, e" in str(exc)

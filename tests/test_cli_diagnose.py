@@ -79,7 +79,7 @@ def test_text_says_whether_a_reading_can_still_split_close_suspects():
     assert "the next reading below may tell them apart" in left
     assert "  R1:open: measure R1\n  R2:short: measure R2" in left
     none = format_text(case, Diagnosis(6, True, sus, (), extra={"confirm": confirm}), 10)
-    assert "No offered reading tells these apart; check each at the bench:" in none
+    assert "No reading left to take tells these apart; check each at the bench:" in none
     assert "nothing left to learn" in none
 
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import shutil
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -593,6 +594,13 @@ def test_bench_checks_name_every_suspect_close_to_the_leader():
         ("C2:leaky", "lift C2")]
     assert diag([0.97, 0.02, 0.005, 0.003, 0.002]).bench_checks() == [("R4:low", "measure R4")]
     assert Diagnosis(0, True, (), ()).bench_checks() == []
+    # before any reading, while one can be taken: the priors alone, so read first
+    # (our own rule)
+    from diag.core.engine import NextReading
+    first = (NextReading("TP1", "dc", 1.0, "why"),)
+    before = diag([0.48, 0.40, 0.06, 0.05, 0.01])
+    assert replace(before, readings_used=0, next=first).bench_checks() == []
+    assert replace(before, readings_used=0).bench_checks() != []
 
 
 def test_healthy_alike_only_when_a_good_unit_is_in_the_leading_group():
@@ -831,3 +839,62 @@ def test_without_refinement_the_ranking_is_the_ensemble_s_own(eng, monkeypatch):
     assert eng.further_pending() == 0
     monkeypatch.setattr(eng, "_on_demand", lambda *a, **k: pytest.fail("solved units"))
     eng.build_further(chunk=4)
+
+
+FUSED_FOLLOWER = """\
+case: 1
+title: Emitter follower on a fused rail
+ground: gnd
+parts:
+  V1: {kind: supply, plus: vin, minus: gnd, volts: 12, tol: 2%, r_source: 0.1}
+  F1: {kind: fuse, nodes: [vin, vcc], amps: 1}
+  R1: {kind: resistor, nodes: [vcc, base], ohms: 10k}
+  R2: {kind: resistor, nodes: [base, gnd], ohms: 10k}
+  Q1: {kind: npn, c: vcc, b: base, e: emit, model: npn-small}
+  R3: {kind: resistor, nodes: [emit, gnd], ohms: 1k}
+points:
+  TP1: {node: vcc}
+  TP2: {node: base}
+  TP3: {node: emit}
+  TP4: {node: base, minus: emit}
+"""
+
+
+def test_a_collector_on_a_fused_rail_is_not_read_as_carrying_no_current(tmp_path):
+    """An emitter follower's collector wired to the rail through the supply lead's fuse
+    sits at the rail by design: no "no collector current" note (a fuse or link is a
+    wire at DC: common practice, no source). Its base-emitter reading of -0.4 V is a
+    reverse-biased junction, not one with too little forward voltage (our own rule)."""
+    from diag.core import notes
+    from diag.core.rules import load_rules
+
+    rules = load_rules()
+    path = tmp_path / "fused.yaml"
+    path.write_text(FUSED_FOLLOWER)
+    case = load_case(path, rules)
+    got = " ".join(notes.bench_notes(case, rules, [
+        Reading("TP1", "dc", 11.98), Reading("TP2", "dc", 5.95), Reading("TP3", "dc", 5.3)]))
+    assert "conducting silicon junction" in got and "sits at" not in got
+    got = " ".join(notes.bench_notes(case, rules, [Reading("TP4", "dc", -0.4)]))
+    assert "reverse-biased" in got and "too little" not in got
+    got = " ".join(notes.bench_notes(case, rules, [Reading("TP4", "dc", 0.1)]))
+    assert "too little for a silicon junction to conduct" in got
+
+
+def test_a_reading_with_its_sign_turned_is_named_as_probes_reversed(tmp_path, monkeypatch):
+    """A reading across two nodes typed with the probes the wrong way round (its
+    negative fits every other reading) is named, with the probe order to take it again
+    (our own rule). The unit is a good one drawn by the engine itself."""
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
+    path = tmp_path / "fused.yaml"
+    path.write_text(FUSED_FOLLOWER)
+    eng = Engine(load_case(path), K=64)
+    unit = {(r.point, r.kind): r for r in eng.simulate("healthy", np.random.default_rng(4))}
+    good = unit[("TP4", "dc")].value
+    assert good > 0.5
+    turned = [r if r.point != "TP4" else Reading("TP4", "dc", -good) for r in unit.values()]
+    d = eng.diagnose(turned)
+    assert not d.fits
+    assert "probes the wrong way round? Take TP4 again, red probe on base, black on emit" \
+        in d.fit_text
+    assert "probes" not in eng.diagnose(list(unit.values())).fit_text

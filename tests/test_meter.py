@@ -100,16 +100,47 @@ def test_display_is_within_bound_and_on_the_resolution_grid():
     assert np.unique(shown).size > 10
 
 
-def test_sigma_matches_the_spread_of_displayed_values():
-    # Uniform within ±b has standard deviation b/√3; rounding adds q/√12 in quadrature
-    # (variance of a uniform distribution, (b - a)² / 12: handbook).
+def test_sigma_bounds_the_spread_of_displayed_values():
+    # The percentage part (uniform within ±p) and the counts part (uniform within ±c)
+    # are drawn apart, each with standard deviation (bound)/√3; rounding adds q/√12 in
+    # quadrature (variance of a uniform distribution, (b - a)² / 12: handbook). The
+    # inference's sigma takes the whole bound b = p + c as one uniform, b/√3: at least
+    # that spread and at most √2 times it, since (p + c)² <= 2 (p² + c²).
     rng = np.random.default_rng(2)
     for value in (0.7312, 4.87, 11.6):
         true = np.full(40000, value)
         shown = mt.display(true, "dc", H35, "V", rng)
+        q = float(mt.resolution(value, H35, "V"))
+        p = H35["dc_pct"] / 100 * value
+        c = H35["dc_counts"] * q
+        exact = np.sqrt((p**2 + c**2) / 3 + q**2 / 12)
         s = float(mt.sigma(value, "dc", H35, "V"))
-        assert_allclose(np.std(shown), s, rtol=0.05)
+        assert_allclose(np.std(shown), exact, rtol=0.05)
+        assert exact <= s <= np.sqrt(2) * exact
         assert_allclose(np.mean(shown), value, atol=3 * s / np.sqrt(true.size) + 1e-4)
+
+
+def test_one_unit_is_read_by_one_meter():
+    # The same meter takes every reading of a unit: its calibration error (the
+    # percentage part) is one draw per function (DC volts, AC volts, amperes) for the
+    # unit, only the counts part differs per reading, so two points on one node read
+    # within 2 x 2 counts and a rounding step of each other (SPEC section 1 profile,
+    # figures from memory); over many units the gain spreads over the whole ±pct.
+    from diag.core.case import Observable
+
+    obs = [Observable("TP1", "dc", 1.0, "V"), Observable("TP2", "dc", 1.0, "V"),
+           Observable("TP3", "ac", 1.0, "V"), Observable("TP4", "dc", 1.0, "A")]
+    true = np.array([9.8, 9.8, 0.3, 0.02])
+    rng = np.random.default_rng(8)
+    shown = np.array([mt.display_unit(true, obs, H35, rng) for _ in range(4000)])
+    q = float(mt.resolution(9.8, H35, "V"))
+    assert np.all(np.abs(shown[:, 0] - shown[:, 1]) <= 2 * H35["dc_counts"] * q + q + 1e-9)
+    for j, o in enumerate(obs):
+        bound = float(mt.accuracy(true[j], o.kind, H35, o.unit))
+        res = float(mt.resolution(true[j], H35, o.unit))
+        assert np.all(np.abs(shown[:, j] - true[j]) <= bound + res / 2 + 1e-12)
+    gain = (shown[:, 0] - true[0]) / (H35["dc_pct"] / 100 * true[0])
+    assert gain.min() < -0.8 and gain.max() > 0.8
 
 
 def test_every_profile_has_the_fields_the_meter_model_reads():

@@ -80,7 +80,7 @@ def format_text(case, d, top: int, rejected=()) -> str:
     elif checks:
         lines += ["", "Close so far; the next reading below may tell them apart, or check "
                   "each at the bench:" if d.next else
-                  "No offered reading tells these apart; check each at the bench:"]
+                  "No reading left to take tells these apart; check each at the bench:"]
         lines += [f"  {f}: {c}" for f, c in checks]
     lines += ["", "Next readings (by expected information per unit of effort):"]
     if not d.next:

@@ -287,8 +287,10 @@ class _Loader:
     # -- values --------------------------------------------------------------------------
 
     def value(self, raw: Any, unit: str | None, line: int, where: str, name: str,
-              low: float | None = None, low_ok: bool = False) -> float | None:
-        """Parse one value field; record an error and return None when it is bad."""
+              low: float | None = None, low_ok: bool = False,
+              fix: str | None = None) -> float | None:
+        """Parse one value field; record an error and return None when it is bad. `fix`
+        is the hint for a value below `low` (default: give the fitted part's value)."""
         try:
             x = parse_value(raw, unit)
         except ValueError as exc:
@@ -300,7 +302,8 @@ class _Loader:
             bound = "zero or more" if low_ok else "more than zero"
             shown = format_value(x, unit) if unit else f"{x:g}"
             self.err(f"{name} is {shown}: it must be {bound}", line, where,
-                     hint=f"give the fitted part's {name}, e.g. {_EXAMPLES.get(unit, '1')}")
+                     hint=fix or f"give the fitted part's {name}, e.g. "
+                     f"{_EXAMPLES.get(unit, '1')}")
             return None
         return x
 
@@ -616,7 +619,10 @@ class _Loader:
         ok = ok and reads is not None
         cost = 1.0
         if "cost" in body:
-            c = self.value(body["cost"], None, _line(body, "cost", line), pid, "cost", 0.0)
+            c = self.value(body["cost"], None, _line(body, "cost", line), pid, "cost", 0.0,
+                           fix="cost is the effort of taking the reading, relative to an "
+                           "easy one at 1: e.g. cost: 2 for a point under a board or "
+                           "one that needs the signal generator")
             ok = ok and c is not None
             cost = c if c is not None else cost
         if not ok:

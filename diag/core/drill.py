@@ -133,13 +133,12 @@ def draw_unit(engine: Engine, fault_id: str, rng: np.random.Generator) -> Unit:
 
 def show(engine: Engine, truth: np.ndarray, rng: np.random.Generator) -> tuple[Reading, ...]:
     """What the case's meter shows for the model readings `truth` (M,): meter error drawn
-    within its stated accuracy, rounded to the display resolution."""
+    within its stated accuracy (`meter.display_unit`), rounded to the display resolution."""
     from diag.core import meter
 
-    m = engine.case.meter
-    return tuple(Reading(o.point, o.kind, float(meter.display(np.array([truth[j]]), o.kind, m,
-                                                              o.unit, rng)[0]))
-                 for j, o in enumerate(engine.case.observables))
+    obs = engine.case.observables
+    shown = meter.display_unit(truth, obs, engine.case.meter, rng)
+    return tuple(Reading(o.point, o.kind, float(v)) for o, v in zip(obs, shown, strict=True))
 
 
 def close_names(text: str, ids: Sequence[str], n: int = 4) -> list[str]:

@@ -153,9 +153,11 @@ class Diagnosis:
     def bench_checks(self, close: float = 0.1, most: int = 3) -> list[tuple[str, str]]:
         """(fault, how to confirm it at the bench) for the leader and each suspect whose
         p is within a factor 1/`close` of the leader's (at most `most`): when the readings
-        leave two suspects close, the powered-off check of each tells them apart."""
+        leave two suspects close, the powered-off check of each tells them apart. None
+        before any reading while one can be taken: the ranking is then the priors alone,
+        and a reading costs less than lifting parts."""
         confirm = self.extra.get("confirm") or {}
-        if not self.suspects:
+        if not self.suspects or (not self.readings_used and self.next):
             return []
         floor = close * self.suspects[0].p
         return [(s.fault, confirm[s.fault]) for s in self.suspects
@@ -825,12 +827,9 @@ class Engine:
             why = next((w for w in dc.why if w), "the circuit did not solve")
             raise DiagError(f"{fault_id}: {why}", file=self.case.path,
                             hint="try another --seed")
-        out = []
-        for j, o in enumerate(self.observables):
-            v = float(meter.display(np.array([x[j]]), o.kind, self.case.meter, o.unit,
-                                    rng)[0])
-            out.append(Reading(o.point, o.kind, v))
-        return tuple(out)
+        shown = meter.display_unit(x, self.observables, self.case.meter, rng)
+        return tuple(Reading(o.point, o.kind, float(v))
+                     for o, v in zip(self.observables, shown, strict=True))
 
     # -- readings ----------------------------------------------------------------------------
 
@@ -1086,28 +1085,43 @@ class Engine:
         return infer.groups_from(ap, order)
 
     def _unit_slips(self, U, specs, idx, vals, hp: float, alpha: float) -> list[str]:
-        """When no hypothesis fits: each taken reading that, a thousand times larger or
-        smaller (a prefix slip, mV typed for V or back), would let the readings fit,
-        with the sentence that says so. Only one reading is changed at a time."""
+        """When no hypothesis fits: each taken reading that, with its sign turned (the
+        probes the wrong way round), or a thousand times larger or smaller (a prefix
+        slip, mV typed for V or back), would let the readings fit, with the sentence
+        that says so. Only one reading is changed at a time."""
         from diag.core.values import format_value
 
         out = []
         noise = self._noise_obj
         for i, j in enumerate(idx):
-            for f in (1e3, 1e-3):
+            o = self.observables[j]
+            for f in (-1.0, 1e3, 1e-3):
+                if f < 0 and (o.kind != "dc" or vals[i] == 0):
+                    continue
                 v = np.array(vals, dtype=float)
                 v[i] *= f
                 u2 = noise.u(v, idx)
                 sc, _ = self._score(U, specs, idx, u2, hp)
                 p = self._fit(U, sc, idx, u2, specs=specs)
                 if p >= alpha:
-                    o = self.observables[j]
-                    out.append(f"{o.point} {o.kind} reads {format_value(vals[i], o.unit)}, "
-                               f"but {format_value(v[i], o.unit)} would fit the others "
-                               f"(goodness of fit p = {p:.2f}): a slip of the unit? Check "
-                               f"the meter's display and take {o.point} again.")
+                    shown = (f"{o.point} {o.kind} reads {format_value(vals[i], o.unit)}, "
+                             f"but {format_value(v[i], o.unit)} would fit the others "
+                             f"(goodness of fit p = {p:.2f})")
+                    out.append(shown + (f": {self._probes_reversed(o.point)}" if f < 0
+                                        else ": a slip of the unit? Check the meter's "
+                                        f"display and take {o.point} again."))
                     break
         return out
+
+    def _probes_reversed(self, pid: str) -> str:
+        """What to say of a reading at point `pid` whose sign looks turned."""
+        pt = self.case.point(pid)
+        if pt.supply:
+            return (f"the meter's leads the wrong way round in the supply lead? Take {pid} "
+                    "again with the current flowing into the red lead.")
+        minus = pt.minus or self.case.ground
+        return (f"the probes the wrong way round? Take {pid} again, red probe on {pt.node}, "
+                f"black on {minus}.")
 
     def _odd_readings(self, U, specs, best: int, idx, u_read) -> list[str]:
         """Taken readings the leading hypothesis explains only as blunders ("TP5 dc")."""

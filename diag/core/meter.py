@@ -123,9 +123,10 @@ def accuracy(values: Any, kind: str, meter: Mapping[str, Any], unit: str) -> np.
 
 def sigma(values: Any, kind: str, meter: Mapping[str, Any], unit: str) -> np.ndarray:
     """Standard deviation (volts or amperes) of the displayed value about the true reading,
-    for the inference: `display` draws the error uniformly within ±bound (standard
-    deviation bound/√3) and then rounds to the resolution q (uniform ±q/2, standard
-    deviation q/√12), so sigma = sqrt(bound²/3 + q²/12). Over range: +inf."""
+    for the inference: `display` draws the error within ±bound (its percentage and
+    counts parts each uniformly, so a standard deviation of at most bound/√3, taken as
+    that) and then rounds to the resolution q (uniform ±q/2, standard deviation q/√12),
+    so sigma = sqrt(bound²/3 + q²/12). Over range: +inf."""
     v = np.asarray(values, dtype=float)
     bound = accuracy(v, kind, meter, unit)
     q = resolution(v, meter, unit)
@@ -133,26 +134,49 @@ def sigma(values: Any, kind: str, meter: Mapping[str, Any], unit: str) -> np.nda
 
 
 def display(values: Any, kind: str, meter: Mapping[str, Any], unit: str,
-            rng: np.random.Generator) -> np.ndarray:
+            rng: np.random.Generator, gain: float | None = None) -> np.ndarray:
     """What the meter shows for true readings `values` (volts or amperes).
 
-    The meter error is drawn uniformly within ±accuracy (a specification bound, not a
-    Gaussian); the result is rounded to the display resolution of the range the meter
-    autoranges to for the shown value. A reading over the top range shows "OL", returned
-    as ±inf (sign of the value); an AC (rms) reading never shows below 0; NaN (a variant
-    that did not solve) stays NaN. The random
-    draw is meter display noise only; `rng` is the caller's seeded Generator.
+    The meter error is drawn within ±accuracy (a specification bound, not a Gaussian):
+    its percentage part as `gain` × pct % of the reading (`gain` in [-1, 1], one draw for
+    every reading a meter takes, see `display_unit`; drawn here per value when None) and
+    its counts part uniformly per value; the result is rounded to the display resolution
+    of the range the meter autoranges to for the shown value. A reading over the top
+    range shows "OL", returned as ±inf (sign of the value); an AC (rms) reading never
+    shows below 0; NaN (a variant that did not solve) stays NaN. The random draw is
+    meter display noise only; `rng` is the caller's seeded Generator.
     """
     v = np.asarray(values, dtype=float)
-    bound = accuracy(v, kind, meter, unit)
-    finite = np.isfinite(bound)
-    u = rng.uniform(-1.0, 1.0, size=v.shape)
-    noisy = np.where(finite, v + u * np.where(finite, bound, 0.0), v)
+    pct_key, counts_key = _figures(kind, unit)
+    finite = np.isfinite(accuracy(v, kind, meter, unit))
+    g = rng.uniform(-1.0, 1.0, size=v.shape) if gain is None else gain
+    c = rng.uniform(-1.0, 1.0, size=v.shape)
+    err = (g * abs(float(meter[pct_key])) / 100.0 * np.abs(v)
+           + c * float(meter[counts_key]) * resolution(v, meter, unit))
+    noisy = np.where(finite, v + np.where(finite, err, 0.0), v)
     out = shown(noisy, meter, unit)
     if kind == "ac":            # an rms reading is a magnitude: it never shows below zero
         out = np.maximum(out, 0.0)
     over = (range_index(noisy, meter, unit) < 0) | ~finite
     return np.where(over & ~np.isnan(v), np.copysign(np.inf, v), out)
+
+
+def display_unit(values: Any, observables: Sequence[Any], meter: Mapping[str, Any],
+                 rng: np.random.Generator) -> np.ndarray:
+    """What one meter shows for one unit's true readings `values` (M,), one per
+    observable (`.kind`, `.unit`): each function of the meter (DC volts, AC volts,
+    amperes) has one calibration error for all its readings, drawn once within its
+    percentage figure, as the same meter takes every reading of a unit; the counts part
+    is drawn per reading. Two points on one node then read alike, as at the bench."""
+    v = np.asarray(values, dtype=float)
+    gains: dict[tuple[str, str], float] = {}
+    out = np.empty(len(v))
+    for j, o in enumerate(observables):
+        key = (o.kind, o.unit)
+        if key not in gains:
+            gains[key] = float(rng.uniform(-1.0, 1.0))
+        out[j] = display(v[j:j + 1], o.kind, meter, o.unit, rng, gains[key])[0]
+    return out
 
 
 def loaded(v_open: Any, z_source: Any, z_meter: Any) -> np.ndarray:

@@ -63,7 +63,8 @@ def bench_notes_many(case: Case, rules, units: Sequence[Sequence], meter_accurac
     case's parts are worked out once, then each unit's readings are read against them."""
     checks = _applicable(case, rules)
     rails = [p for p in case.parts if p.kind == "supply"]
-    fixed = {case.ground, *(n for p in rails for n in p.nodes)}
+    fixed = _wired(case, {case.ground, *(n for p in rails for n in p.nodes)},
+                   rules["checks"].get("wires") or ())
     across = {frozenset((pt.node, pt.minus)): pt.id for pt in case.points
               if pt.node and pt.minus not in (None, case.ground) and "dc" in pt.reads}
     ctx = (rules["checks"].get("terminal_names") or {},
@@ -156,6 +157,20 @@ def _applicable(case: Case, rules) -> list[tuple]:
                                 f"of {part.kind} ({', '.join(TERMINALS[part.kind])})",
                                 file=rules.file("checks")) from None
             out.append((part, chk, n1, n2))
+    return out
+
+
+def _wired(case: Case, nodes: set[str], kinds) -> set[str]:
+    """`nodes` and every node joined to one of them through parts of `kinds` (a fuse or
+    a link, a wire at DC), transitively."""
+    out, grew = set(nodes), True
+    wires = [p.nodes for p in case.parts if p.kind in kinds]
+    while grew:
+        grew = False
+        for a, b in wires:
+            if (a in out) != (b in out):
+                out |= {a, b}
+                grew = True
     return out
 
 
