@@ -225,6 +225,46 @@ def test_a_card_of_the_case_own_borrows_the_generic_spread():
                     MODELS["si-diode"]["spread"]["is_sigma"], rtol=0.1)
 
 
+def test_a_generic_name_spreads_over_its_class_and_a_case_card_does_not():
+    """A generic name stands for many part types: the card values rules/models.yaml
+    spreads over the class (parts.bjt.CLASS_SPREAD: IS, VAF, IKF, ISE, as each model
+    gives them; figures from memory, see there) are drawn log-uniformly over its
+    factors, and a class spread of IS or ISE takes the place of the within-type one.
+    An inline card is one part type and keeps the within-type spreads only (our own
+    rule)."""
+    from diag.core.parts.bjt import CLASS_SPREAD
+
+    c = compiled(part("V1", "supply", ["vcc", "gnd"], 12.0),
+                 part("R1", "resistor", ["vcc", "b"], 100e3),
+                 part("Q1", "npn", ["vcc", "b", "e"]),
+                 part("Q3", "npn", ["vcc", "b", "e"], model="npn-power"),
+                 part("Q2", "npn", ["vcc", "b", "e"], model={"IS": 2e-14, "BF": 80.0,
+                                                            "VAF": 60.0, "IKF": 0.1,
+                                                            "ISE": 1e-13}),
+                 part("R2", "resistor", ["e", "gnd"], 1e3))
+    d = ensemble.draw_healthy(c, 4000, np.random.default_rng(5))
+    seen = set()
+    for ref, name in (("Q1", "npn-small"), ("Q3", "npn-power")):
+        gen = MODELS[name]
+        for key in CLASS_SPREAD:
+            if key not in gen["spread"]:
+                continue
+            seen.add(key)
+            lo, hi = (float(x) for x in gen["spread"][key])
+            f = d[f"{ref}.{key}"] / float(gen["params"][key.upper()])
+            assert f.min() >= lo * (1 - 1e-12) and f.max() <= hi * (1 + 1e-12)
+            assert f.max() / f.min() > 0.9 * hi / lo                      # the whole range
+            assert_allclose(np.median(np.log(f)), math.log(math.sqrt(lo * hi)), atol=0.1)
+        if "is" not in gen["spread"]:      # IS within its type only
+            assert_allclose(np.std(np.log(d[f"{ref}.is"] / float(gen["params"]["IS"]))),
+                            gen["spread"]["is_sigma"], rtol=0.1)
+    assert seen == set(CLASS_SPREAD)
+    assert "Q2.vaf" not in d and "Q2.ikf" not in d
+    gen = MODELS["npn-small"]["spread"]
+    assert_allclose(np.std(np.log(d["Q2.ise"] / 1e-13)), gen["ise_sigma"], rtol=0.1)
+    assert_allclose(np.std(np.log(d["Q2.is"] / 2e-14)), gen["is_sigma"], rtol=0.1)
+
+
 def test_zener_bv_from_part_and_spread_per_model():
     c = compiled(part("V1", "supply", ["a", "gnd"], 15.0),
                  part("R1", "resistor", ["a", "k"], 1e3),

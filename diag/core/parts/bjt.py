@@ -76,6 +76,9 @@ BD_TEST_AMPS = 1e-5  # amperes at which BVEBO is specified (10 µA; from memory,
 BD_QUIET_FORWARD = 1.5  # volts: below this forward, BD_IS exp(v / (BD_N vt)) < 1e-14 A
 
 
+# a generic model's spread of these card values over its class, as factors of the card's
+# value (rules/models.yaml `spread`); a case's own card is one part type and has none
+CLASS_SPREAD = ("is", "vaf", "ikf", "ise")
 INFINITE_WHEN_ZERO = ("vaf", "var", "ikf", "ikr", "irb", "bvebo", "bvcbo")
 # volts: the least Early voltage (VAF, VAR) a card may give (0 = none). The base charge's
 # q1 = 1 / (1 - vbc/VAF - vbe/VAR) must stay positive with a junction forward, up to
@@ -136,15 +139,15 @@ class BJT(PartKind):
                 lo, hi = (float(x) for x in s["hfe"])
                 mid = math.sqrt(lo * hi)
                 s["hfe"] = (nominal["bf"] * lo / mid, nominal["bf"] * hi / mid)
-            s.pop("bvebo", None)
-            s.pop("rbv", None)
+            for key in ("bvebo", "rbv") + CLASS_SPREAD:
+                s.pop(key, None)
         hfe = part.fields.get("hfe") or s.get("hfe")
         out = []
         if hfe:
             out.append(Spread((f"{part.ref}.bf",), "loguniform", float(hfe[0]), float(hfe[1])))
-        if s.get("is_sigma"):
+        if s.get("is_sigma") and not s.get("is"):
             out.append(Spread((f"{part.ref}.is",), "lognormal", float(s["is_sigma"])))
-        if s.get("ise_sigma") and nominal["ise"] > 0:
+        if s.get("ise_sigma") and nominal["ise"] > 0 and not s.get("ise"):
             out.append(Spread((f"{part.ref}.ise",), "lognormal", float(s["ise_sigma"])))
         if s.get("bvebo") and math.isfinite(nominal["bvebo"]):
             lo, hi = (float(x) for x in s["bvebo"])
@@ -152,6 +155,11 @@ class BJT(PartKind):
         if s.get("rbv") and nominal["rbv"] > 0:
             lo, hi = (float(x) for x in s["rbv"])
             out.append(Spread((f"{part.ref}.rbv",), "loguniform", lo, hi, stream=2))
+        for key in CLASS_SPREAD:
+            if s.get(key) and 0.0 < nominal[key] < math.inf:
+                lo, hi = (float(x) for x in s[key])
+                out.append(Spread((f"{part.ref}.{key}",), "loguniform",
+                                  nominal[key] * lo, nominal[key] * hi, stream=3))
         return out
 
     def dc_stamps(self, part, p, t):
