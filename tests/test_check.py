@@ -295,6 +295,33 @@ def test_a_simulator_card_carries_over_and_check_names_what_is_not_used(tmp_path
     assert "unknown model parameter 'RCO'" in err and "VAR IKR ISC NC NKF" in err
 
 
+def test_check_names_the_transistors_drawn_over_a_generic_class(tmp_path, capsys):
+    """A transistor fitted with a generic name has its card values drawn over the class
+    of part types (rules/models.yaml `spread`), so its bands are wider than one type's:
+    check says which parts, what is drawn, and how to narrow it; a part with its own card
+    is one type and is not named (our own rule)."""
+    generic = _write(tmp_path, SMALL.replace("VOLTS", "12"))
+    assert main(["check", str(generic)]) == 0
+    out = " ".join(capsys.readouterr().out.split())
+    assert "Generic transistor models: Q1 (npn-small) stand for a class" in out
+    assert "Early voltage, gain at high current, gain at low current" in out
+    assert "base-emitter drop" not in out        # the small-signal class keeps its IS
+    assert main(["check", str(generic), "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["class_models"] == {"Q1": {"model": "npn-small",
+                                           "drawn_over_class": ["vaf", "ikf", "ise"]}}
+    own = _write(tmp_path, SMALL.replace("VOLTS", "12").replace(
+        "Q1: {kind: npn, c: col, b: base, e: emit}",
+        "Q1: {kind: npn, c: col, b: base, e: emit, model: {IS: 1e-14, BF: 200}}"), "own.yaml")
+    assert main(["check", str(own), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["class_models"] == {}
+    power = _write(tmp_path, SMALL.replace("VOLTS", "12").replace(
+        "Q1: {kind: npn, c: col, b: base, e: emit}",
+        "Q1: {kind: npn, c: col, b: base, e: emit, model: npn-power}"), "power.yaml")
+    assert main(["check", str(power)]) == 0
+    assert "base-emitter drop" in " ".join(capsys.readouterr().out.split())
+
+
 def test_a_card_xtb_sets_its_own_part_beta_temperature_law():
     """ensemble.apply_ambient: BF follows (T/T0)^XTB (SPICE's Gummel-Poon temperature
     law, ngspice manual) with the card's XTB where it gives one, else the rules'."""

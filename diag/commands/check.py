@@ -130,7 +130,8 @@ def format_text(result, case_path: str, rules) -> str:
         k, why = result.failed[0]
         out.append(f"{len(result.failed)} of {result.K} draws did not converge and are left "
                    f"out of the bands (first: draw {k}: {why})")
-    for text in (result.stability_text(), result.signal_text(), result.unused_model_text(),
+    for text in (result.stability_text(), result.signal_text(), result.generic_text(),
+                 result.unused_model_text(),
                  result.current_limit_text(), result.supply_limit_text()):
         if text:
             out.append(textwrap.fill(text, width=92, break_on_hyphens=False))

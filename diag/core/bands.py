@@ -78,6 +78,8 @@ class CheckResult:
     quiet: float | None = None
     saddle: bool = False
     switched: bool = False
+    generic: dict[str, tuple[str, tuple[str, ...]]] = field(default_factory=dict)
+    # transistor ref -> (generic model name, the card values drawn over its class)
 
     def stability_text(self) -> str:
         """`stability_text` of the nominal operating point."""
@@ -194,6 +196,22 @@ class CheckResult:
             "lets its voltage fall (a bench supply's constant-current setting), give that "
             "as `limit:` instead, which diag models.")
 
+    def generic_text(self) -> str:
+        """The sentence naming transistors drawn over their generic model's class of part
+        types, with what is drawn over it (`generic`: ref -> (model, class keys)); ""
+        when there are none."""
+        if not self.generic:
+            return ""
+        words = {"vaf": "Early voltage", "ikf": "gain at high current",
+                 "ise": "gain at low current", "is": "base-emitter drop"}
+        keys = {k for _, ks in self.generic.values() for k in ks}
+        drawn = [w for k, w in words.items() if k in keys]
+        refs = ", ".join(f"{r} ({m})" for r, (m, _) in self.generic.items())
+        return (f"Generic transistor models: {refs} stand for a class of part types, and "
+                f"the bands cover the class ({', '.join(drawn)} drawn over the types that "
+                "answer to the name). Where the fitted type is known, give its own card "
+                "(`model:` with its SPICE figures) to narrow them.")
+
     def unused_model_text(self) -> str:
         """The sentence naming card parameters diag leaves out; "" when there are none."""
         return _read_not_used(
@@ -205,7 +223,8 @@ class CheckResult:
     def to_json(self, case_path: str | None = None) -> dict[str, Any]:
         """SPEC section 6 object (plus the extra keys regions, failed, draws,
         junction_signal, ac_swing, quiet_level, unstable_operating_point,
-        switched_states, unused_model_params, unmodelled_supply_limits, current_limits)."""
+        switched_states, class_models, unused_model_params, unmodelled_supply_limits,
+        current_limits)."""
         def num(x: float) -> float | None:
             return float(x) if np.isfinite(x) else None
 
@@ -226,6 +245,8 @@ class CheckResult:
             "quiet_level": self.quiet,
             "unstable_operating_point": self.saddle,
             "switched_states": self.switched,
+            "class_models": {r: {"model": m, "drawn_over_class": list(k)}
+                             for r, (m, k) in self.generic.items()},
             "unused_model_params": {r: list(n) for r, n in self.unused_model.items()},
             "unmodelled_supply_limits": self.supply_limits,
             "current_limits": self.current_limits,
@@ -326,8 +347,27 @@ def healthy_bands(case: Case, rules: Any = None, K: int = 400, seed: int = 0) ->
                        failed=tuple(failed), cautions=case_cautions(case), K=K, seed=seed,
                        nominal_ok=bool(dc0.ok[0]), nominal_why=dc0.why[0],
                        drive=junction_drive(circuit, dc0, ac0, regions) if has_ac else {},
+                       generic=class_models(case, rules),
                        **stability(circuit, dc0),
                        **(level_sweep(circuit, dc0, ac0) if has_ac else {}))
+
+
+def class_models(case: Case, rules: Any) -> dict[str, tuple[str, tuple[str, ...]]]:
+    """Transistor ref -> (its generic model's name, the card values its spread draws over
+    the class: parts.bjt.CLASS_SPREAD keys of rules/models.yaml), for the transistors
+    fitted with such a name; a case's own card is one type and is not listed."""
+    from diag.core.parts.bjt import CLASS_SPREAD, DEFAULT_MODEL
+
+    out = {}
+    for p in case.parts:
+        if p.kind not in ("npn", "pnp"):
+            continue
+        name = str(p.model.get("name")) if p.model else DEFAULT_MODEL[p.kind]
+        spread = (rules["models"].get(name) or {}).get("spread") or {}
+        keys = tuple(k for k in CLASS_SPREAD if k in spread)
+        if keys:
+            out[p.ref] = (name, keys)
+    return out
 
 
 def level_sweep(circuit, dc, ac, steps: int = SWEEP_STEPS) -> dict[str, Any]:
