@@ -899,3 +899,19 @@ def test_a_reading_with_its_sign_turned_is_named_as_probes_reversed(tmp_path, mo
     assert "probes the wrong way round? Take TP4 again, red probe on base, black on emit" \
         in d.fit_text
     assert "probes" not in eng.diagnose(list(unit.values())).fit_text
+
+
+def test_a_supply_current_with_its_sign_turned_names_the_ammeter_leads(tmp_path,
+                                                                       monkeypatch):
+    """diff-receiver's +9 V ammeter reading typed negative (a current into the supply,
+    which two supplies allow) while its positive fits: the ammeter's leads are named,
+    not a probe (our own rule)."""
+    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
+    eng = Engine(load_case(cases_dir() / "diff-receiver.yaml"), K=64)
+    unit = list(eng.simulate("healthy", np.random.default_rng(2)))
+    turned = [Reading(r.point, r.kind, -r.value) if (r.point, r.kind) == ("TP1", "dc")
+              else r for r in unit]
+    d = eng.diagnose(turned)
+    assert not d.fits
+    assert "the meter's leads the wrong way round in the supply lead? Take TP1 again" \
+        in d.fit_text
