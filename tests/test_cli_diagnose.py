@@ -81,6 +81,12 @@ def test_text_says_whether_a_reading_can_still_split_close_suspects():
     none = format_text(case, Diagnosis(6, True, sus, (), extra={"confirm": confirm}), 10)
     assert "No reading left to take tells these apart; check each at the bench:" in none
     assert "nothing left to learn" in none
+    # a legend for the group column only when a number repeats (our own rule)
+    assert "grp: suspects with one number" not in none
+    same = (Suspect("R1:open", 0.5, 0, "R1 open"), Suspect("R2:short", 0.45, 0, "R2 short"))
+    grouped = format_text(case, Diagnosis(6, True, same, (), extra={"confirm": confirm}), 10)
+    assert "grp: suspects with one number are ones the offered readings cannot tell " \
+        "apart, judged around these readings" in grouped
 
 
 def test_header_only_gives_prior_and_first_reading(tmp_path, capsys):

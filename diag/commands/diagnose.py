@@ -74,6 +74,11 @@ def format_text(case, d, top: int, rejected=()) -> str:
     rest = len(d.suspects) - top
     if rest > 0:
         lines.append(f"        ... and {rest} less likely (use --top N)")
+    shown = [s.group for s in d.suspects[:top]]
+    if len(set(shown)) < len(shown):
+        lines.append("grp: suspects with one number are ones the offered readings cannot "
+                     "tell apart, judged around these readings (`diag faults` lists the "
+                     "case's groups before any reading)")
     checks = d.bench_checks()
     if len(checks) == 1:
         lines += ["", f"To confirm {checks[0][0]}: {checks[0][1]}"]
