@@ -861,7 +861,21 @@ points:
 """
 
 
-def test_a_collector_on_a_fused_rail_is_not_read_as_carrying_no_current(tmp_path):
+@pytest.fixture
+def fused_case(tmp_path):
+    """The path of FUSED_FOLLOWER written as a case file."""
+    path = tmp_path / "fused.yaml"
+    path.write_text(FUSED_FOLLOWER)
+    return path
+
+
+def _turned(readings, point: str) -> list:
+    """`readings` with the DC reading at `point` typed with its sign turned."""
+    return [Reading(r.point, r.kind, -r.value) if (r.point, r.kind) == (point, "dc") else r
+            for r in readings]
+
+
+def test_a_collector_on_a_fused_rail_is_not_read_as_carrying_no_current(fused_case):
     """An emitter follower's collector wired to the rail through the supply lead's fuse
     sits at the rail by design: no "no collector current" note (a fuse or link is a
     wire at DC: common practice, no source). Its base-emitter reading of -0.4 V is a
@@ -870,9 +884,7 @@ def test_a_collector_on_a_fused_rail_is_not_read_as_carrying_no_current(tmp_path
     from diag.core.rules import load_rules
 
     rules = load_rules()
-    path = tmp_path / "fused.yaml"
-    path.write_text(FUSED_FOLLOWER)
-    case = load_case(path, rules)
+    case = load_case(fused_case, rules)
     got = " ".join(notes.bench_notes(case, rules, [
         Reading("TP1", "dc", 11.98), Reading("TP2", "dc", 5.95), Reading("TP3", "dc", 5.3)]))
     assert "conducting silicon junction" in got and "sits at" not in got
@@ -882,19 +894,16 @@ def test_a_collector_on_a_fused_rail_is_not_read_as_carrying_no_current(tmp_path
     assert "too little for a silicon junction to conduct" in got
 
 
-def test_a_reading_with_its_sign_turned_is_named_as_probes_reversed(tmp_path, monkeypatch):
+def test_a_reading_with_its_sign_turned_is_named_as_probes_reversed(fused_case, tmp_path,
+                                                                    monkeypatch):
     """A reading across two nodes typed with the probes the wrong way round (its
     negative fits every other reading) is named, with the probe order to take it again
     (our own rule). The unit is a good one drawn by the engine itself."""
     monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
-    path = tmp_path / "fused.yaml"
-    path.write_text(FUSED_FOLLOWER)
-    eng = Engine(load_case(path), K=64)
+    eng = Engine(load_case(fused_case), K=64)
     unit = {(r.point, r.kind): r for r in eng.simulate("healthy", np.random.default_rng(4))}
-    good = unit[("TP4", "dc")].value
-    assert good > 0.5
-    turned = [r if r.point != "TP4" else Reading("TP4", "dc", -good) for r in unit.values()]
-    d = eng.diagnose(turned)
+    assert unit[("TP4", "dc")].value > 0.5
+    d = eng.diagnose(_turned(unit.values(), "TP4"))
     assert not d.fits
     assert "probes the wrong way round? Take TP4 again, red probe on base, black on emit" \
         in d.fit_text
@@ -908,10 +917,7 @@ def test_a_supply_current_with_its_sign_turned_names_the_ammeter_leads(tmp_path,
     not a probe (our own rule)."""
     monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
     eng = Engine(load_case(cases_dir() / "diff-receiver.yaml"), K=64)
-    unit = list(eng.simulate("healthy", np.random.default_rng(2)))
-    turned = [Reading(r.point, r.kind, -r.value) if (r.point, r.kind) == ("TP1", "dc")
-              else r for r in unit]
-    d = eng.diagnose(turned)
+    d = eng.diagnose(_turned(eng.simulate("healthy", np.random.default_rng(2)), "TP1"))
     assert not d.fits
     assert "the meter's leads the wrong way round in the supply lead? Take TP1 again" \
         in d.fit_text
