@@ -337,3 +337,23 @@ def test_more_units_estimate_a_tail_likelihood_more_closely():
         errs[512].append(infer.pooled(a, na, b, nb)[0] - exact)
     rms = {k: float(np.sqrt(np.mean(np.square(v)))) for k, v in errs.items()}
     assert rms[512] < 0.7 * rms[128]
+
+
+def test_fit_statistics_taken_a_few_rows_at_a_time_equal_all_rows_at_once():
+    # our own rule (infer._fit_statistics_of): the rows are independent, so working
+    # them a tile at a time (to stay in the CPU cache) changes no bit of either statistic
+    rng = np.random.default_rng(11)
+    K, d, R = 300, 9, 1000
+    U = rng.normal(size=(K, d)).astype(infer.FIT_DTYPE)
+    U[5] = np.nan                                         # a unit that failed
+    u = rng.normal(scale=2.0, size=(R, d)).astype(infer.FIT_DTYPE)
+    s = rng.uniform(1.0, 2.0, d).astype(infer.FIT_DTYPE)
+    W_S = rng.uniform(20, 40, d).astype(infer.FIT_DTYPE)
+    left_out = np.zeros((R, K), dtype=bool)
+    left_out[np.arange(R), rng.integers(K, size=R)] = True
+    assert R * K * d > infer._FIT_TILE                     # more than one tile
+    L0, c0 = infer._fit_statistics(infer._kernel_values(U[None], u, s[None], EPS, W_S),
+                                   np.array(K - 1), left_out)
+    L1, c1 = infer._fit_statistics_of(U, u, s, EPS, W_S, np.array(K - 1), left_out)
+    np.testing.assert_array_equal(L0, L1)
+    np.testing.assert_array_equal(c0, c1)

@@ -697,14 +697,21 @@ def test_a_batch_with_ac_readings_carries_the_signal_warning(tmp_path):
     assert dc_only.summary["signal_warning"] == ""
 
 
+def _engine_in(home: Path, monkeypatch, K: int) -> Engine:
+    """The case's engine with K units, built with its cache in `home` (a fresh one
+    solves everything anew)."""
+    monkeypatch.setenv("DIAG_HOME", str(home))
+    eng = Engine(load_case(str(CASE)), load_rules(), K=K)
+    eng.build()
+    return eng
+
+
 def test_a_large_batch_solves_every_further_unit_first_and_ranks_as_diagnose(
         tmp_path, monkeypatch):
     # our own rule (BatchScorer.run): a batch of at least as many units as hypotheses
     # solves every hypothesis's further units (Engine._refine) in one go before its
     # blocks; the answers stay those of diagnose one unit at a time
-    monkeypatch.setenv("DIAG_HOME", str(tmp_path / "home"))
-    eng = Engine(load_case(str(CASE)), load_rules(), K=16)
-    eng.build()
+    eng = _engine_in(tmp_path / "home", monkeypatch, K=16)
     H = len(eng.specs)
     rng = np.random.default_rng(3)
     ids = [s.id for s in eng.specs]
@@ -719,3 +726,69 @@ def test_a_large_batch_solves_every_further_unit_first_and_ranks_as_diagnose(
     assert set(ids) <= set(eng._stores["-more"].mem)  # (and pairs, where tried)
     for r, d in zip(units[:12], got[:12], strict=True):
         _same(eng.diagnose(r), d)
+
+
+def test_further_units_begun_early_are_those_of_build_further_and_cancel_cleanly(
+        tmp_path, monkeypatch):
+    # our own rule (Engine.build_further_later, BatchScorer.run): a large batch starts
+    # its further units on forked workers before its tables and collects them after;
+    # they are build_further's units, and a batch stopped meanwhile leaves no worker
+    import multiprocessing
+
+    from diag.core import workers
+
+    eng = _engine_in(tmp_path / "home", monkeypatch, K=16)
+    H = len(eng.specs)
+    later = eng.build_further_later()
+    if workers.forkable():
+        assert len(multiprocessing.active_children()) == 2
+    later.cancel()
+    assert multiprocessing.active_children() == []
+    assert eng.further_pending() == H                     # nothing kept from it
+    eng.build_further_later().get()
+    assert eng.further_pending() == 0
+    ref = _engine_in(tmp_path / "other", monkeypatch, K=16)
+    ref.build_further()
+    assert "other" in str(ref._store_file("-more"))       # solved anew, not read back
+    ids = [s.id for s in eng.specs]
+    np.testing.assert_array_equal(eng._on_demand("-more", list(eng.specs)),
+                                  ref._on_demand("-more", list(ref.specs)))
+    assert ids == [s.id for s in ref.specs]
+
+    eng2 = _engine_in(tmp_path / "third", monkeypatch, K=16)
+    rng = np.random.default_rng(5)
+    units = [list(eng2.simulate("R2:open", rng)) for _ in range(H)]
+
+    def stop(*a, **kw):
+        raise InterruptedError("triage cancelled")
+
+    monkeypatch.setattr(BatchScorer, "_run", stop)
+    with pytest.raises(InterruptedError):
+        BatchScorer(eng2).run(units, threads=2)
+    assert multiprocessing.active_children() == []
+    assert eng2.further_pending() == H
+
+
+def test_pairs_for_every_unit_no_single_fault_fits_are_solved_at_once(tmp_path, monkeypatch):
+    # our own rule (BatchScorer.run): units that no single fault fits, not even with
+    # one slip, are left to the end of the batch; the pairs of faults tried for all of
+    # them are solved in one go, and each unit then ranks as diagnose ranks it alone
+    eng = _engine_in(tmp_path / "home", monkeypatch, K=32)
+    rng = np.random.default_rng(1)
+    units = [list(eng.simulate(f, rng)) for f in
+             ["R1:open+C2:short", "R2:open+R4:open", "R1:short+R4:short"] * 2
+             + ["R2:open", "healthy"]]
+    calls = []
+    solve = eng._solve
+    monkeypatch.setattr(eng, "_solve", lambda specs, K, *a, **kw: calls.append(
+        (K, [s.origin for s in specs])) or solve(specs, K, *a, **kw))
+    seen = []
+    got = BatchScorer(eng).run(units, threads=2, progress=seen.append)
+    tried = [d for d in got if d.extra["pairs_tried"]]
+    assert len(tried) >= 2
+    pair_solves = [c for c in calls if c[0] == eng.K]      # the further units are 3 K
+    assert len(pair_solves) == 1 and set(pair_solves[0][1]) == {"pair"}
+    assert seen[-1] == 1.0 and seen == sorted(seen)
+    ref = _engine_in(tmp_path / "other", monkeypatch, K=32)
+    for r, d in zip(units, got, strict=True):
+        _same(ref.diagnose(r), d)

@@ -60,3 +60,29 @@ def test_no_fork_while_another_thread_runs():
         stop.set()
         t.join()
     assert workers.forkable()
+
+
+@pytest.mark.parametrize("processes", [False, pytest.param(True, marks=needs_fork)])
+def test_started_blocks_give_run_s_list_while_the_caller_starts_threads(processes):
+    """workers.start forks its workers at once; the caller may then start threads of its
+    own (triage fills its tables meanwhile) and collects run's list later."""
+    later = workers.start(_square, 7, 2, processes=processes)
+    other = threading.Thread(target=lambda: None)
+    other.start()
+    other.join()
+    assert later.then(sum).get() == sum(i * i for i in range(7))
+
+
+@needs_fork
+def test_a_started_run_cancelled_leaves_no_worker_behind():
+    import multiprocessing
+    import time
+
+    def slow(i):
+        time.sleep(5)
+        return i
+
+    later = workers.start(slow, 4, 2, processes=True)
+    assert len(multiprocessing.active_children()) == 2
+    later.cancel()
+    assert multiprocessing.active_children() == []

@@ -15,6 +15,7 @@ meter (a profile of rules/meters.yaml, or an inline mapping over handheld-3.5).
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import re
 from collections.abc import Mapping
@@ -118,16 +119,18 @@ class Case:
     hash: str
 
     def part(self, ref: str) -> Part:
-        for p in self.parts:
-            if p.ref == ref:
-                return p
-        raise KeyError(ref)
+        return self._by_ref[ref]
 
     def point(self, pid: str) -> Point:
-        for p in self.points:
-            if p.id == pid:
-                return p
-        raise KeyError(pid)
+        return self._by_id[pid]
+
+    @functools.cached_property
+    def _by_ref(self) -> dict[str, Part]:
+        return {p.ref: p for p in self.parts}
+
+    @functools.cached_property
+    def _by_id(self) -> dict[str, Point]:
+        return {p.id: p for p in self.points}
 
     @property
     def observables(self) -> tuple[Observable, ...]:

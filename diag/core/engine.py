@@ -375,7 +375,7 @@ class Engine:
 
     def _solve(self, specs, K: int, progress=None, cancelled=None, chunk: int | None = None,
                threads: int | None = None, processes: bool | None = None, stream: int = 0,
-               scores: tuple | None = None):
+               scores: tuple | None = None, later: bool = False):
         """Meter readings (H, K, M) of K units per spec, and the hidden readings
         (H, K, X) with their names; progress over chunks of hypotheses; `stream` as in
         ensemble.hypothesis_rng. `scores` (noise, z, grid): the units' infer.kernel_scores
@@ -387,7 +387,9 @@ class Engine:
         its work buffers per thread, so the result depends on none of these. Default
         chunk: 16 hypotheses on one worker; with more, one chunk per worker (large
         chunks spend their time in numpy rather than in Python), or as many per worker
-        as keep each under BLOCK_UNITS units."""
+        as keep each under BLOCK_UNITS units. With `later` (no progress, no
+        cancelling), a workers.Later of the result instead: the work starts now on
+        forked processes, where those are used (workers.start)."""
         from diag.core import ensemble, meter, solver, workers
 
         circ = self.circuit
@@ -426,18 +428,23 @@ class Engine:
             noise, z, grid = scores
             return x, h.reshape(len(block), K, -1), infer.kernel_scores(noise.u(x), z, grid)
 
-        ends = np.cumsum([len(b) for b in blocks])
-        got = workers.run(one, len(blocks), threads,
-                          None if progress is None
-                          else (lambda i: progress(min(1.0, ends[i] / len(specs)))),
-                          cancelled, processes)
         names = [f"dc {n}" for n in circ.nodes]
         if need_ac:
             names += [f"ac {n}" for n in circ.nodes]
         names += [f"current {s}" for s in circ.supplies]
-        out = (np.concatenate([g[0] for g in got]), np.concatenate([g[1] for g in got]),
-               tuple(names))
-        return out if scores is None else (*out, np.concatenate([g[2] for g in got]))
+
+        def assemble(got):
+            out = (np.concatenate([g[0] for g in got]), np.concatenate([g[1] for g in got]),
+                   tuple(names))
+            return out if scores is None else (*out, np.concatenate([g[2] for g in got]))
+
+        if later:
+            return workers.start(one, len(blocks), threads, processes).then(assemble)
+        ends = np.cumsum([len(b) for b in blocks])
+        return assemble(workers.run(one, len(blocks), threads,
+                                    None if progress is None
+                                    else (lambda i: progress(min(1.0, ends[i] / len(specs)))),
+                                    cancelled, processes))
 
     def build(self, progress: Callable[[float], None] | None = None,
               cancelled: Callable[[], bool] | None = None, in_child: bool = True
@@ -684,6 +691,18 @@ class Engine:
         if progress:
             progress(1.0)
 
+    def build_further_later(self):
+        """`build_further` begun now, as a workers.Later whose `get()` finishes it:
+        where the solve runs on forked processes, they are forked here, before threads
+        the caller starts next, and solve while it works on what needs no further units
+        (triage's first phase)."""
+        from diag.core.workers import Later
+
+        self.build()
+        if not self.further_pending():
+            return Later(lambda: None)
+        return self._on_demand("-more", list(self.specs), later=True)
+
     def further_pending(self) -> int:
         """Built hypotheses whose further units are neither in memory nor in the cache
         file (0 once `build_further` has run, when a past session left them all, or
@@ -721,15 +740,14 @@ class Engine:
                 self._active -= 1
 
     def _on_demand(self, name: str, specs, progress=None, cancelled=None,
-                   threads: int | None = None) -> np.ndarray:
+                   threads: int | None = None, later: bool = False):
         """Samples (n, store K, M) of specs from store `name` (see __init__): each spec
         solved once (its own random stream), kept in memory and in the store's cache
         file beside the ensemble's (ensemble.COMPANIONS), the `keep` newest; `progress`
-        and `cancelled` as in `build`, `threads` as in `_solve`."""
-        from diag.core import ensemble
-
+        and `cancelled` as in `build`, `threads` as in `_solve`. With `later`, a
+        workers.Later of them: what is to be solved starts now (`_solve`'s `later`) and
+        is kept when got."""
         st = self._stores[name]
-        M = len(self.observables)
         with self._lock:
             todo = [s for s in specs if s.id not in st.mem]
             if todo:
@@ -738,19 +756,44 @@ class Engine:
                     if s.id in st.disk:
                         st.mem[s.id] = (s, st.disk[s.id])
                 todo = [s for s in todo if s.id not in st.mem]
-            if todo:
+            if todo and not later:
                 x, _, _ = self._solve(todo, st.K, progress, cancelled, threads=threads,
                                       stream=st.stream)
-                for s, xs in zip(todo, x, strict=True):
-                    st.mem[s.id] = (s, xs)
-                    st.disk[s.id] = xs
-                keep = list(st.disk.items())[-st.keep:]
-                try:
-                    ensemble.save_cache(self._store_file(name), {
-                        "ids": np.array([k for k, _ in keep]),
-                        "samples": np.stack([v for _, v in keep])})
-                except OSError:
-                    pass  # a read-only cache folder only costs speed
+                self._keep(st, name, todo, x)
+        if not later:
+            return self._stacked(st, specs)
+        from diag.core.workers import Later
+
+        if not todo:
+            return Later(lambda: self._stacked(st, specs))
+
+        def kept(solved) -> np.ndarray:
+            with self._lock:
+                self._keep(st, name, todo, solved[0])
+            return self._stacked(st, specs)
+
+        return self._solve(todo, st.K, threads=threads, stream=st.stream,
+                           later=True).then(kept)
+
+    def _keep(self, st: _Store, name: str, specs, x: np.ndarray) -> None:
+        """Store solved samples x (n, K, M) of specs in memory and in `name`'s cache file
+        (the `keep` newest; under the lock)."""
+        from diag.core import ensemble
+
+        for s, xs in zip(specs, x, strict=True):
+            st.mem[s.id] = (s, xs)
+            st.disk[s.id] = xs
+        keep = list(st.disk.items())[-st.keep:]
+        try:
+            ensemble.save_cache(self._store_file(name), {
+                "ids": np.array([k for k, _ in keep]),
+                "samples": np.stack([v for _, v in keep])})
+        except OSError:
+            pass  # a read-only cache folder only costs speed
+
+    def _stacked(self, st: _Store, specs) -> np.ndarray:
+        """The kept samples (n, store K, M) of specs, stacked."""
+        M = len(self.observables)
         return np.stack([st.mem[s.id][1] for s in specs]) if specs else \
             np.empty((0, st.K, M))
 
@@ -1019,7 +1062,7 @@ class Engine:
         if pval < alpha and len(idx) and (
                 self.inf["fit_blunders"] or self._fit(U, sc, idx, u_read,
                                                       self._slip_ref(), specs) < alpha):
-            pairs = self._pair_candidates(U, specs, sc, idx, u_read)
+            pairs = self._pair_candidates(U, specs, sc.posterior, idx, u_read)
             if pairs:
                 pairs_tried = True
                 Up = noise.u(self._samples_of(pairs))
@@ -1137,14 +1180,15 @@ class Engine:
         return [f"{self.observables[j].point} {self.observables[j].kind}"
                 for j, v, f in zip(idx, per, floor, strict=True) if v < f]
 
-    def _pair_candidates(self, U, specs, sc, idx, u_read) -> list:
-        """Unrelated pairs worth solving when no single fault fits: pairs among the
-        `pair_top` leading single faults, and each of the three leading ones paired with
-        the single faults that best explain the readings it misses."""
+    def _pair_candidates(self, U, specs, post, idx, u_read) -> list:
+        """Unrelated pairs worth solving when no single fault fits (hypotheses `specs`,
+        posterior `post` (H,)): pairs among the `pair_top` leading single faults, and
+        each of the three leading ones paired with the single faults that best explain
+        the readings it misses."""
         from diag.core import faults, infer
 
         top = int(self.inf["pair_top"])
-        order = [h for h in np.argsort(-sc.posterior) if specs[h].origin == "single"]
+        order = [h for h in np.argsort(-post) if specs[h].origin == "single"]
         cands = faults.pair_specs(self.rules, [specs[h] for h in order[:top]],
                                   self._pair_scale)
         eps = float(self.inf["blunder"])

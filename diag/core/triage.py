@@ -42,6 +42,7 @@ from diag.core.case import Case
 from diag.core.engine import Diagnosis, Engine, Reading, ids_index
 from diag.core.errors import DiagError
 from diag.core.infer import _LOG_EVERY, _exp_floor, kernel_loglik
+from diag.core.workers import Later
 
 STATUSES = ("fault", "healthy", "no-fit")
 LOOKALIKES = 5  # look-alike faults named under "No fault found" in the Markdown report
@@ -371,6 +372,7 @@ class BatchScorer:
             self.log_prior = np.log(engine._priors(hp, self.specs))
         self.valid = np.all(np.isfinite(self.U), axis=2)
         self.n = self.valid.sum(axis=1)
+        self._deferred: list = []  # (unit, its pair candidates): `_block` leaves them to `run`
         # the meter's accuracy bound for the bench notes, remembered per shown value
         # (readings repeat across a batch: they are rounded to the display resolution)
         self._acc = functools.lru_cache(maxsize=1 << 16)(engine._accuracy_fn())
@@ -470,16 +472,18 @@ class BatchScorer:
                                            "healthy_fits": healthy_fits})
 
     def _block(self, items: list[int], matched, units, g: dict, out: list,
-               rows: slice | None = None) -> None:
-        """Diagnose units `items` of group g into `out`. With `rows`, their readings and
-        log-likelihoods are rows of the group's tables (g["u_all"], g["ll_all"]) and no
-        per-unit kernel is kept (the group takes every reading: no advice needs it)."""
+               rows: slice | None = None) -> int:
+        """Diagnose units `items` of group g into `out`, but for those that no single fault
+        fits (pairs are tried for them), which go to `_deferred`: how many did. With
+        `rows`, their readings and log-likelihoods are rows of the group's tables
+        (g["u_all"], g["ll_all"]) and no per-unit kernel is kept (the group takes every
+        reading: no advice needs it)."""
         from diag.core import notes
 
         if not len(g["idx"]):
             for i in items:
                 out[i] = self.engine.diagnose(units[i], healthy_prior=self.hp)
-            return
+            return 0
         if rows is None:
             vals = np.stack([matched[i][1] for i in items])
             u_read = self.engine._noise_obj.u(vals, g["idx"])
@@ -510,13 +514,15 @@ class BatchScorer:
                                      [self._used(units[i], *matched[i]) for i in items],
                                      self._acc)
         for r, i in enumerate(items):
-            if r in pairs:
-                out[i] = eng.diagnose(units[i], healthy_prior=self.hp)
+            if r in pairs:  # diagnosed once every block is done (`run`)
+                self._deferred.append((i, eng._pair_candidates(
+                    self.U, self.specs, post[r], g["idx"], u_read[r])))
                 continue
             idx, _, rej = matched[i]
             out[i] = self._finish(idx, rej, None if llk is None else llk[r], ll[r], post[r],
                                   pval[r], orders[r], groups[r], odd[r], nts[r],
                                   bool(healthy_fits[r]), u_read[r])
+        return len(pairs)
 
     def _healthy_fits(self, g: dict, u_read: np.ndarray, pval: list, orders: np.ndarray,
                       groups: np.ndarray) -> np.ndarray:
@@ -555,11 +561,20 @@ class BatchScorer:
         """Diagnose `units` (see the class). A group of at least `table_min` units that
         take every reading is scored through shared tables first (`table_loglik`, split
         by hypotheses over the threads), then finished block by block."""
+        # the further units solve on forked workers while the tables, which need none, fill
+        further = self.engine.build_further_later() \
+            if solves_further_first(self.engine, len(units)) else Later(lambda: None)
+        try:
+            return self._run(units, further, progress, cancelled, chunk, threads, table_min)
+        except BaseException:
+            further.cancel()
+            raise
+
+    def _run(self, units, further: Later, progress, cancelled, chunk, threads, table_min
+             ) -> list[Diagnosis]:
         from concurrent.futures import ThreadPoolExecutor
 
         matched = [self.engine._match(rs) for rs in units]
-        if solves_further_first(self.engine, len(units)):
-            self.engine.build_further()
         by_key: dict[tuple[int, ...], list[int]] = {}
         for i, (idx, _, _) in enumerate(matched):
             by_key.setdefault(tuple(int(j) for j in idx), []).append(i)
@@ -615,25 +630,38 @@ class BatchScorer:
             if cancelled is not None and cancelled():
                 raise InterruptedError("triage cancelled")
 
+        self._deferred.clear()
         if threads <= 1:  # in the calling thread
-            for phase in phases:
+            for n, phase in enumerate(phases):
+                if n == 1:
+                    further.get()
                 for w, f, args in phase:
                     check()
-                    f(*args)
-                    step(w)
-            return out
-        with ThreadPoolExecutor(max_workers=threads) as pool:
-            for phase in phases:
-                futures = [(w, pool.submit(f, *args)) for w, f, args in phase]
-                for w, fut in futures:
-                    try:
-                        check()
-                    except InterruptedError:
-                        for _, rest in futures:
-                            rest.cancel()
-                        raise
-                    fut.result()
-                    step(w)
+                    step(w - (f(*args) or 0))
+        else:
+            with ThreadPoolExecutor(max_workers=threads) as pool:
+                for n, phase in enumerate(phases):
+                    if n == 1:
+                        further.get()
+                    futures = [(w, pool.submit(f, *args)) for w, f, args in phase]
+                    for w, fut in futures:
+                        try:
+                            check()
+                        except InterruptedError:
+                            for _, rest in futures:
+                                rest.cancel()
+                            raise
+                        step(w - (fut.result() or 0))  # a block's deferred units later
+        # Units no single fault fits: Engine.diagnose tries pairs of faults for them. The
+        # pairs of all of them are solved first, at once, from this thread alone (so on
+        # forked workers where those are used); each unit then finds its own solved.
+        if self._deferred:
+            self.engine._samples_of(list({p.id: p for _, ps in self._deferred
+                                          for p in ps}.values()))
+        for i, _ in self._deferred:
+            check()
+            out[i] = self.engine.diagnose(units[i], healthy_prior=self.hp)
+            step(1)
         return out
 
 

@@ -10,7 +10,8 @@ held in the child), on Linux (where fork is the platform's own way of starting a
 macOS and Windows start a fresh interpreter, whose imports would cost more than the
 fork saves), and not inside a daemonic worker (which may not have children). The
 command line runs single-threaded and forks; the interface builds in a worker thread and
-so uses threads. Results do not depend on which is used.
+so uses threads. Results do not depend on which is used. `start` forks at once and lets
+the caller go on (and start threads of its own) while the workers solve.
 """
 
 from __future__ import annotations
@@ -45,6 +46,52 @@ def fork_in_child() -> bool:
     """Whether a fresh process started from here could fork worker processes where this
     one may not (on Linux, from a process that runs other threads)."""
     return _linux_parent() and threading.active_count() > 1
+
+
+class Later:
+    """A result being worked out: `get()` waits for it (once), `cancel()` drops it."""
+
+    def __init__(self, get: Callable[[], Any], cancel: Callable[[], None] = lambda: None):
+        self._get, self.cancel = get, cancel
+
+    def get(self) -> Any:
+        return self._get()
+
+    def then(self, f: Callable[[Any], Any]) -> Later:
+        """The result f(this one's), cancelled with this one."""
+        return Later(lambda: f(self.get()), self.cancel)
+
+
+def start(job: Callable[[int], Any], n: int, workers: int,
+          processes: bool | None = None) -> Later:
+    """`run` begun now: its list from the `Later` returned. Where the blocks go to
+    forked processes (`processes` None: where `forkable`), they are forked here and
+    work while the caller goes on, which may then start threads of its own: the fork
+    is behind it. Elsewhere `get()` runs them all."""
+    workers = max(1, min(workers, n))
+    if processes is None:
+        processes = forkable()
+    if not processes or workers == 1:
+        return Later(lambda: run(job, n, workers, processes=processes))
+    global _JOB
+    _JOB = job
+    try:
+        pool = multiprocessing.get_context("fork").Pool(workers)  # forks the workers now
+    finally:
+        _JOB = None  # each worker holds its own copy from the fork
+    pending = pool.map_async(_call, range(n), chunksize=1)
+
+    def stop() -> None:
+        pool.terminate()
+        pool.join()
+
+    def get() -> list[Any]:
+        try:
+            return list(pending.get())
+        finally:
+            stop()
+
+    return Later(get, stop)
 
 
 def run(job: Callable[[int], Any], n: int, workers: int,
