@@ -480,8 +480,8 @@ def markdown(scores: list[UnitScore]) -> str:
 def failures(scores: list[UnitScore], n: int = 40) -> str:
     """The misses, for the engine engineer: modelled units whose truth's group was not
     ranked first, confident wrong answers, false alarms and unflagged unmodelled units."""
-    out = ["| case | unit | set | truth | top suspect (p) | truth group p | fits | why listed |",
-           "|---|---|---|---|---|---|---|---|"]
+    out = ["| case | unit | set | truth | top suspect (p) | its group p | truth group p | fits "
+           "| why listed |", "|---|---|---|---|---|---|---|---|---|"]
     k = 0
     for s in scores:
         why = []
@@ -500,9 +500,9 @@ def failures(scores: list[UnitScore], n: int = 40) -> str:
         if k > n:
             continue
         out.append(f"| {s.case} | {s.unit} | {s.set} | {s.truth} | {s.top} ({s.top_p:.2f}) "
-                   f"| {s.truth_p:.2f} | {s.fits} | {', '.join(why)} |")
+                   f"| {s.top_group_p:.2f} | {s.truth_p:.2f} | {s.fits} | {', '.join(why)} |")
     if k > n:
-        out.append(f"| … {k - n} more | | | | | | | |")
+        out.append(f"| … {k - n} more | | | | | | | | |")
     return "\n".join(out) + "\n"
 
 

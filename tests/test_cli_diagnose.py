@@ -147,3 +147,15 @@ def test_faults_lists_every_hypothesis_and_groups(capsys):
         assert len(g["members"]) > 1 and g["split_by"]
     rc, out, _ = run(["faults", RELAY, "--draws", "32"], capsys)
     assert rc == 0 and "R1:open" in out
+
+
+@pytest.mark.parametrize("command", [
+    ["simulate", RELAY, "--fault", "healthy"], ["diagnose", RELAY, "x.csv"],
+    ["faults", RELAY], ["triage", RELAY, "x.csv"], ["drill", RELAY], ["check", RELAY]])
+def test_a_negative_seed_is_a_usage_error(command, capsys):
+    # our own rule: a seed is a whole number, 0 or more; anything else is refused with
+    # argparse's usage message (exit status 2), not a traceback from the random generator
+    with pytest.raises(SystemExit) as stop:
+        main([*command, "--seed", "-1"])
+    assert stop.value.code == 2
+    assert "--seed: must be 0 or more" in capsys.readouterr().err

@@ -105,6 +105,28 @@ def test_pick_fault_follows_the_priors(engine):
         assert abs(share - p) <= 5 * np.sqrt(p * (1 - p) / n) + 1 / n, h.id
 
 
+def test_a_drill_draws_no_fault_that_reads_like_a_good_unit(engine, tmp_path):
+    # our own rule (pick_fault's `visible`): a fault in the good unit's group shows on no
+    # offered reading, so a drill could only be won on it by guessing; drawn faults leave
+    # that group out. Named "healthy" for such a fault given on purpose (--fault), the
+    # score says how far the readings go instead of "found the fault".
+    from diag.core.drill import _group_of
+
+    group = _group_of(engine)
+    hidden = [f for f, g in group.items() if g == group["healthy"] and f != "healthy"]
+    assert hidden  # sounder-driver has such faults (an open bypass capacitor among them)
+    rng = np.random.default_rng(8)
+    draws = {pick_fault(engine, rng, visible=True) for _ in range(3000)}
+    assert not draws & set(hidden) and "healthy" not in draws
+    drill = Drill([Exercise(str(CASE), hidden[0], 5, "unseen")], lambda p: engine,
+                  trainee="ana", results=str(tmp_path / "class.csv"), clock=Clock())
+    drill.round.read("TP2", "dc")
+    score = drill.name("healthy").score
+    assert score.correct and score.same_group
+    assert score.breakdown()[0][0].startswith(
+        f"found as far as the offered readings go: {hidden[0]} reads like a good unit")
+
+
 def test_scripted_drill_right_answer(engine, tmp_path):
     clock = Clock()
     results = tmp_path / "class.csv"

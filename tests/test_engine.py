@@ -209,6 +209,25 @@ def test_a_supply_reading_at_its_current_limit_gets_a_note():
     assert "current limit" not in said(0.027) + said(0.2)
 
 
+def test_no_saturation_note_on_a_collapsed_rail():
+    """lamp-switch's Q1 (collector c1, emitter at ground) reading 0.1 V collector to
+    emitter is saturated while the 12 V rail stands; with the rail itself read at 0.4 V
+    (a supply at its limit, or dead) every node sits that low and the small voltage says
+    nothing of Q1 (rules/checks.yaml `live_rail`; common practice, no source)."""
+    from diag.core import notes
+    from diag.core.rules import load_rules
+
+    case = load_case(str(cases_dir() / "lamp-switch.yaml"))
+    rules = load_rules()
+
+    def said(rail):
+        return " ".join(notes.bench_notes(case, rules, [Reading("TP2", "dc", rail),
+                                                        Reading("TP4", "dc", 0.1)]))
+
+    assert "Q1: collector-emitter reads 0.1 V: saturated" in said(12.0)
+    assert "saturated" not in said(0.4)
+
+
 def test_junction_notes_follow_the_transistor_s_material():
     """A germanium card (tests/data/ge-pnp-stage.yaml, IS 0.3 µA) drops
     VT ln(1 + 1 mA / 0.3 µA) = 0.21 V at 1 mA (Shockley diode law, handbook; VT from
@@ -365,6 +384,9 @@ def test_a_reading_that_does_not_fit_is_named(eng):
     d = eng.diagnose(unit)
     assert d.extra["odd_readings"] == ["TP4 dc"]  # the slipped probe above
     assert "TP4 dc does not fit" in d.fit_text
+    # where to look: the parts at the node that reads off, not the closest suspect's
+    near = [p.ref for p in eng.case.parts if eng.case.point("TP4").node in p.nodes]
+    assert f"the parts at the readings that fit least ({', '.join(near)})" in d.fit_text
     clean = eng.diagnose(eng.simulate("K1:open", np.random.default_rng(5)))
     assert clean.extra["odd_readings"] == []
     # `fits` means explained without a slip (faults.yaml fit_blunders: false), and a slip
@@ -907,6 +929,11 @@ def test_a_reading_with_its_sign_turned_is_named_as_probes_reversed(fused_case, 
     assert not d.fits
     assert "probes the wrong way round? Take TP4 again, red probe on base, black on emit" \
         in d.fit_text
+    # the mis-taken reading explains it all: no hunt for a fault outside the model
+    assert "outside the model" not in d.fit_text and "retake that reading" in d.fit_text
+    from diag.commands.diagnose import format_text
+
+    assert "ONE READING LOOKS MIS-TAKEN" in format_text(eng.case, d, 5)
     assert "probes" not in eng.diagnose(list(unit.values())).fit_text
 
 

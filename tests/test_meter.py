@@ -268,6 +268,9 @@ def test_ac_display_never_shows_below_zero():
     (12.6, "12.60"),      # 20 V range, 10 mV a count: the display shows 12.60
     (float("inf"), "OL"),
     (float("-inf"), "-OL"),
+    (-0.00001, "0.0000"),  # rounds to zero: written without a sign (our own rule)
+    (-0.0, "0.0000"),
+    (-0.02, "-0.0200"),
 ])
 def test_display_number_has_the_digits_of_the_range(value, text):
     # what `diag simulate` writes: the number the 3½-digit display shows, in volts

@@ -37,6 +37,26 @@ def test_kind_column(case):
                    ("TP7", "dc"): pytest.approx(6.4)}
 
 
+def test_values_written_with_their_kind_notes_columns_and_short_rows(case):
+    # our own rules (readings module docstring): what a technician's sheet carries beside
+    # the SPEC's columns is read, not refused
+    rf = readings.parse_text("point,kind,value,notes\nTP3,ac,70 mV rms,at 1 kHz\n"
+                             "TP2,,11.9 V dc,\n", case)
+    got = {(r.point, r.kind): r.value for r in rf.single()}
+    assert got == {("TP3", "ac"): pytest.approx(0.07), ("TP2", "dc"): pytest.approx(11.9)}
+    rf = readings.parse_text("point,value\nTP3,0.07Vrms\nTP3,1.19\n", case)
+    assert {(r.point, r.kind) for r in rf.single()} == {("TP3", "ac"), ("TP3", "dc")}
+    rf = readings.parse_text("point,kind,value\nTP2,11.9\nTP3,ac,70m\n", case)
+    assert {(r.point, r.kind) for r in rf.single()} == {("TP2", "dc"), ("TP3", "ac")}
+    # a value whose kind contradicts its row is refused, the rest kept
+    rf = readings.parse_text("point,kind,value\nTP3,dc,70 mV rms\nTP2,dc,11.9\n", case)
+    assert len(rf.errors) == 1 and "the reading's kind is dc" in str(rf.errors[0])
+    assert [r.point for r in rf.single()] == ["TP2"]
+    # a column that is neither a reading's nor free text is named, not guessed at
+    with pytest.raises(DiagError, match="unknown column 'knid'"):
+        readings.parse_text("point,knid,value\nTP3,ac,70m\n", case)
+
+
 def test_header_only_is_valid(case):
     rf = readings.parse_text("point,value\n", case)
     assert rf.single() == () and not rf.errors
@@ -95,6 +115,23 @@ def test_a_supply_current_above_its_limit_is_refused(case):
     assert readings.check_value(case, "TP1", "dc", "262m") == pytest.approx(0.262)
     with pytest.raises(DiagError):
         readings.check_value(case, "TP1", "dc", "0.3")
+
+
+def test_a_bare_number_past_the_supplies_suggests_the_milli_prefix(case):
+    """A meter on a mA or mV range shows "27.0" with the prefix beside the digits; typed
+    bare it reads as amperes or volts. Past what the supplies can produce, the refusal
+    says how to type it, where the milli value fits (our own rule); a value typed with a
+    unit, or one that fits in no unit, gets the plain range."""
+    with pytest.raises(DiagError) as err:
+        readings.check_value(case, "TP1", "dc", "27")
+    assert "27 mA" in err.value.hint and "27m" in err.value.hint
+    with pytest.raises(DiagError) as err:
+        readings.check_value(case, "TP3", "dc", "312")
+    assert "312 mV" in err.value.hint
+    for typed in ("312 V", "99999"):
+        with pytest.raises(DiagError) as err:
+            readings.check_value(case, "TP3", "dc", typed)
+        assert "prefix" not in err.value.hint
 
 
 def test_missing_header_and_empty(case):

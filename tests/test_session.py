@@ -138,6 +138,7 @@ def test_cautions_file_has_every_required_topic():
 def test_report_holds_case_readings_ranking_notes_cautions(case, diag_home, tmp_path):
     s = new_session(case)
     s.set_reading(Reading(case.points[0].id, "dc", 1.5))
+    s.set_reading(Reading(case.points[1].id, "dc", 0.00421))
     s.notes = "unit came back twice | odd"
     d = Diagnosis(readings_used=1, fits=False,
                   suspects=(Suspect("R2:open", 0.8, 0, "R2 open"),
@@ -151,6 +152,8 @@ def test_report_holds_case_readings_ranking_notes_cautions(case, diag_home, tmp_
     back = out.read_text(encoding="utf-8")
     assert case.title in back and case.hash in back
     assert f"| {case.points[0].id} | dc |" in back and s.readings[0].time in back
+    # readings with the prefix the interface shows, to four figures (our own rule)
+    assert f"| {case.points[1].id} | dc | 4.21 m" in back
     assert "`R2:open` | 0.800" in back
     assert "outside the model" in back
     assert "Next reading: **TP3 dc**" in back

@@ -215,6 +215,9 @@ async def test_batch_screen_browses_and_opens_a_unit(engine):
         await pilot.press("f")  # filter: units with a fault found
         assert screen.filter == "fault"
         assert table.row_count == sum(u.status == "fault" for u in res.units)
+        await pilot.press("f")  # filter: undecided (no fault more likely than not)
+        assert screen.filter == "undecided"
+        assert table.row_count == sum(u.status == "undecided" for u in res.units)
         for _ in range(3):
             await pilot.press("f")
         assert screen.filter == "incomplete" and table.row_count == 1

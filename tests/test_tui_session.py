@@ -249,6 +249,44 @@ async def test_resume_after_kill_between_two_readings(diag_home):
 
 
 @sync
+async def test_a_resumed_session_types_on_where_readings_are_missing(diag_home):
+    # our own interface rule: resumed, the cursor waits on the first point not yet read,
+    # and after each reading it moves on to the next one not read, so a burst of typing
+    # never writes over a reading taken in the earlier session
+    app = DiagApp(case_path=CASE)
+    async with app.run_test(size=(120, 40)) as pilot:
+        screen = await _open(pilot)
+        _, _, unit = _unit(screen)
+        obs = screen.case.observables
+        values = {(r.point, r.kind): value_text(r.value) for r in unit}
+        table = screen.query_one(PointsTable)
+        for row in (0, 2):
+            table.move_cursor(row=row, animate=False)
+            await pilot.pause()
+            _burst(app, values[(obs[row].point, obs[row].kind)] + "\r")
+            await settle(pilot)
+        assert [x is not None for x in _taken(screen, 4)] == [True, False, True, False]
+        kept = _taken(screen, 3)
+    app2 = DiagApp(case_path=CASE)
+    async with app2.run_test(size=(120, 40)) as pilot:
+        await settle(pilot)
+        assert isinstance(app2.screen, ResumeDialog)
+        from textual.widgets import Static
+
+        said = " ".join(str(w.content) for w in app2.screen.query(Static))
+        assert load_case(CASE).title in said  # the picker shows behind: name the case
+        await pilot.press("y")
+        screen = await _open(pilot)
+        table = screen.query_one(PointsTable)
+        assert table.cursor_row == 1
+        _burst(app2, values[(obs[1].point, obs[1].kind)] + "\r")
+        await settle(pilot)
+        assert table.cursor_row == 3                      # past row 2, read already
+        got = _taken(screen, 3)
+        assert got[0] == kept[0] and got[2] == kept[2] and got[1] is not None
+
+
+@sync
 async def test_session_file_given_on_the_command_line(diag_home, tmp_path):
     case = load_case(CASE)
     from diag.core.engine import Reading

@@ -13,25 +13,16 @@ import textwrap
 
 import numpy as np
 
+from diag.commands import count
 from diag.core.errors import DiagError
-
-
-def _count(text: str) -> int:
-    try:
-        n = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
-    if n < 0:
-        raise argparse.ArgumentTypeError("must be 0 or more")
-    return n
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("case", metavar="CASE", help="case file (YAML, SPEC section 1)")
     p.add_argument("--json", action="store_true", help="print the result as JSON")
-    p.add_argument("--draws", type=_count, default=400, metavar="N",
+    p.add_argument("--draws", type=count, default=400, metavar="N",
                    help="healthy units drawn within tolerance for the bands (default 400)")
-    p.add_argument("--seed", type=_count, default=0, metavar="N",
+    p.add_argument("--seed", type=count, default=0, metavar="N",
                    help="seed of the tolerance draws (default 0)")
 
 

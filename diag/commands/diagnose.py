@@ -6,6 +6,8 @@ from __future__ import annotations
 import json
 import sys
 
+from diag.commands import count
+
 
 def add_arguments(p) -> None:
     p.add_argument("case", metavar="CASE", help="case file (cases/*.yaml)")
@@ -17,7 +19,7 @@ def add_arguments(p) -> None:
                    help="prior probability that the unit is healthy (default 0.02)")
     p.add_argument("--draws", type=int, default=128, metavar="K",
                    help="drawn units per hypothesis (default 128)")
-    p.add_argument("--seed", type=int, default=0, metavar="N", help="random seed (default 0)")
+    p.add_argument("--seed", type=count, default=0, metavar="N", help="random seed (default 0)")
 
 
 def _usage_checks(args) -> str | None:
@@ -62,7 +64,10 @@ def format_text(case, d, top: int, rejected=()) -> str:
     from diag.core.advise import SHOWN_BITS, format_bits
 
     lines = [f"{case.title}  ({case.path})", f"Readings used: {d.readings_used}", ""]
-    if not d.fits:
+    if not d.fits and d.extra.get("unit_slips"):
+        lines += ["*** AS TYPED, NO MODELLED FAULT FITS: ONE READING LOOKS MIS-TAKEN ***",
+                  d.fit_text, ""]
+    elif not d.fits:
         lines += ["*** NO MODELLED FAULT FITS THESE READINGS ***", d.fit_text, ""]
     else:
         lines += [d.fit_text, ""]

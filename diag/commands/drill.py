@@ -11,12 +11,14 @@ from __future__ import annotations
 import argparse
 import sys
 
+from diag.commands import count
+
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("case", nargs="?", metavar="CASE",
                    help="case file (or bundled case name); optional with --exercises/--summary")
     p.add_argument("--fault", metavar="ID", help="hidden fault id (default: drawn by priors)")
-    p.add_argument("--seed", type=int, metavar="N", help="seed of the drawn unit (replayable)")
+    p.add_argument("--seed", type=count, metavar="N", help="seed of the drawn unit (replayable)")
     p.add_argument("--hints", action="store_true",
                    help="let the trainee see diag's ranking while the drill runs")
     p.add_argument("--trainee", metavar="NAME", default="", help="name written to --results")

@@ -5,13 +5,15 @@ from __future__ import annotations
 
 import json
 
+from diag.commands import count
+
 
 def add_arguments(p) -> None:
     p.add_argument("case", metavar="CASE", help="case file (cases/*.yaml)")
     p.add_argument("--json", action="store_true", help="print JSON")
     p.add_argument("--draws", type=int, default=128, metavar="K",
                    help="drawn units per hypothesis (default 128)")
-    p.add_argument("--seed", type=int, default=0, metavar="N", help="random seed (default 0)")
+    p.add_argument("--seed", type=count, default=0, metavar="N", help="random seed (default 0)")
 
 
 def run(args) -> int:

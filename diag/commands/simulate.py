@@ -5,12 +5,14 @@ from __future__ import annotations
 
 import numpy as np
 
+from diag.commands import count
+
 
 def add_arguments(p) -> None:
     p.add_argument("case", metavar="CASE", help="case file (cases/*.yaml)")
     p.add_argument("--fault", required=True, metavar="ID",
                    help="fault id such as R2:open, Q3:ce-short+R9:open, or healthy")
-    p.add_argument("--seed", type=int, default=None, metavar="N",
+    p.add_argument("--seed", type=count, default=None, metavar="N",
                    help="random seed (default: a fresh unit each run)")
 
 

@@ -19,6 +19,8 @@ import json
 import sys
 from pathlib import Path
 
+from diag.commands import count
+
 # Batches with at least this many units get a progress bar (on a terminal only).
 PROGRESS_MIN_UNITS = 200
 
@@ -36,7 +38,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="prior probability that a unit is healthy")
     p.add_argument("--draws", type=int, default=128, metavar="K",
                    help="drawn units per hypothesis in the predictions (default 128)")
-    p.add_argument("--seed", type=int, default=0, metavar="N", help="seed of the predictions")
+    p.add_argument("--seed", type=count, default=0, metavar="N", help="seed of the predictions")
     p.add_argument("--browse", action="store_true",
                    help="open the triaged batch in the interface")
     p.set_defaults(_parser=p)

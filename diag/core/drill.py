@@ -262,9 +262,13 @@ class Score:
         par = (f", cost {self.advice_cost:.1f}"
                if abs(self.advice_cost - self.advice_readings) > 1e-9 else "")
         wrong = ", ".join(w.fault for w in self.wrong)
+        if found and self.named == "healthy" and self.truth != "healthy":
+            head = (f"found as far as the offered readings go: {self.truth} reads like a "
+                    "good unit at every point offered")
+        else:
+            head = "found the fault" if found else f"not found ({STATUS_WORDS[self.status]})"
         return (
-            ("found the fault" if found else f"not found ({STATUS_WORDS[self.status]})",
-             pts.found),
+            (head, pts.found),
             (f"readings: {self.readings_used} taken{cost}; an efficient search (diag's "
              f"advice) needed {self.advice_readings:.1f}{par}; {POINTS_PER_EXTRA_COST} "
              f"per unit of cost beyond it, at most {READING_PENALTY_MAX}",
@@ -329,9 +333,15 @@ def fault_family(case: Case, fault_id: str) -> tuple[str, str]:
     return family, cls
 
 
-def pick_fault(engine: Engine, rng: np.random.Generator) -> str:
-    """A fault id drawn by the hypotheses' priors (`healthy` excluded)."""
+def pick_fault(engine: Engine, rng: np.random.Generator, visible: bool = False) -> str:
+    """A fault id drawn by the hypotheses' priors (`healthy` excluded). With `visible`,
+    none of the healthy unit's group either: no offered reading shows those faults, so a
+    drill could only be won on them by guessing (unless every fault is in it)."""
     hyps = [h for h in engine.ensemble.hypotheses if h.id != "healthy"]
+    if visible:
+        group = _group_of(engine)
+        seen = [h for h in hyps if group[h.id] != group.get("healthy")]
+        hyps = seen or hyps
     if not hyps:
         raise DiagError("the case has no fault hypotheses to drill", file=engine.case.path,
                         hint="check rules/faults.yaml covers the case's part kinds")
@@ -476,7 +486,7 @@ class Round:
         seed = exercise.seed if exercise.seed is not None else secrets.randbelow(2**31)
         rng = np.random.default_rng(seed)
         groups = _group_of(engine)
-        truth = exercise.fault or pick_fault(engine, rng)
+        truth = exercise.fault or pick_fault(engine, rng, visible=True)
         if truth not in groups:
             raise DiagError(f"unknown fault {truth!r}", file=engine.case.path,
                             hint="list the case's faults with `diag faults CASE`")

@@ -1088,16 +1088,12 @@ class Engine:
             nts = (self.signal_warning(), *nts)
         if self.stability_warning():
             nts = (self.stability_warning(), *nts)
-        fit_text = self._fit_text(fits, pval, len(idx), specs[order[0]], pairs_tried)
         odd = self._odd_readings(U, specs, order[0], idx, u_read)
         slips = [] if fits else self._unit_slips(U, specs, idx, vals, hp, alpha)
-        if slips:  # one reading read with the wrong unit: name it, not the others
+        if slips:  # one reading mis-taken explains it all: name it, not the others
             odd = []
-            fit_text = " ".join(slips) + " " + fit_text
-        if odd:
-            fit_text += (f" {', '.join(odd)} {'does' if len(odd) == 1 else 'do'} not fit the "
-                         f"leading suspect: a slip of the probe or range, or a fault outside "
-                         f"the model; take {'it' if len(odd) == 1 else 'them'} again.")
+        fit_text = self._verdict(fits, pval, len(idx), specs[order[0]], pairs_tried, odd,
+                                 slips)
         confirm = {specs[h].id: specs[h].confirm for h in order[:5]}
         healthy_fits = bool(fits and len(idx) and healthy_leads(suspects)) and \
             self.fit_p(U, ids_index(specs, "healthy"), idx, u_read, specs=specs) >= alpha
@@ -1226,7 +1222,35 @@ class Engine:
 
         return lambda v: float(meter.accuracy(v, "dc", self.case.meter, "V"))
 
-    def _fit_text(self, fits, pval, n, best, pairs_tried) -> str:
+    def _parts_near(self, odd: Sequence[str]) -> list[str]:
+        """Parts at the nodes of the readings named in `odd` ("TP7 dc"), in case order:
+        where to look when those readings fit nothing."""
+        nodes = set()
+        for text in odd:
+            pt = self.case.point(text.split(" ")[0])
+            nodes |= {n for n in (pt.node, pt.minus) if n and n != self.case.ground}
+            if pt.supply:
+                nodes.add(self.case.part(pt.supply).nodes[0])
+        return [p.ref for p in self.case.parts if nodes & set(p.nodes)]
+
+    def _verdict(self, fits, pval, n, best, pairs_tried, odd, slips=()) -> str:
+        """The fit text of a diagnosis (`Diagnosis.fit_text`): `_fit_text`, the readings
+        that fit the leader only as slips (`odd`, "TP5 dc") named after it, or, where
+        one reading mis-taken explains it all (`slips`, `_unit_slips`' sentences), those
+        before the verdict as typed."""
+        if slips:
+            return " ".join(slips) + (
+                " As typed, no modelled fault explains these readings (goodness of fit p = "
+                f"{pval:.3f}); retake {'that reading' if len(slips) == 1 else 'those'} "
+                "before looking further.")
+        text = self._fit_text(fits, pval, n, best, pairs_tried, self._parts_near(odd))
+        if odd:
+            text += (f" {', '.join(odd)} {'does' if len(odd) == 1 else 'do'} not fit the "
+                     f"leading suspect: a slip of the probe or range, or a fault outside "
+                     f"the model; take {'it' if len(odd) == 1 else 'them'} again.")
+        return text
+
+    def _fit_text(self, fits, pval, n, best, pairs_tried, near=()) -> str:
         if n == 0:
             return "No readings yet: the ranking is the prior (how often each part fails)."
         if fits and pairs_tried:
@@ -1238,12 +1262,13 @@ class Engine:
                     f"{pval:.2f}).")
         tried = " Pairs of faults among the leading suspects were tried too." if pairs_tried \
             else ""
+        where = (f"the parts at the readings that fit least ({', '.join(near)})" if near
+                 else f"the parts the closest suspect names ({', '.join(best.parts) or 'none'})")
         return ("No modelled fault explains these readings (goodness of fit p = "
                 f"{pval:.3f}).{tried} The fault is likely outside the model: check for a "
                 "wrong part fitted, a solder bridge between neighbouring pads, a transistor "
                 "fitted the wrong way round, or a second fault; re-take any reading that "
-                "looks odd, and inspect the board around the parts the closest suspect "
-                f"names ({', '.join(best.parts) or 'none'}).")
+                f"looks odd, and inspect the board around {where}.")
 
     def _advise(self, U, specs, sc, idx, order, group, u_read) -> list[NextReading]:
         """Next readings by expected gain per cost (advise.gains) over every drawn unit

@@ -81,7 +81,8 @@ def display_number(value: float, meter: Mapping[str, Any], unit: str) -> str:
         return ("-" if value < 0 else "") + "OL"
     q = float(resolution(np.array([value]), meter, unit)[0])
     digits = max(0, -math.floor(math.log10(q) + 1e-9))
-    return f"{value:.{digits}f}"
+    text = f"{value:.{digits}f}"
+    return text.lstrip("-") if float(text) == 0.0 else text  # no "-0.000" in a file
 
 
 def display_text(value: float, kind: str, unit: str, meter: Mapping[str, Any]) -> str:

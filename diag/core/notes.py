@@ -191,6 +191,16 @@ def _across(v: dict[str, float], direct: dict[tuple[str, str], float], n1: str, 
     return v[n1] - v[n2], sum(a(abs(v[n])) for n in used), len(used)
 
 
+def _least_rail(rails, v: dict[str, float]) -> float:
+    """The smallest voltage across any supply (volts, magnitude): read across its two
+    terminals where both nodes are read (ground reads 0 V), else its setting."""
+    out = math.inf
+    for sp in rails:
+        a, b = (v.get(n) for n in sp.nodes[:2])
+        out = min(out, abs(a - b) if a is not None and b is not None else abs(sp.value or 0))
+    return out
+
+
 def _round_up(err: float) -> float:
     """A meter bound rounded up to two significant figures."""
     if err <= 0:
@@ -229,6 +239,8 @@ def _notes(checks, rails, fixed, v: dict[str, float], meter_accuracy, ground: st
                 continue
             out.append(chk["text"].format(ref=part.ref, kind=part.kind, rail=rail_name,
                                           v=format_value(v[n1], "V")))
+            continue
+        if chk.get("live_rail") is not None and _least_rail(rails, v) < chk["live_rail"]:
             continue
         got = _across(v, direct, n1, n2, meter_accuracy, ground)
         if got is None:

@@ -10,6 +10,12 @@ A spreadsheet set to a language that writes a decimal comma saves its CSV with
 semicolons between the fields (common practice, no source); a file whose first line
 splits on semicolons (or tabs) and holds no comma is read that way, and a value there may
 carry a decimal comma (`5,47`).
+
+As technicians write them: a value may end in `rms`, `ac` or `dc` (`0.72 Vrms`,
+`72 mV AC`), which gives the reading's kind where the row gives none (and must agree
+with it where it does); a free-text column (`notes`, `comment`, `time`, ...:
+FREE_COLUMNS) is ignored; a row one field short under a header with `kind` is read
+without it (a DC reading).
 """
 
 from __future__ import annotations
@@ -29,6 +35,11 @@ from diag.core.rules import load_rules
 from diag.core.values import format_value, parse_value
 
 HEADER_WORDS = ("unit", "point", "kind", "value")
+# Columns a technician's sheet may carry beside the readings; read past, never used.
+FREE_COLUMNS = ("note", "notes", "comment", "comments", "remark", "remarks", "time",
+                "date", "tech", "technician", "by")
+# A kind written after the value: "0.72 Vrms", "72 mV AC", "5.1 V dc".
+_KIND_SUFFIX = re.compile(r"^(.*?\S)\s*(rms|ac|dc)\s*$", re.IGNORECASE)
 _DECIMAL_COMMA = re.compile(r"^\s*[+-]?\d*,\d+(?:[eE][+-]?\d+)?\s*[^\d,.]*$")
 
 
@@ -150,6 +161,12 @@ def point_of(case: Case, text) -> Point | None:
         return same[0] if len(same) == 1 else None
 
 
+def _said_kind(text) -> str | None:
+    """The kind a value names after itself ("0.72 Vrms": ac), or None."""
+    m = _KIND_SUFFIX.match(str(text).strip())
+    return None if m is None else "dc" if m.group(2).lower() == "dc" else "ac"
+
+
 def check_value(case: Case, point: str, kind: str, text, lim=None, *, file=None,
                 row=None) -> float:
     """Validate one reading typed or read from a file; return the value in volts
@@ -169,6 +186,13 @@ def check_value(case: Case, point: str, kind: str, text, lim=None, *, file=None,
         raise DiagError(f"{pt.id} {kind}: the meter showed OL (over range), and diag needs "
                         "a number", file=file, line=row, where=where,
                         hint=_over_range_hint(case, unit, hi))
+    said = _said_kind(text)
+    if said is not None:
+        if said != kind:
+            raise DiagError(f"{pt.id}: the value says {said} ({str(text).strip()}) but the "
+                            f"reading's kind is {kind}", file=file, line=row, where=where,
+                            hint="give the kind once, in the kind column or after the value")
+        text = _KIND_SUFFIX.match(str(text).strip()).group(1)
     try:
         value = parse_value(text, unit)
     except ValueError as exc:
@@ -180,10 +204,15 @@ def check_value(case: Case, point: str, kind: str, text, lim=None, *, file=None,
         else:
             why = ("above anything the supplies can produce: wrong range, wrong point or "
                    "a typing slip?")
+        hint = (f"this point can read from {format_value(lo, unit)} to "
+                f"{format_value(hi, unit)}; take it again")
+        bare = not re.search(r"[a-zA-Zµ]", str(text))
+        if value > hi and bare and lo <= value * 1e-3 <= hi:  # a display in m-units
+            milli = format_value(value * 1e-3, unit)
+            hint = (f"if the meter showed {str(text).strip()} m{unit}, type it with its "
+                    f"prefix ({str(text).strip()}m, read as {milli}); else {hint}")
         raise DiagError(f"{pt.id} {kind} reading {format_value(value, unit)} is {why}",
-                        file=file, line=row, where=where,
-                        hint=f"this point can read from {format_value(lo, unit)} to "
-                        f"{format_value(hi, unit)}; take it again")
+                        file=file, line=row, where=where, hint=hint)
     return value
 
 
@@ -205,7 +234,12 @@ def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> R
             continue
         if cols is None:
             low = [c.lower() for c in cells]
-            if "point" in low and "value" in low and set(low) <= set(HEADER_WORDS):
+            if "point" in low and "value" in low:
+                odd = [c for c in low if c not in HEADER_WORDS + FREE_COLUMNS]
+                if odd:
+                    raise DiagError(f"unknown column {odd[0]!r} in the header", file=file,
+                                    line=i, hint="columns: " + ", ".join(HEADER_WORDS)
+                                    + " (and notes, ignored)")
                 cols = low
                 batch = "unit" in cols
                 continue
@@ -220,6 +254,8 @@ def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> R
             col = cols.index("unit")
             if col < len(cells) and cells[col] and (col == 0 or len(cells) == len(cols)):
                 row_units[i] = cells[col]
+        if len(cells) == len(cols) - 1 and "kind" in cols and "" not in cells:
+            cells.insert(cols.index("kind"), "")  # no kind given: a DC reading
         if len(cells) != len(cols):
             comma = (len(cells) == len(cols) + 1 and cells[-2].lstrip("+-").isdigit()
                      and cells[-1][:1].isdigit())
@@ -237,7 +273,7 @@ def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> R
             errors.append(DiagError("no unit name", file=file, line=i, where=f"row {i}",
                                     hint="every batch row starts with the unit's name"))
             continue
-        kind = (rec.get("kind") or "dc").lower()
+        kind = (rec.get("kind") or _said_kind(rec["value"]) or "dc").lower()
         try:
             value = check_value(case, rec["point"], kind, rec["value"], lim, file=file, row=i)
         except DiagError as exc:

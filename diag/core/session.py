@@ -26,6 +26,7 @@ from diag.core import paths
 from diag.core.advise import format_bits
 from diag.core.engine import Band, Diagnosis, Reading
 from diag.core.errors import DiagError
+from diag.core.values import format_value
 
 FORMAT = 1
 
@@ -291,10 +292,11 @@ def report_markdown(case, session: Session, diagnosis: Diagnosis | None,
     """The Markdown report of a session: case, readings with time, ranking, next reading,
     bench notes, the session's own notes and the safety cautions.
 
-    `fmt(value, unit) -> str` formats values (default: 4 significant figures + unit)."""
+    `fmt(value, unit) -> str` formats values (default: 4 significant figures, with the
+    prefix the interface shows them with)."""
     if fmt is None:
         def fmt(x: float, unit: str) -> str:
-            return f"{x:.4g} {unit}"
+            return format_value(x, unit, digits=4)
     units = {o.point: o.unit for o in case.observables}
     lines = [f"# Bench report: {_md(case.title)}", "",
              f"- case file: `{case.path}` (content {case.hash})",

@@ -135,13 +135,23 @@ def refused_rows(errors: Sequence[DiagError | RefusedRow | str],
     return tuple(sorted(out, key=lambda r: (r.row is None, r.row or 0)))
 
 
+# A unit's leading group must hold more than this p for its fault to count as found:
+# below, no fault is more likely than not (a unit with a reading or two), and the unit
+# is `undecided` until its next reading is taken.
+FOUND_P = 0.5
+
+
 def _status(d: Diagnosis) -> str:
     """`no-fit` when no hypothesis explains the readings; `healthy` when the leading
     suspect is the healthy circuit or one the readings cannot tell from it (same group);
-    `fault` otherwise."""
+    `undecided` when the leading group holds no more than FOUND_P; `fault` otherwise."""
     if not d.fits:
         return "no-fit"
-    return "healthy" if d.reads_healthy() else "fault"
+    if d.reads_healthy():
+        return "healthy"
+    top = d.suspects[0].group if d.suspects else None
+    lead = sum(s.p for s in d.suspects if s.group == top)
+    return "fault" if lead > FOUND_P else "undecided"
 
 
 @contextlib.contextmanager
@@ -460,11 +470,7 @@ class BatchScorer:
                               group, u_read)
         else:
             nxt = []
-        fit_text = eng._fit_text(fits, pval, d, specs[order[0]], False)
-        if odd:  # the sentence Engine.diagnose adds (kept word for word; tests compare)
-            fit_text += (f" {', '.join(odd)} {'does' if len(odd) == 1 else 'do'} not fit the "
-                         f"leading suspect: a slip of the probe or range, or a fault outside "
-                         f"the model; take {'it' if len(odd) == 1 else 'them'} again.")
+        fit_text = eng._verdict(fits, pval, d, specs[order[0]], False, odd)
         confirm = {specs[h].id: specs[h].confirm for h in order[:5]}
         return Diagnosis(d, fits, suspects, tuple(nxt), tuple(nts), fit_text,
                          tuple(rejected), {"p_value": pval, "pairs_tried": False,
@@ -656,13 +662,42 @@ class BatchScorer:
         # pairs of all of them are solved first, at once, from this thread alone (so on
         # forked workers where those are used); each unit then finds its own solved.
         if self._deferred:
-            self.engine._samples_of(list({p.id: p for _, ps in self._deferred
-                                          for p in ps}.values()))
+            self._solve_deferred_pairs(matched)
         for i, _ in self._deferred:
             check()
             out[i] = self.engine.diagnose(units[i], healthy_prior=self.hp)
             step(1)
         return out
+
+
+    def _solve_deferred_pairs(self, matched) -> None:
+        """For the units left to the end (`_deferred`): their pairs of faults solved in
+        one go, then the further units of the pairs that lead any of them (by the K
+        units, as Engine._refine picks them) in a second; each unit's `Engine.diagnose`
+        then finds what it needs solved instead of solving it a pair at a time."""
+        eng, infer = self.engine, self.infer
+        pairs = list({p.id: p for _, ps in self._deferred for p in ps}.values())
+        if not pairs:
+            return
+        Up = dict(zip([p.id for p in pairs], eng._noise_obj.u(eng._samples_of(pairs)),
+                      strict=True))
+        H0, top = len(self.specs), int(eng.inf["refine_top"])
+        lead: dict[str, object] = {}
+        for i, cands in self._deferred:
+            idx, vals, _ = matched[i]
+            if not cands or top <= 0 or not len(idx):
+                continue
+            U2 = np.concatenate([self.U, np.stack([Up[p.id] for p in cands])])
+            specs = self.specs + list(cands)
+            with np.errstate(divide="ignore"):
+                lp = np.log(eng._priors(self.hp, specs))
+            sc = infer.score(U2, idx, eng._noise_obj.u(vals, idx), lp, self.eps, self.W,
+                             eng._spread_for(U2))
+            for h in np.argsort(-(lp + sc.loglik), kind="stable")[:top]:
+                if h >= H0 and np.isfinite(lp[h] + sc.loglik[h]):
+                    lead[specs[h].id] = specs[h]
+        if lead:
+            eng._further_u(list(lead.values()))
 
 
 def triage(engine: Engine, units: Mapping[str, Sequence[Reading]],
@@ -773,6 +808,7 @@ def summarise(res: TriageResult) -> dict[str, Any]:
         "by_part": table(by_part, exp_part, "part"),
         "no_fit": [u.unit for u in res.units if u.status == "no-fit"],
         "healthy": [u.unit for u in res.units if u.status == "healthy"],
+        "undecided": [u.unit for u in res.units if u.status == "undecided"],
         "healthy_lookalikes": [{"fault": f, "expected": round(float(e), 3)}
                                for f, e in sorted(look.items(), key=lambda x: (-x[1], x[0]))
                                if e >= 0.0005],
@@ -834,7 +870,8 @@ def to_json(res: TriageResult, case_path: str, cautions: Sequence[str] = (),
 
 
 # How each status reads in the Markdown report (the JSON keeps the STATUSES words).
-STATUS_TEXT = {"fault": "fault", "healthy": "no fault found", "no-fit": "no fit"}
+STATUS_TEXT = {"fault": "fault", "healthy": "no fault found", "no-fit": "no fit",
+               "undecided": "undecided"}
 # Suspects after the first are listed in the Markdown units table from this p up (below
 # it they would show as 0.00).
 SHOWN_P = 0.005
@@ -880,8 +917,9 @@ def to_markdown(res: TriageResult, case_path: str, cautions: Sequence[str] = (),
     n_ref = s["rows_rejected"]
     w.write(f"# Batch triage: {res.case.title}\n\nCase `{case_path}`: {s['units']} units; "
             f"{s['faulty']} with a fault found, {len(s['no_fit'])} fit no modelled fault, "
-            f"{len(s['healthy'])} with no fault found, {len(s['incomplete'])} with "
-            "readings missing.")
+            f"{len(s['healthy'])} with no fault found, "
+            + (f"{len(s['undecided'])} undecided, " if s["undecided"] else "")
+            + f"{len(s['incomplete'])} with readings missing.")
     if n_ref:
         w.write(f" {_rows_word(n_ref)} of the batch file refused (see Refused rows).")
     w.write("\n\n")
@@ -906,6 +944,10 @@ def to_markdown(res: TriageResult, case_path: str, cautions: Sequence[str] = (),
     if s["no_fit"]:
         w.write("## Send to engineering (no modelled fault fits)\n\n"
                 + _names(s["no_fit"], len(s["no_fit"])) + "\n\n")
+    if s["undecided"]:
+        w.write(f"## Undecided\n\nNo fault is more likely than not (the leading group "
+                f"holds p {FOUND_P:g} or less): take the next reading each unit's row "
+                "shows.\n\n" + _names(s["undecided"], len(s["undecided"])) + "\n\n")
     if s["incomplete"]:
         w.write("## Incomplete readings\n\nThese units lack readings the rest of the "
                 "batch has; taking them makes their ranking surer.\n\n")

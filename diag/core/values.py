@@ -190,8 +190,8 @@ def parse_tol(text: object) -> float:
 _ENG = {-12: "p", -9: "n", -6: "\u00b5", -3: "m", 0: "", 3: "k", 6: "M", 9: "G"}
 
 
-def format_value(x: float, unit: str | None = None) -> str:
-    """Engineering notation to 3 significant figures: 4700, "ohm" -> "4.7 kΩ".
+def format_value(x: float, unit: str | None = None, digits: int = 3) -> str:
+    """Engineering notation to `digits` significant figures: 4700, "ohm" -> "4.7 kΩ".
 
     Prefixes p..G; values from 0.1 to 1 keep no prefix ("-0.65 V"); values outside
     1e-12..1e12 use an exponent ("1.5e-14 A"). `unit` is any spelling `parse_value`
@@ -210,14 +210,14 @@ def format_value(x: float, unit: str | None = None) -> str:
     else:
         power = 3 * math.floor(math.log10(ax) / 3)
     if power not in _ENG:
-        return f"{x:.3g}{sep}{sym}"
-    mant = float(f"{x / 10.0 ** power:.3g}")
+        return f"{x:.{digits}g}{sep}{sym}"
+    mant = float(f"{x / 10.0 ** power:.{digits}g}")
     if abs(mant) >= 1000.0:  # 999.6 rounds to 1000: move up one prefix
         power += 3
         if power not in _ENG:
-            return f"{x:.3g}{sep}{sym}"
-        mant = float(f"{x / 10.0 ** power:.3g}")
-    text = f"{mant:.3g}"
+            return f"{x:.{digits}g}{sep}{sym}"
+        mant = float(f"{x / 10.0 ** power:.{digits}g}")
+    text = f"{mant:.{digits}g}"
     pre = _ENG[power]
     if not sym:
         return f"{text}{pre}"

@@ -136,7 +136,7 @@ class DiagApp(App[None]):
         def chosen(resume: bool | None) -> None:
             self.push_screen(SessionScreen(engine, session=old if resume else None))
 
-        self.push_screen(ResumeDialog(old), chosen)
+        self.push_screen(ResumeDialog(old, case.title), chosen)
 
     # ------------------------------------------------------------------ actions
 

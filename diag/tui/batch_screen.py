@@ -2,10 +2,10 @@
 
 `BatchScreen(result)` takes a diag.core.triage.TriageResult. The top shows the summary
 across the batch (which faults and parts dominate, how many units fit no hypothesis, look
-healthy, or lack readings, and which rows of the file were refused, with their units); the
-table lists every unit with its leading suspects, `fits` and the most useful reading still
-missing, and marks a unit that lost rows. `f` cycles a filter by status; enter opens the
-selected unit in `SessionScreen(engine, readings=..., label=unit)`.
+healthy, are undecided or lack readings, and which rows of the file were refused, with
+their units); the table lists every unit with its leading suspects, `fits` and the most
+useful reading still missing, and marks a unit that lost rows. `f` cycles a filter by
+status; enter opens the selected unit in `SessionScreen(engine, readings=..., label=unit)`.
 """
 
 from __future__ import annotations
@@ -23,7 +23,7 @@ from textual.widgets import DataTable, Footer, Static
 from diag.core.triage import TriageResult, UnitResult
 from diag.tui.fmt import esc
 
-FILTERS = ("all", "fault", "no-fit", "healthy", "incomplete")
+FILTERS = ("all", "fault", "undecided", "no-fit", "healthy", "incomplete")
 
 
 @dataclass
@@ -37,7 +37,8 @@ def summary_text(result: TriageResult, top: int = 5) -> str:
     """The batch summary in a few lines (Textual markup, ids escaped)."""
     s = result.summary
     lines = [f"{s['units']} units: {s['faulty']} with a fault found, "
-             f"{len(s['healthy'])} healthy, [b]{len(s['no_fit'])} fit no hypothesis[/], "
+             + (f"{len(s['undecided'])} undecided, " if s["undecided"] else "")
+             + f"{len(s['healthy'])} healthy, [b]{len(s['no_fit'])} fit no hypothesis[/], "
              f"{len(s['incomplete'])} incomplete, {s['rows_rejected']} "
              f"row{'' if s['rows_rejected'] == 1 else 's'} refused."]
     if result.rejected:
@@ -103,7 +104,8 @@ class BatchScreen(Screen):
         t = self.query_one("#batch-units", DataTable)
         t.clear()
         self.shown = [u for u in self.result.units if self._keep(u)]
-        styles = {"no-fit": "bold red", "healthy": "green", "fault": ""}
+        styles = {"no-fit": "bold red", "healthy": "green", "fault": "",
+                  "undecided": "yellow"}
         for u in self.shown:
             d = u.diagnosis
             cells = [f"{s.fault} {s.p:.2f}" for s in d.suspects[:3]]

@@ -19,16 +19,18 @@ class ResumeDialog(ModalScreen[bool]):
         Binding("n,escape", "fresh", "Start afresh", id="resume.no"),
     ]
 
-    def __init__(self, session: Session) -> None:
+    def __init__(self, session: Session, title: str = "") -> None:
         super().__init__()
         self.session = session
+        self.title_text = title  # the case's title: the picker may show behind
 
     def compose(self) -> ComposeResult:
         s = self.session
         n = len(s.readings)
         with Vertical(id="resume-box", classes="dialog"):
             yield Static("[b]Pick up where you left off?[/b]", classes="dialog-title")
-            yield Static(f"A session on this case was saved {esc(when(s.saved or s.started))} "
+            on = f"“{esc(self.title_text)}”" if self.title_text else "this case"
+            yield Static(f"A session on {on} was saved {esc(when(s.saved or s.started))} "
                          f"with {n} reading{'s' if n != 1 else ''}"
                          f"{' and notes' if s.notes.strip() else ''}.")
             with Horizontal(classes="dialog-buttons"):

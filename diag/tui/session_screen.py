@@ -159,7 +159,9 @@ class SessionScreen(Screen[None]):
 
     def on_mount(self) -> None:
         self.query_one(FitBanner).display = False
-        self.query_one("#points", PointsTable).focus()
+        table = self.query_one("#points", PointsTable)
+        table.focus()
+        table.move_cursor(row=self._unread_from(0), animate=False)  # a resumed session
         self._show_readings()
         self._sync_entry_label()
         self.query_one(NextReadingPanel).show(None)
@@ -421,7 +423,17 @@ class SessionScreen(Screen[None]):
         self._set_typing(False)
         table = self.query_one("#points", PointsTable)
         if table.cursor_row < table.row_count - 1:
-            table.move_cursor(row=table.cursor_row + 1, animate=False)
+            table.move_cursor(row=self._unread_from(table.cursor_row + 1), animate=False)
+
+    def _unread_from(self, row: int) -> int:
+        """The first row from `row` down whose point has no reading yet (`row` itself when
+        every one below has): typing on goes on where readings are missing and does not
+        write over one taken earlier, as in a resumed session."""
+        obs = self.query_one("#points", PointsTable).observables
+        for r in range(row, len(obs)):
+            if self.session.reading(obs[r].point, obs[r].kind) is None:
+                return r
+        return min(row, max(len(obs) - 1, 0))
 
     # ------------------------------------------------------------------ actions
 
