@@ -1,6 +1,7 @@
 """Triage speed and memory: N units of a bundled case, triaged after the ensemble is cached.
 
     python bench/triage_bench.py [--case cases/mic-preamp.yaml] [--units 10000] [--seed 1]
+    python bench/triage_bench.py --units 1000 --doubles --check 0   # two faults a unit
 
 Units are drawn like Engine.simulate, one batch per fault (faults by the priors, 10 %
 healthy, one unit in twenty with a reading left out); drawing them is not timed. Prints
@@ -26,6 +27,7 @@ sys.path.insert(0, str(ROOT))
 from diag.core.case import load_case  # noqa: E402
 from diag.core.drill import pick_fault  # noqa: E402
 from diag.core.engine import Engine, Reading  # noqa: E402
+from diag.core.errors import DiagError  # noqa: E402
 from diag.core.rules import load_rules  # noqa: E402
 from diag.core.triage import triage  # noqa: E402
 
@@ -33,6 +35,23 @@ from diag.core.triage import triage  # noqa: E402
 def peak_rss_mib() -> float:
     """Peak resident set size of this process, MiB (Linux reports KiB)."""
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+
+
+def make_doubles(eng: Engine, n: int, seed: int) -> dict[str, list]:
+    """n units each with two faults of different parts, drawn uniformly (the batch of
+    odd returns: many fit no single fault, and pairs of faults are tried for them)."""
+    rng = np.random.default_rng(seed)
+    ids = [s.id for s in eng.specs if s.id != "healthy" and "+" not in s.id]
+    units: dict[str, list] = {}
+    while len(units) < n:
+        a, b = rng.choice(len(ids), 2, replace=False)
+        if ids[a].split(":")[0] == ids[b].split(":")[0]:
+            continue
+        try:
+            units[f"D{len(units):05d}"] = list(eng.simulate(f"{ids[a]}+{ids[b]}", rng))
+        except DiagError:  # a pair whose units do not solve: draw another
+            continue
+    return units
 
 
 def make_units(eng: Engine, n: int, seed: int) -> dict[str, list]:
@@ -78,6 +97,8 @@ def main() -> None:
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--threads", type=int, default=None,
                     help="worker threads of the batch (default: CPUs, at most 4)")
+    ap.add_argument("--doubles", action="store_true",
+                    help="every unit with two faults of different parts (make_doubles)")
     ap.add_argument("--check", type=int, default=200,
                     help="units compared against Engine.diagnose one at a time")
     args = ap.parse_args()
@@ -92,7 +113,7 @@ def main() -> None:
     t_cached = time.perf_counter() - t0
 
     t0 = time.perf_counter()
-    units = make_units(eng, args.units, args.seed)
+    units = (make_doubles if args.doubles else make_units)(eng, args.units, args.seed)
     t_make = time.perf_counter() - t0
 
     t0, c0 = time.perf_counter(), time.process_time()
