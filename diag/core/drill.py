@@ -358,7 +358,7 @@ def _group_of(engine: Engine) -> dict[str, int]:
 def _top_group(d: Diagnosis) -> tuple[str, float]:
     """Leading suspect and the probability held by its group."""
     top = d.suspects[0]
-    return top.fault, float(sum(s.p for s in d.suspects if s.group == top.group))
+    return top.fault, d.lead_p()
 
 
 def follow_advice(engine: Engine, unit: dict[tuple[str, str], Reading]

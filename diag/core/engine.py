@@ -173,6 +173,13 @@ class Diagnosis:
             return False
         return healthy_leads(self.suspects)
 
+    def lead_p(self) -> float:
+        """The probability the leading suspect's group holds (0 with no suspects)."""
+        if not self.suspects:
+            return 0.0
+        top = self.suspects[0].group
+        return float(sum(s.p for s in self.suspects if s.group == top))
+
     def healthy_alike(self, short: bool = False) -> str:
         """A sentence when readings were taken and they read healthy (`reads_healthy`);
         "" otherwise. `short`: a few words, for a narrow panel."""

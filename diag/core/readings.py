@@ -161,10 +161,13 @@ def point_of(case: Case, text) -> Point | None:
         return same[0] if len(same) == 1 else None
 
 
-def _said_kind(text) -> str | None:
-    """The kind a value names after itself ("0.72 Vrms": ac), or None."""
+def _said_kind(text) -> tuple[str, str | None]:
+    """A typed value and the kind it names after itself ("0.72 Vrms": "0.72 V", "ac"; no
+    kind named: the text as typed and None)."""
     m = _KIND_SUFFIX.match(str(text).strip())
-    return None if m is None else "dc" if m.group(2).lower() == "dc" else "ac"
+    if m is None:
+        return str(text), None
+    return m.group(1), "dc" if m.group(2).lower() == "dc" else "ac"
 
 
 def check_value(case: Case, point: str, kind: str, text, lim=None, *, file=None,
@@ -186,13 +189,12 @@ def check_value(case: Case, point: str, kind: str, text, lim=None, *, file=None,
         raise DiagError(f"{pt.id} {kind}: the meter showed OL (over range), and diag needs "
                         "a number", file=file, line=row, where=where,
                         hint=_over_range_hint(case, unit, hi))
-    said = _said_kind(text)
-    if said is not None:
-        if said != kind:
-            raise DiagError(f"{pt.id}: the value says {said} ({str(text).strip()}) but the "
-                            f"reading's kind is {kind}", file=file, line=row, where=where,
-                            hint="give the kind once, in the kind column or after the value")
-        text = _KIND_SUFFIX.match(str(text).strip()).group(1)
+    bare_text, said = _said_kind(text)
+    if said is not None and said != kind:
+        raise DiagError(f"{pt.id}: the value says {said} ({str(text).strip()}) but the "
+                        f"reading's kind is {kind}", file=file, line=row, where=where,
+                        hint="give the kind once, in the kind column or after the value")
+    text = bare_text
     try:
         value = parse_value(text, unit)
     except ValueError as exc:
@@ -273,7 +275,7 @@ def parse_text(text: str, case: Case, file: str = "<readings>", rules=None) -> R
             errors.append(DiagError("no unit name", file=file, line=i, where=f"row {i}",
                                     hint="every batch row starts with the unit's name"))
             continue
-        kind = (rec.get("kind") or _said_kind(rec["value"]) or "dc").lower()
+        kind = (rec.get("kind") or _said_kind(rec["value"])[1] or "dc").lower()
         try:
             value = check_value(case, rec["point"], kind, rec["value"], lim, file=file, row=i)
         except DiagError as exc:

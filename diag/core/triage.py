@@ -44,7 +44,7 @@ from diag.core.errors import DiagError
 from diag.core.infer import _LOG_EVERY, _exp_floor, kernel_loglik
 from diag.core.workers import Later
 
-STATUSES = ("fault", "healthy", "no-fit")
+STATUSES = ("fault", "healthy", "no-fit", "undecided")
 LOOKALIKES = 5  # look-alike faults named under "No fault found" in the Markdown report
 
 
@@ -149,9 +149,7 @@ def _status(d: Diagnosis) -> str:
         return "no-fit"
     if d.reads_healthy():
         return "healthy"
-    top = d.suspects[0].group if d.suspects else None
-    lead = sum(s.p for s in d.suspects if s.group == top)
-    return "fault" if lead > FOUND_P else "undecided"
+    return "fault" if d.lead_p() > FOUND_P else "undecided"
 
 
 @contextlib.contextmanager
@@ -668,7 +666,6 @@ class BatchScorer:
             out[i] = self.engine.diagnose(units[i], healthy_prior=self.hp)
             step(1)
         return out
-
 
     def _solve_deferred_pairs(self, matched) -> None:
         """For the units left to the end (`_deferred`): their pairs of faults solved in
