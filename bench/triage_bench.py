@@ -147,6 +147,7 @@ def main() -> None:
     print(f"| peak resident memory | {rss:.0f} MiB | < 1024 MiB |")
     s = res.summary
     print(f"\nsummary: {s['faulty']} faulty, {len(s['healthy'])} healthy, "
+          f"{len(s['undecided'])} undecided, "
           f"{len(s['no_fit'])} no fit, {len(s['incomplete'])} incomplete; "
           f"top faults: {', '.join(r['fault'] + ' ' + str(r['units']) for r in s['by_fault'][:5])}")
 
